@@ -1,0 +1,469 @@
+//! The blob format for models and checkpoints, and its validating decoder.
+//!
+//! # Layout
+//!
+//! | bytes | content |
+//! |---|---|
+//! | 0..4 | magic `HONB` |
+//! | 4..6 | format version, `u16` little-endian ([`FORMAT_VERSION`]) |
+//! | 6..n−4 | body: [`BlobBody`] in postcard |
+//! | n−4..n | CRC-32 (ISO-HDLC, the CRC of zlib and PNG) of bytes 0..n−4, little-endian |
+//!
+//! The body holds the kind (factory model or checkpoint), the full model description (layers,
+//! Q-formats, loss, training setup), the input scaling, the training state of a checkpoint
+//! (steps, updates, generator state, the current fraction bits of every moving tensor) and the
+//! tensors, each tagged with its layer, role and format and carried as little-endian bytes.
+//!
+//! # Validation
+//! [`decode`] checks, in order: length, magic, version, CRC, postcard structure, then the
+//! meaning: the description is valid, every tensor belongs to an existing layer with
+//! parameters, its word, element count and byte length match the description, no tensor
+//! appears twice, every tensor the kind requires is present, fraction bits are in range. What
+//! comes out is a [`CheckedBlob`]; code past that point trusts it. Nothing in the decoder
+//! panics on any input (a fuzz target exercises it).
+
+use heapless::Vec;
+use serde::{Deserialize, Serialize};
+
+use crate::error::Error;
+use crate::model::{ModelDesc, MAX_LAYERS};
+use crate::num::{QFormat, RawMut, Word, MAX_FRAC};
+
+/// First four bytes of every blob.
+pub const MAGIC: [u8; 4] = *b"HONB";
+/// The format version this crate writes and reads.
+pub const FORMAT_VERSION: u16 = 1;
+/// The most input channels a scaling entry list may hold.
+pub const MAX_SCALED_CHANNELS: usize = 64;
+/// The most tensors a blob may carry: value, master and momentum of weight and bias per layer.
+pub const MAX_TENSORS: usize = 6 * MAX_LAYERS;
+
+const CRC: crc::Crc<u32> = crc::Crc::<u32>::new(&crc::CRC_32_ISO_HDLC);
+
+/// Why a blob was rejected.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum BlobError {
+    /// Shorter than magic, version and CRC.
+    TooShort,
+    /// The first four bytes are not `HONB`.
+    BadMagic,
+    /// Written by another format version.
+    UnsupportedVersion {
+        /// The version found.
+        found: u16,
+    },
+    /// The CRC does not match: the bytes were corrupted.
+    CrcMismatch,
+    /// The body is not a valid postcard encoding of the expected structure.
+    Malformed,
+    /// A tensor names a layer that does not exist or has no parameters.
+    NoSuchLayer {
+        /// The layer named.
+        layer: u8,
+    },
+    /// A tensor's word, element count or byte length does not match the description.
+    TensorShape {
+        /// The layer.
+        layer: u8,
+        /// The role.
+        role: TensorRole,
+    },
+    /// The same tensor appears twice.
+    Duplicate {
+        /// The layer.
+        layer: u8,
+        /// The role.
+        role: TensorRole,
+    },
+    /// A tensor the blob kind requires is missing.
+    Missing {
+        /// The layer.
+        layer: u8,
+        /// The role.
+        role: TensorRole,
+    },
+    /// A checkpoint without training state, or a model with one.
+    StateMismatch,
+    /// Scaling entries do not match the input channels.
+    Scaling,
+    /// The output buffer is too small for the encoding.
+    BufferTooSmall,
+    /// Too many tensors for [`MAX_TENSORS`].
+    TooManyTensors,
+}
+
+impl core::fmt::Display for BlobError {
+    fn fmt(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+        match *self {
+            BlobError::TooShort => f.write_str("too short to be a blob"),
+            BlobError::BadMagic => f.write_str("not a hone blob (bad magic)"),
+            BlobError::UnsupportedVersion { found } => {
+                write!(
+                    f,
+                    "format version {found}, this build reads version {FORMAT_VERSION}"
+                )
+            }
+            BlobError::CrcMismatch => f.write_str("CRC mismatch: the blob is corrupted"),
+            BlobError::Malformed => f.write_str("body is malformed"),
+            BlobError::NoSuchLayer { layer } => {
+                write!(f, "tensor for layer {layer}, which has no parameters")
+            }
+            BlobError::TensorShape { layer, role } => write!(
+                f,
+                "layer {layer} {role}: word or size does not match the description"
+            ),
+            BlobError::Duplicate { layer, role } => write!(f, "layer {layer} {role} appears twice"),
+            BlobError::Missing { layer, role } => write!(f, "layer {layer} {role} is missing"),
+            BlobError::StateMismatch => f.write_str("training state does not match the blob kind"),
+            BlobError::Scaling => f.write_str("input scaling does not match the input channels"),
+            BlobError::BufferTooSmall => f.write_str("output buffer too small"),
+            BlobError::TooManyTensors => f.write_str("too many tensors"),
+        }
+    }
+}
+
+impl From<BlobError> for Error {
+    fn from(e: BlobError) -> Error {
+        Error::Blob(e)
+    }
+}
+
+/// What a blob holds.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum BlobKind {
+    /// A factory model: every parameter tensor, no training state.
+    Model,
+    /// A checkpoint of training: the trained tensors and the training state.
+    Checkpoint,
+}
+
+/// Which tensor of a layer.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum TensorRole {
+    /// Weights (value format).
+    Weight,
+    /// Bias (value format).
+    Bias,
+    /// Master weights.
+    MasterWeight,
+    /// Master bias.
+    MasterBias,
+    /// Weight momentum (accumulator format).
+    MomentumWeight,
+    /// Bias momentum (accumulator format).
+    MomentumBias,
+}
+
+impl core::fmt::Display for TensorRole {
+    fn fmt(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+        f.write_str(match self {
+            TensorRole::Weight => "weights",
+            TensorRole::Bias => "bias",
+            TensorRole::MasterWeight => "master weights",
+            TensorRole::MasterBias => "master bias",
+            TensorRole::MomentumWeight => "weight momentum",
+            TensorRole::MomentumBias => "bias momentum",
+        })
+    }
+}
+
+/// Scaling of one input channel: `x = (raw − offset) · gain`, applied before quantizing to
+/// the input format. Learned on the host from the factory data; the device applies the same.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct ChannelScale {
+    /// Subtracted from the raw reading.
+    pub offset: f32,
+    /// Multiplies the difference.
+    pub gain: f32,
+}
+
+/// The training state carried by a checkpoint.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct TrainState {
+    /// Samples stepped.
+    pub steps: u32,
+    /// Updates applied.
+    pub updates: u32,
+    /// Generator state.
+    pub rng: [u32; 4],
+    /// Current fraction bits per layer: output, gradient, weight accumulator, bias
+    /// accumulator.
+    pub fracs: [[u8; 4]; MAX_LAYERS],
+}
+
+/// One tensor as carried in a blob.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub struct TensorBlob<'a> {
+    /// Layer index.
+    pub layer: u8,
+    /// Role.
+    pub role: TensorRole,
+    /// Format of the values.
+    pub format: QFormat,
+    /// Number of values.
+    pub elems: u32,
+    /// Little-endian bytes, `elems × word bytes` long.
+    pub data: &'a [u8],
+}
+
+/// The postcard body of a blob.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct BlobBody<'a> {
+    /// Model or checkpoint.
+    pub kind: BlobKind,
+    /// The model description.
+    pub desc: ModelDesc,
+    /// Input scaling per input channel (empty: inputs are already scaled).
+    pub scaling: Vec<ChannelScale, MAX_SCALED_CHANNELS>,
+    /// Training state (checkpoints only).
+    pub state: Option<TrainState>,
+    /// The tensors.
+    #[serde(borrow)]
+    pub tensors: Vec<TensorBlob<'a>, MAX_TENSORS>,
+}
+
+/// A blob that passed every check of [`decode`].
+#[derive(Clone, Debug, PartialEq)]
+pub struct CheckedBlob<'a> {
+    body: BlobBody<'a>,
+}
+
+impl<'a> CheckedBlob<'a> {
+    /// Model or checkpoint.
+    pub fn kind(&self) -> BlobKind {
+        self.body.kind
+    }
+
+    /// The model description.
+    pub fn desc(&self) -> &ModelDesc {
+        &self.body.desc
+    }
+
+    /// Input scaling.
+    pub fn scaling(&self) -> &[ChannelScale] {
+        &self.body.scaling
+    }
+
+    /// Training state of a checkpoint.
+    pub fn state(&self) -> Option<&TrainState> {
+        self.body.state.as_ref()
+    }
+
+    /// All tensors.
+    pub fn tensors(&self) -> &[TensorBlob<'a>] {
+        &self.body.tensors
+    }
+
+    /// The tensor of a layer and role, if the blob carries it.
+    pub fn tensor(&self, layer: usize, role: TensorRole) -> Option<&TensorBlob<'a>> {
+        self.body
+            .tensors
+            .iter()
+            .find(|t| t.layer as usize == layer && t.role == role)
+    }
+
+    /// The whole validated body.
+    pub fn body(&self) -> &BlobBody<'a> {
+        &self.body
+    }
+}
+
+/// Copies a tensor's bytes into a raw buffer of the same word and length.
+///
+/// # Errors
+/// [`BlobError::TensorShape`] if word or length differ.
+pub fn copy_tensor(t: &TensorBlob<'_>, out: &mut RawMut<'_>) -> Result<(), Error> {
+    if out.word() != t.format.word || out.len() != t.elems as usize || !out.read_le(t.data) {
+        return Err(BlobError::TensorShape {
+            layer: t.layer,
+            role: t.role,
+        }
+        .into());
+    }
+    Ok(())
+}
+
+/// The format a tensor of `role` must have in layer `layer` of `desc` (the word is fixed by the
+/// description; the fraction bits of accumulator-format tensors may have moved).
+fn expected_word(desc: &ModelDesc, layer: usize, role: TensorRole) -> Option<(Word, bool)> {
+    let l = desc.layers.get(layer)?;
+    if !l.kind.has_params() {
+        return None;
+    }
+    Some(match role {
+        TensorRole::Weight => (l.weight.value.word, true),
+        TensorRole::Bias => (l.bias.value.word, true),
+        TensorRole::MasterWeight => (l.weight.master?.word, l.mode.trains_weight()),
+        TensorRole::MasterBias => (l.bias.master?.word, l.mode.trains_bias()),
+        TensorRole::MomentumWeight => (l.weight.accum.word, l.mode.trains_weight()),
+        TensorRole::MomentumBias => (l.bias.accum.word, l.mode.trains_bias()),
+    })
+}
+
+/// Validates a blob and returns its checked form. See the [module docs](self).
+///
+/// # Errors
+/// [`Error::Blob`] for framing and tensor problems; the description's own errors for an
+/// invalid model description inside a well-framed blob.
+pub fn decode(bytes: &[u8]) -> Result<CheckedBlob<'_>, Error> {
+    if bytes.len() < 10 {
+        return Err(BlobError::TooShort.into());
+    }
+    let (head, rest) = bytes.split_at(6);
+    if head[..4] != MAGIC {
+        return Err(BlobError::BadMagic.into());
+    }
+    let version = u16::from_le_bytes([head[4], head[5]]);
+    if version != FORMAT_VERSION {
+        return Err(BlobError::UnsupportedVersion { found: version }.into());
+    }
+    let (body_bytes, crc_bytes) = rest.split_at(rest.len() - 4);
+    let stored = u32::from_le_bytes([crc_bytes[0], crc_bytes[1], crc_bytes[2], crc_bytes[3]]);
+    let computed = CRC.checksum(&bytes[..bytes.len() - 4]);
+    if stored != computed {
+        return Err(BlobError::CrcMismatch.into());
+    }
+    let body: BlobBody<'_> = match postcard::from_bytes(body_bytes) {
+        Ok(b) => b,
+        Err(_) => return Err(BlobError::Malformed.into()),
+    };
+    check_body(&body)?;
+    Ok(CheckedBlob { body })
+}
+
+fn check_body(body: &BlobBody<'_>) -> Result<(), Error> {
+    let desc = &body.desc;
+    desc.check()?;
+    let shapes = crate::model::shapes(desc.input, &desc.layers, desc.loss)?;
+    if !body.scaling.is_empty() && body.scaling.len() != desc.input.channels as usize {
+        return Err(BlobError::Scaling.into());
+    }
+    for s in &body.scaling {
+        if !s.offset.is_finite() || !s.gain.is_finite() {
+            return Err(BlobError::Scaling.into());
+        }
+    }
+    match (body.kind, body.state.as_ref()) {
+        (BlobKind::Model, None) => {}
+        (BlobKind::Checkpoint, Some(st)) => {
+            if crate::num::Rng::from_state(st.rng).is_none()
+                || st.fracs.iter().flatten().any(|&f| f > MAX_FRAC)
+            {
+                return Err(BlobError::StateMismatch.into());
+            }
+        }
+        _ => return Err(BlobError::StateMismatch.into()),
+    }
+    for (i, t) in body.tensors.iter().enumerate() {
+        let layer = t.layer as usize;
+        let Some((word, allowed)) = expected_word(desc, layer, t.role) else {
+            return Err(BlobError::NoSuchLayer { layer: t.layer }.into());
+        };
+        let g = &shapes.layers[layer];
+        let elems = match t.role {
+            TensorRole::Weight | TensorRole::MasterWeight | TensorRole::MomentumWeight => g.weights,
+            _ => g.biases,
+        };
+        let shape_ok = allowed
+            && t.format.word == word
+            && t.format.frac <= MAX_FRAC
+            && t.elems == elems
+            && t.data.len() == elems as usize * word.bytes();
+        if !shape_ok {
+            return Err(BlobError::TensorShape {
+                layer: t.layer,
+                role: t.role,
+            }
+            .into());
+        }
+        if body.tensors[..i]
+            .iter()
+            .any(|u| u.layer == t.layer && u.role == t.role)
+        {
+            return Err(BlobError::Duplicate {
+                layer: t.layer,
+                role: t.role,
+            }
+            .into());
+        }
+    }
+    // Required tensors: a model carries every value tensor; a checkpoint carries the value
+    // of every trained tensor and, where the description has them, its master and momentum.
+    for (k, l) in desc.layers.iter().enumerate() {
+        if !l.kind.has_params() {
+            continue;
+        }
+        let with_momentum = !desc.train.momentum.is_zero();
+        let mut required: [(TensorRole, bool); 6] = [
+            (TensorRole::Weight, true),
+            (TensorRole::Bias, true),
+            (TensorRole::MasterWeight, false),
+            (TensorRole::MasterBias, false),
+            (TensorRole::MomentumWeight, false),
+            (TensorRole::MomentumBias, false),
+        ];
+        if body.kind == BlobKind::Checkpoint {
+            let (tw, tb) = (l.mode.trains_weight(), l.mode.trains_bias());
+            required = [
+                (TensorRole::Weight, tw),
+                (TensorRole::Bias, tb),
+                (TensorRole::MasterWeight, tw && l.weight.master.is_some()),
+                (TensorRole::MasterBias, tb && l.bias.master.is_some()),
+                (TensorRole::MomentumWeight, tw && with_momentum),
+                (TensorRole::MomentumBias, tb && with_momentum),
+            ];
+        }
+        for (role, needed) in required {
+            let present = body
+                .tensors
+                .iter()
+                .any(|t| t.layer as usize == k && t.role == role);
+            if needed && !present {
+                return Err(BlobError::Missing {
+                    layer: k as u8,
+                    role,
+                }
+                .into());
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Encodes a body into `out`: magic, version, postcard body, CRC. Returns the bytes written.
+///
+/// # Errors
+/// [`BlobError::BufferTooSmall`] if `out` is too short; [`BlobError::Malformed`] if the body
+/// cannot be serialized.
+pub fn encode(body: &BlobBody<'_>, out: &mut [u8]) -> Result<usize, Error> {
+    if out.len() < 10 {
+        return Err(BlobError::BufferTooSmall.into());
+    }
+    out[..4].copy_from_slice(&MAGIC);
+    out[4..6].copy_from_slice(&FORMAT_VERSION.to_le_bytes());
+    let room = out.len() - 4;
+    let body_len = match postcard::to_slice(body, &mut out[6..room]) {
+        Ok(s) => s.len(),
+        Err(postcard::Error::SerializeBufferFull) => return Err(BlobError::BufferTooSmall.into()),
+        Err(_) => return Err(BlobError::Malformed.into()),
+    };
+    let end = 6 + body_len;
+    let crc = CRC.checksum(&out[..end]);
+    out[end..end + 4].copy_from_slice(&crc.to_le_bytes());
+    Ok(end + 4)
+}
+
+/// Bytes [`encode`] will write for `body`.
+///
+/// # Errors
+/// [`BlobError::Malformed`] if the body cannot be serialized.
+pub fn encoded_len(body: &BlobBody<'_>) -> Result<usize, Error> {
+    postcard::experimental::serialized_size(body)
+        .map(|n| n + 10)
+        .map_err(|_| BlobError::Malformed.into())
+}

@@ -1,0 +1,197 @@
+//! The rollback guard: new weights are accepted only if they do no harm on calibration
+//! samples held back from the update.
+//!
+//! A calibration session on a device goes:
+//!
+//! 1. evaluate the held-back samples under the current (last good) weights: the *baseline*;
+//! 2. train on the other samples;
+//! 3. evaluate the held-back samples again: the *candidate*;
+//! 4. [`judge`] the two: reject when the mean loss rose by more than the allowed margin, or
+//!    when activation saturations spiked; otherwise accept;
+//! 5. on rejection, reload the last good weights ([`crate::train::Trainer::load`]); on
+//!    acceptance, commit them (for example to the [`crate::store`]).
+//!
+//! Everything is integer: losses are [`LossValue`]s, rates are parts per million.
+
+use crate::layer::loss::{LossValue, Target};
+use crate::layer::Tensor;
+use crate::train::Trainer;
+use crate::Error;
+
+/// Thresholds of the guard.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct GuardConfig {
+    /// Largest tolerated rise of the mean held-back loss, in parts per thousand of the
+    /// baseline (0: the loss must not rise at all).
+    pub max_loss_rise_permille: u32,
+    /// Rises below this absolute amount are tolerated whatever the ratio (protects a
+    /// baseline near zero from rejecting noise).
+    pub loss_floor: LossValue,
+    /// Largest tolerated saturation rate of activations on the held-back samples, in parts
+    /// per million of the activation values computed.
+    pub max_saturation_ppm: u32,
+}
+
+impl GuardConfig {
+    /// A guard that tolerates a 5 % loss rise (common practice for acceptance margins, not a
+    /// published figure), a loss floor of 2^-16, and 1000 ppm of saturated activations.
+    pub const DEFAULT: GuardConfig = GuardConfig {
+        max_loss_rise_permille: 50,
+        loss_floor: LossValue(1 << 8),
+        max_saturation_ppm: 1000,
+    };
+}
+
+/// A summary of the held-back samples under one set of weights.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Evaluation {
+    /// Mean loss.
+    pub mean_loss: LossValue,
+    /// Samples evaluated.
+    pub samples: u32,
+    /// Activation values that saturated.
+    pub saturations: u32,
+    /// Activation values computed.
+    pub activations: u64,
+    /// Correct predictions (classification only).
+    pub correct: u32,
+}
+
+impl Evaluation {
+    /// Saturation rate in parts per million.
+    pub fn saturation_ppm(&self) -> u64 {
+        if self.activations == 0 {
+            0
+        } else {
+            self.saturations as u64 * 1_000_000 / self.activations
+        }
+    }
+}
+
+/// Why the guard rejected.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum Rejection {
+    /// The held-back loss rose beyond the margin.
+    LossRose {
+        /// Baseline mean loss.
+        before: LossValue,
+        /// Candidate mean loss.
+        after: LossValue,
+    },
+    /// Saturations spiked beyond the limit.
+    Saturations {
+        /// Candidate rate in ppm.
+        ppm: u64,
+    },
+}
+
+/// The guard's decision.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum Verdict {
+    /// Keep the new weights.
+    Accept,
+    /// Keep the last good weights.
+    Reject(Rejection),
+}
+
+/// Evaluates `samples` (input and target pairs) under the trainer's current weights.
+///
+/// # Errors
+/// The first sample error (wrong length, label out of range).
+pub fn evaluate<'s, I>(trainer: &mut Trainer<'_>, samples: I) -> Result<Evaluation, Error>
+where
+    I: IntoIterator<Item = (Tensor<'s>, Target<'s>)>,
+{
+    let per_sample: u64 = trainer.plan().shapes.layers[..trainer.plan().count()]
+        .iter()
+        .map(|g| g.output.size() as u64)
+        .sum();
+    let mut e = Evaluation::default();
+    let mut total: i128 = 0;
+    for (x, t) in samples {
+        let o = trainer.evaluate(x, t)?;
+        total += o.loss.0 as i128;
+        e.samples += 1;
+        e.saturations = e.saturations.saturating_add(o.saturations);
+        e.activations += per_sample;
+        if let (Some(p), Target::Class(c)) = (o.predicted, t) {
+            if p == c {
+                e.correct += 1;
+            }
+        }
+    }
+    if e.samples > 0 {
+        e.mean_loss =
+            LossValue((total / e.samples as i128).clamp(i64::MIN as i128, i64::MAX as i128) as i64);
+    }
+    Ok(e)
+}
+
+/// Compares a candidate with the baseline. See the [module docs](self).
+pub fn judge(before: &Evaluation, after: &Evaluation, cfg: &GuardConfig) -> Verdict {
+    let ppm = after.saturation_ppm();
+    if ppm > cfg.max_saturation_ppm as u64 && ppm > before.saturation_ppm() {
+        return Verdict::Reject(Rejection::Saturations { ppm });
+    }
+    let b = before.mean_loss.0 as i128;
+    let a = after.mean_loss.0 as i128;
+    let allowed =
+        (b.max(0) * cfg.max_loss_rise_permille as i128 / 1000).max(cfg.loss_floor.0 as i128);
+    if a - b > allowed {
+        return Verdict::Reject(Rejection::LossRose {
+            before: before.mean_loss,
+            after: after.mean_loss,
+        });
+    }
+    Verdict::Accept
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn ev(loss: i64, sats: u32) -> Evaluation {
+        Evaluation {
+            mean_loss: LossValue(loss),
+            samples: 10,
+            saturations: sats,
+            activations: 10_000,
+            correct: 0,
+        }
+    }
+
+    #[test]
+    fn thresholds() {
+        let cfg = GuardConfig {
+            max_loss_rise_permille: 50,
+            loss_floor: LossValue(10),
+            max_saturation_ppm: 1000,
+        };
+        assert_eq!(judge(&ev(1000, 0), &ev(900, 0), &cfg), Verdict::Accept);
+        assert_eq!(judge(&ev(1000, 0), &ev(1050, 0), &cfg), Verdict::Accept); // exactly 5 %
+        assert_eq!(
+            judge(&ev(1000, 0), &ev(1051, 0), &cfg),
+            Verdict::Reject(Rejection::LossRose {
+                before: LossValue(1000),
+                after: LossValue(1051)
+            })
+        );
+        // Near zero the floor decides.
+        assert_eq!(judge(&ev(0, 0), &ev(10, 0), &cfg), Verdict::Accept);
+        assert!(matches!(
+            judge(&ev(0, 0), &ev(11, 0), &cfg),
+            Verdict::Reject(_)
+        ));
+        // 11 of 10 000 = 1100 ppm > 1000: a spike.
+        assert_eq!(
+            judge(&ev(1000, 0), &ev(900, 11), &cfg),
+            Verdict::Reject(Rejection::Saturations { ppm: 1100 })
+        );
+        // Not a spike if the baseline was already that bad.
+        assert_eq!(judge(&ev(1000, 20), &ev(900, 11), &cfg), Verdict::Accept);
+    }
+}

@@ -1,0 +1,744 @@
+//! The model description: layers, formats, loss and training setup.
+//!
+//! One type serves three readers: the `const fn` memory plan (through slices of
+//! [`LayerDesc`]), the device (decoded from a postcard blob) and the host (read from TOML
+//! through serde). Fixed-capacity storage comes from `heapless`.
+
+use heapless::Vec;
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, LayerFault};
+use crate::num::{QFormat, QScalar, RoundingPlan, Word};
+
+/// The most layers a model may have. Activation functions and pooling count as layers.
+pub const MAX_LAYERS: usize = 12;
+
+/// A 1-D signal: `channels` rows of `len` samples, stored channel-major (`[c][t]`).
+/// Tabular features are `channels = n, len = 1`; a 3-axis accelerometer window of 64 samples
+/// is `channels = 3, len = 64`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct Shape {
+    /// Channels (features).
+    pub channels: u16,
+    /// Samples per channel.
+    pub len: u16,
+}
+
+impl Shape {
+    /// A flat vector of `n` features.
+    pub const fn vector(n: u16) -> Shape {
+        Shape {
+            channels: n,
+            len: 1,
+        }
+    }
+
+    /// Number of values.
+    pub const fn size(self) -> u32 {
+        self.channels as u32 * self.len as u32
+    }
+}
+
+/// What a layer computes.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum LayerKind {
+    /// Fully connected: flattens its input and produces `units` values (`Shape::vector`).
+    /// Weights are `[units][inputs]`, row-major; bias `[units]`.
+    Dense {
+        /// Output units.
+        units: u16,
+    },
+    /// 1-D convolution without padding ("valid"): output length `(len − kernel)/stride + 1`.
+    /// Kernel `[filters][in_channels][kernel]`; bias `[filters]`.
+    Conv1d {
+        /// Output channels.
+        filters: u16,
+        /// Kernel length in samples.
+        kernel: u16,
+        /// Step between windows.
+        stride: u16,
+    },
+    /// max(0, x).
+    Relu,
+    /// x for x > 0, x · 2^-shift otherwise.
+    LeakyRelu {
+        /// Slope of the negative side as a right shift (3 gives 1/8).
+        shift: u8,
+    },
+    /// Hard tanh: clamp(x, −1, 1).
+    HardTanh,
+    /// Clipped ReLU: clamp(x, 0, ceiling), for example ceiling 6.
+    ClippedRelu {
+        /// Upper clamp, a whole number.
+        ceiling: u8,
+    },
+    /// Logistic sigmoid by lookup table (see [`crate::approx::sigmoid`]).
+    Sigmoid,
+    /// tanh by lookup table (see [`crate::approx::tanh`]).
+    Tanh,
+    /// Average over windows of `window` samples every `stride` samples, per channel.
+    AvgPool1d {
+        /// Window length.
+        window: u16,
+        /// Step between windows.
+        stride: u16,
+    },
+    /// Maximum over windows, per channel.
+    MaxPool1d {
+        /// Window length.
+        window: u16,
+        /// Step between windows.
+        stride: u16,
+    },
+}
+
+impl LayerKind {
+    /// Whether the layer has weights and a bias.
+    pub const fn has_params(self) -> bool {
+        matches!(self, LayerKind::Dense { .. } | LayerKind::Conv1d { .. })
+    }
+}
+
+/// Which parameters of a layer training may change.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum TrainMode {
+    /// Nothing changes. Weights and bias may stay in flash as `&'static` data, and no
+    /// activations are kept for this layer unless a trainable layer before it needs them.
+    Frozen,
+    /// Only the bias changes (a cheap per-unit offset calibration); weights stay in flash.
+    BiasOnly,
+    /// Only the weights change; the bias stays in flash.
+    WeightsOnly,
+    /// Weights and bias change.
+    Full,
+}
+
+impl TrainMode {
+    /// Whether the weights are trained.
+    pub const fn trains_weight(self) -> bool {
+        matches!(self, TrainMode::WeightsOnly | TrainMode::Full)
+    }
+
+    /// Whether the bias is trained.
+    pub const fn trains_bias(self) -> bool {
+        matches!(self, TrainMode::BiasOnly | TrainMode::Full)
+    }
+}
+
+/// Formats of one parameter tensor (weights or bias) and of its training state.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct ParamFormats {
+    /// The values used in forward and backward propagation.
+    pub value: QFormat,
+    /// Optional higher-precision master copy that receives the updates; the propagated values
+    /// are rounded from it after each update (Courbariaux, Bengio, David 2014).
+    pub master: Option<QFormat>,
+    /// The gradient accumulator of a mini-batch, also the format of the momentum buffer.
+    pub accum: QFormat,
+}
+
+impl ParamFormats {
+    /// Value format only, with an `i32` accumulator of `accum_frac` fraction bits.
+    pub const fn plain(value: QFormat, accum_frac: u8) -> ParamFormats {
+        ParamFormats {
+            value,
+            master: None,
+            accum: QFormat::new_unchecked(Word::I32, accum_frac),
+        }
+    }
+
+    /// The format updates are written into: the master copy if there is one.
+    pub const fn update_target(&self) -> QFormat {
+        match self.master {
+            Some(m) => m,
+            None => self.value,
+        }
+    }
+
+    const fn is_valid(&self) -> bool {
+        self.value.is_valid()
+            && self.accum.is_valid()
+            && match self.master {
+                Some(m) => m.is_valid(),
+                None => true,
+            }
+    }
+}
+
+/// One layer: what it computes, how it trains, and the formats of its tensors.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct LayerDesc {
+    /// What the layer computes.
+    pub kind: LayerKind,
+    /// What training may change. Must be [`TrainMode::Frozen`] for layers without parameters.
+    pub mode: TrainMode,
+    /// Weight formats (ignored for layers without parameters).
+    pub weight: ParamFormats,
+    /// Bias formats (ignored for layers without parameters).
+    pub bias: ParamFormats,
+    /// Format of the layer's output activations.
+    pub out: QFormat,
+    /// Format of the loss gradient with respect to the layer's output.
+    pub grad: QFormat,
+}
+
+impl LayerDesc {
+    /// A layer without parameters (activation or pooling), frozen, with the given output and
+    /// gradient formats.
+    pub const fn simple(kind: LayerKind, out: QFormat, grad: QFormat) -> LayerDesc {
+        let unused = ParamFormats::plain(QFormat::Q0_7, 0);
+        LayerDesc {
+            kind,
+            mode: TrainMode::Frozen,
+            weight: unused,
+            bias: unused,
+            out,
+            grad,
+        }
+    }
+
+    /// The same layer with another train mode.
+    pub const fn with_mode(mut self, mode: TrainMode) -> LayerDesc {
+        self.mode = mode;
+        self
+    }
+}
+
+/// The loss the model is trained on.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum Loss {
+    /// Squared error with the conventional one half, summed over outputs:
+    /// `L = ½ Σ_j (y_j − t_j)²`, gradient `y − t`. Its mean over samples is the training
+    /// loss; the mean squared error per output is `2L / outputs`.
+    SquaredError,
+    /// Softmax over the outputs followed by cross-entropy with a class label:
+    /// `L = −ln softmax(z)_t`, gradient `softmax(z) − onehot(t)`.
+    SoftmaxCrossEntropy,
+}
+
+/// The overflow-rate rule of dynamic fixed point (Courbariaux, Bengio, David 2014, section 4):
+/// every `interval` weight updates, each tensor whose saturation rate over the interval exceeds
+/// `max_rate_ppm` loses one fraction bit (its range doubles); one whose rate is at most half
+/// of it gains a fraction bit.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct DynamicRule {
+    /// Largest tolerated rate of saturated values, in parts per million (the paper used
+    /// 0.01 %, i.e. 100 ppm).
+    pub max_rate_ppm: u32,
+    /// Weight updates between adjustments.
+    pub interval: u16,
+}
+
+/// How training proceeds: SGD with mini-batches, momentum, weight decay and clipping, all in
+/// fixed point.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct TrainDesc {
+    /// Samples whose gradients are accumulated before one update (≥ 1).
+    pub batch: u16,
+    /// Learning rate (≥ 0).
+    pub lr: QScalar,
+    /// Momentum coefficient μ in `v ← μ v + g`; zero disables the momentum buffers.
+    pub momentum: QScalar,
+    /// L2 weight decay λ, added to the gradient as `λ w`; zero disables it.
+    pub weight_decay: QScalar,
+    /// Bound on each averaged gradient value, `|g| ≤ clip`; zero disables clipping.
+    pub clip: QScalar,
+    /// Rounding per tensor role.
+    pub rounding: RoundingPlan,
+    /// Dynamic fixed point, if wanted.
+    pub dynamic: Option<DynamicRule>,
+    /// Seed of the core's generator (stochastic rounding).
+    pub seed: u64,
+}
+
+impl TrainDesc {
+    /// Plain SGD: batch 1, the given learning rate, no momentum, decay or clipping, nearest
+    /// rounding, no dynamic fixed point, seed 0.
+    pub const fn sgd(lr: QScalar) -> TrainDesc {
+        TrainDesc {
+            batch: 1,
+            lr,
+            momentum: QScalar::ZERO,
+            weight_decay: QScalar::ZERO,
+            clip: QScalar::ZERO,
+            rounding: RoundingPlan::NEAREST,
+            dynamic: None,
+            seed: 0,
+        }
+    }
+
+    /// Checks the hyperparameters.
+    ///
+    /// # Errors
+    /// [`Error::InvalidTraining`] for a zero batch, a negative learning rate, momentum,
+    /// decay or clip, a momentum of one or more, a scalar with more than 31 fraction bits,
+    /// or a dynamic rule with a zero interval.
+    pub const fn check(&self) -> Result<(), Error> {
+        let scalars = [self.lr, self.momentum, self.weight_decay, self.clip];
+        let mut i = 0;
+        while i < scalars.len() {
+            if scalars[i].raw < 0 || scalars[i].frac > crate::num::MAX_FRAC {
+                return Err(Error::InvalidTraining);
+            }
+            i += 1;
+        }
+        // μ < 1, or the momentum buffer grows without bound.
+        if (self.momentum.raw as i64) >= (1i64 << self.momentum.frac) {
+            return Err(Error::InvalidTraining);
+        }
+        if self.batch == 0 {
+            return Err(Error::InvalidTraining);
+        }
+        if let Some(d) = self.dynamic {
+            if d.interval == 0 {
+                return Err(Error::InvalidTraining);
+            }
+        }
+        Ok(())
+    }
+}
+
+/// A complete model description.
+#[derive(Clone, Debug, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ModelDesc {
+    /// Shape of one input sample.
+    pub input: Shape,
+    /// Layers in order.
+    pub layers: Vec<LayerDesc, MAX_LAYERS>,
+    /// The loss.
+    pub loss: Loss,
+    /// The training setup.
+    pub train: TrainDesc,
+}
+
+impl ModelDesc {
+    /// A description from a slice of layers.
+    ///
+    /// # Errors
+    /// [`Error::TooManyLayers`] past [`MAX_LAYERS`]; otherwise the errors of
+    /// [`ModelDesc::check`].
+    pub fn new(
+        input: Shape,
+        layers: &[LayerDesc],
+        loss: Loss,
+        train: TrainDesc,
+    ) -> Result<ModelDesc, Error> {
+        let layers = Vec::from_slice(layers).map_err(|_| Error::TooManyLayers)?;
+        let d = ModelDesc {
+            input,
+            layers,
+            loss,
+            train,
+        };
+        d.check()?;
+        Ok(d)
+    }
+
+    /// Checks every layer's sizes and formats, the loss against the output, and the
+    /// training hyperparameters.
+    ///
+    /// # Errors
+    /// The first problem found, as an [`Error`].
+    pub fn check(&self) -> Result<(), Error> {
+        self.train.check()?;
+        shapes(self.input, &self.layers, self.loss).map(|_| ())
+    }
+
+    /// Shape of the model's output.
+    ///
+    /// # Errors
+    /// As [`ModelDesc::check`].
+    pub fn output(&self) -> Result<Shape, Error> {
+        let s = shapes(self.input, &self.layers, self.loss)?;
+        Ok(s.output)
+    }
+}
+
+/// Sizes of one layer, derived from the description.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct LayerGeometry {
+    /// Input shape.
+    pub input: Shape,
+    /// Output shape.
+    pub output: Shape,
+    /// Weight values (0 for layers without parameters).
+    pub weights: u32,
+    /// Bias values (0 for layers without parameters).
+    pub biases: u32,
+    /// Multiply-accumulates of one forward pass.
+    pub macs: u32,
+}
+
+/// Shapes of a whole model.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Shapes {
+    /// Per layer; entries past `count` are unused.
+    pub layers: [LayerGeometry; MAX_LAYERS],
+    /// Number of layers.
+    pub count: usize,
+    /// Output shape of the last layer.
+    pub output: Shape,
+}
+
+const EMPTY_GEOMETRY: LayerGeometry = LayerGeometry {
+    input: Shape {
+        channels: 0,
+        len: 0,
+    },
+    output: Shape {
+        channels: 0,
+        len: 0,
+    },
+    weights: 0,
+    biases: 0,
+    macs: 0,
+};
+
+const fn lf(index: usize, fault: LayerFault) -> Error {
+    Error::Layer {
+        layer: index as u8,
+        fault,
+    }
+}
+
+/// The geometry of one layer applied to `input`.
+///
+/// # Errors
+/// [`Error::Layer`] with the fault found.
+pub const fn layer_geometry(
+    index: usize,
+    input: Shape,
+    layer: &LayerDesc,
+) -> Result<LayerGeometry, Error> {
+    if !layer.out.is_valid() || !layer.grad.is_valid() {
+        return Err(lf(index, LayerFault::Format));
+    }
+    if layer.kind.has_params() {
+        if !layer.weight.is_valid() || !layer.bias.is_valid() {
+            return Err(lf(index, LayerFault::Format));
+        }
+    } else if !matches!(layer.mode, TrainMode::Frozen) {
+        return Err(lf(index, LayerFault::ModeWithoutParams));
+    }
+    if input.channels == 0 || input.len == 0 {
+        return Err(lf(index, LayerFault::ZeroSize));
+    }
+    let n_in = input.size();
+    match layer.kind {
+        LayerKind::Dense { units } => {
+            if units == 0 {
+                return Err(lf(index, LayerFault::ZeroSize));
+            }
+            let weights = match n_in.checked_mul(units as u32) {
+                Some(w) => w,
+                None => return Err(lf(index, LayerFault::TooLarge)),
+            };
+            if weights > u32::MAX / 8 {
+                return Err(lf(index, LayerFault::TooLarge));
+            }
+            Ok(LayerGeometry {
+                input,
+                output: Shape::vector(units),
+                weights,
+                biases: units as u32,
+                macs: weights,
+            })
+        }
+        LayerKind::Conv1d {
+            filters,
+            kernel,
+            stride,
+        } => {
+            if filters == 0 || kernel == 0 || stride == 0 {
+                return Err(lf(index, LayerFault::ZeroSize));
+            }
+            if kernel > input.len {
+                return Err(lf(index, LayerFault::WindowTooLong));
+            }
+            let out_len = (input.len - kernel) / stride + 1;
+            let weights = filters as u32 * input.channels as u32 * kernel as u32;
+            let macs = match (weights as u64 * out_len as u64) < (u32::MAX / 8) as u64 {
+                true => weights * out_len as u32,
+                false => return Err(lf(index, LayerFault::TooLarge)),
+            };
+            if weights > u32::MAX / 8 {
+                return Err(lf(index, LayerFault::TooLarge));
+            }
+            Ok(LayerGeometry {
+                input,
+                output: Shape {
+                    channels: filters,
+                    len: out_len,
+                },
+                weights,
+                biases: filters as u32,
+                macs,
+            })
+        }
+        LayerKind::AvgPool1d { window, stride } | LayerKind::MaxPool1d { window, stride } => {
+            if window == 0 || stride == 0 {
+                return Err(lf(index, LayerFault::ZeroSize));
+            }
+            if window > input.len {
+                return Err(lf(index, LayerFault::WindowTooLong));
+            }
+            let out_len = (input.len - window) / stride + 1;
+            Ok(LayerGeometry {
+                input,
+                output: Shape {
+                    channels: input.channels,
+                    len: out_len,
+                },
+                weights: 0,
+                biases: 0,
+                macs: 0,
+            })
+        }
+        LayerKind::LeakyRelu { shift } if shift == 0 || shift > 15 => {
+            Err(lf(index, LayerFault::ZeroSize))
+        }
+        LayerKind::ClippedRelu { ceiling: 0 } => Err(lf(index, LayerFault::ZeroSize)),
+        _ => Ok(LayerGeometry {
+            input,
+            output: input,
+            weights: 0,
+            biases: 0,
+            macs: 0,
+        }),
+    }
+}
+
+/// Shapes of every layer, checked, and of the output; also checks the loss against the output.
+///
+/// # Errors
+/// [`Error::EmptyModel`], [`Error::TooManyLayers`], or the first [`Error::Layer`] fault.
+pub const fn shapes(input: Shape, layers: &[LayerDesc], loss: Loss) -> Result<Shapes, Error> {
+    if layers.is_empty() {
+        return Err(Error::EmptyModel);
+    }
+    if layers.len() > MAX_LAYERS {
+        return Err(Error::TooManyLayers);
+    }
+    let mut out = Shapes {
+        layers: [EMPTY_GEOMETRY; MAX_LAYERS],
+        count: layers.len(),
+        output: input,
+    };
+    let mut shape = input;
+    let mut i = 0;
+    while i < layers.len() {
+        let g = match layer_geometry(i, shape, &layers[i]) {
+            Ok(g) => g,
+            Err(e) => return Err(e),
+        };
+        out.layers[i] = g;
+        shape = g.output;
+        i += 1;
+    }
+    out.output = shape;
+    if matches!(loss, Loss::SoftmaxCrossEntropy) && shape.size() < 2 {
+        return Err(Error::Layer {
+            layer: (layers.len() - 1) as u8,
+            fault: LayerFault::LossOutput,
+        });
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn q(word: Word, frac: u8) -> QFormat {
+        QFormat::new(word, frac).unwrap()
+    }
+
+    fn dense(units: u16) -> LayerDesc {
+        let p = ParamFormats::plain(q(Word::I16, 12), 20);
+        LayerDesc {
+            kind: LayerKind::Dense { units },
+            mode: TrainMode::Full,
+            weight: p,
+            bias: p,
+            out: q(Word::I16, 10),
+            grad: q(Word::I16, 12),
+        }
+    }
+
+    #[test]
+    fn conv_pool_dense_shapes() {
+        let conv = LayerDesc {
+            kind: LayerKind::Conv1d {
+                filters: 4,
+                kernel: 5,
+                stride: 2,
+            },
+            ..dense(1)
+        };
+        let act = q(Word::I16, 10);
+        let layers = [
+            conv,
+            LayerDesc::simple(LayerKind::Relu, act, act),
+            LayerDesc::simple(
+                LayerKind::MaxPool1d {
+                    window: 2,
+                    stride: 2,
+                },
+                act,
+                act,
+            ),
+            dense(3),
+        ];
+        let s = shapes(
+            Shape {
+                channels: 3,
+                len: 64,
+            },
+            &layers,
+            Loss::SoftmaxCrossEntropy,
+        )
+        .unwrap();
+        // (64 − 5)/2 + 1 = 30 samples, then (30 − 2)/2 + 1 = 15.
+        assert_eq!(
+            s.layers[0].output,
+            Shape {
+                channels: 4,
+                len: 30
+            }
+        );
+        assert_eq!(s.layers[0].weights, 4 * 3 * 5);
+        assert_eq!(s.layers[0].macs, 4 * 3 * 5 * 30);
+        assert_eq!(
+            s.layers[2].output,
+            Shape {
+                channels: 4,
+                len: 15
+            }
+        );
+        assert_eq!(s.layers[3].weights, 60 * 3);
+        assert_eq!(s.output, Shape::vector(3));
+    }
+
+    #[test]
+    fn faults_are_named() {
+        let act = q(Word::I16, 10);
+        let e = shapes(Shape::vector(4), &[], Loss::SquaredError);
+        assert_eq!(e.err(), Some(Error::EmptyModel));
+        let e = shapes(Shape::vector(4), &[dense(0)], Loss::SquaredError);
+        assert_eq!(
+            e.err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::ZeroSize
+            })
+        );
+        let pool = LayerDesc::simple(
+            LayerKind::AvgPool1d {
+                window: 5,
+                stride: 1,
+            },
+            act,
+            act,
+        );
+        let e = shapes(
+            Shape {
+                channels: 1,
+                len: 4,
+            },
+            &[pool],
+            Loss::SquaredError,
+        );
+        assert_eq!(
+            e.err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::WindowTooLong
+            })
+        );
+        let relu = LayerDesc::simple(LayerKind::Relu, act, act).with_mode(TrainMode::Full);
+        let e = shapes(Shape::vector(4), &[relu], Loss::SquaredError);
+        assert_eq!(
+            e.err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::ModeWithoutParams
+            })
+        );
+        let e = shapes(Shape::vector(4), &[dense(1)], Loss::SoftmaxCrossEntropy);
+        assert_eq!(
+            e.err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::LossOutput
+            })
+        );
+        let mut bad = dense(2);
+        bad.out.frac = 40;
+        let e = shapes(Shape::vector(4), &[bad], Loss::SquaredError);
+        assert_eq!(
+            e.err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::Format
+            })
+        );
+        let e = shapes(
+            Shape::vector(u16::MAX),
+            &[dense(u16::MAX)],
+            Loss::SquaredError,
+        );
+        assert_eq!(
+            e.err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::TooLarge
+            })
+        );
+    }
+
+    #[test]
+    fn training_checks() {
+        let lr = QScalar::from_f64(0.01, 16).unwrap();
+        let mut t = TrainDesc::sgd(lr);
+        assert!(t.check().is_ok());
+        t.batch = 0;
+        assert_eq!(t.check(), Err(Error::InvalidTraining));
+        t.batch = 4;
+        t.momentum = QScalar {
+            raw: 1 << 15,
+            frac: 15,
+        };
+        assert_eq!(t.check(), Err(Error::InvalidTraining));
+        t.momentum = QScalar {
+            raw: 29491,
+            frac: 15,
+        };
+        assert!(t.check().is_ok());
+        t.lr = QScalar { raw: -1, frac: 16 };
+        assert_eq!(t.check(), Err(Error::InvalidTraining));
+    }
+
+    #[test]
+    fn too_many_layers() {
+        let act = q(Word::I16, 10);
+        let l = LayerDesc::simple(LayerKind::Relu, act, act);
+        let layers = [l; MAX_LAYERS + 1];
+        let lr = QScalar::from_f64(0.01, 16).unwrap();
+        let e = ModelDesc::new(
+            Shape::vector(2),
+            &layers,
+            Loss::SquaredError,
+            TrainDesc::sgd(lr),
+        );
+        assert_eq!(e.err(), Some(Error::TooManyLayers));
+    }
+}

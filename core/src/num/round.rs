@@ -1,0 +1,348 @@
+//! Named rounding and requantization.
+//!
+//! Every change of scale in the engine goes through this module, and every call names its
+//! [`Rounding`]:
+//!
+//! - [`Rounding::NearestEven`]: to the nearest representable value, ties to the even one.
+//!   Unbiased on average for ties, the common default of IEEE 754.
+//! - [`Rounding::TowardZero`]: drops the discarded bits of the magnitude (truncation of the
+//!   magnitude). Biased toward zero; cheap.
+//! - [`Rounding::Stochastic`]: rounds up with probability equal to the discarded fraction, as
+//!   defined by Gupta, Agrawal, Gopalakrishnan and Narayanan, "Deep Learning with Limited
+//!   Numerical Precision" (ICML 2015), eq. 3: `round(x) = ⌊x⌋ + 1` with probability
+//!   `(x − ⌊x⌋)/ε`, else `⌊x⌋`. Its expectation is exactly `x`. The random draw comes from the
+//!   core's seeded [`Rng`]: one draw for every rounding that drops fraction bits, whether the
+//!   dropped bits are zero or not, so the stream of draws does not depend on the data beyond
+//!   the formats. Host and device draw the same stream from the same seed.
+//!
+//! Wide intermediate values are `i64`. Shifts are at most 62 because formats have at most
+//! [`MAX_FRAC`](super::format::MAX_FRAC) = 31 fraction bits and products add two of them.
+
+use serde::{Deserialize, Serialize};
+
+use super::format::QFormat;
+#[cfg(test)]
+use super::format::Word;
+use super::rng::Rng;
+
+/// How a value that falls between two representable values is rounded.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum Rounding {
+    /// Nearest, ties to even.
+    NearestEven,
+    /// Toward zero (truncate the magnitude).
+    TowardZero,
+    /// Stochastic rounding (Gupta et al. 2015): up with probability equal to the remainder.
+    Stochastic,
+}
+
+/// The rounding used for each role a tensor can play in training.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct RoundingPlan {
+    /// Forward activations (layer outputs).
+    pub activations: Rounding,
+    /// Backward gradients: the gradient propagated to each layer's input, and the weight
+    /// gradients added into the accumulators.
+    pub gradients: Rounding,
+    /// Weight updates: learning-rate scaling, momentum, weight decay, and writing the update
+    /// into the weights (or master weights).
+    pub updates: Rounding,
+}
+
+impl RoundingPlan {
+    /// Nearest-even everywhere.
+    pub const NEAREST: RoundingPlan = RoundingPlan {
+        activations: Rounding::NearestEven,
+        gradients: Rounding::NearestEven,
+        updates: Rounding::NearestEven,
+    };
+}
+
+/// `v / 2^shift` rounded by `mode`, exact for every `i64`. Shifts above 63 are treated as 63
+/// (formats keep shifts at 62 or less).
+#[inline]
+pub fn shift_right(v: i64, shift: u32, mode: Rounding, rng: &mut Rng) -> i64 {
+    if shift == 0 {
+        return v;
+    }
+    let shift = shift.min(63);
+    let q = v >> shift; // floor
+    let mask = (1u64 << shift) - 1;
+    let r = (v as u64) & mask; // v − q·2^shift, in [0, 2^shift)
+    match mode {
+        Rounding::NearestEven => {
+            let half = 1u64 << (shift - 1);
+            if r > half || (r == half && (q & 1) != 0) {
+                q + 1
+            } else {
+                q
+            }
+        }
+        Rounding::TowardZero => {
+            if v < 0 && r != 0 {
+                q + 1
+            } else {
+                q
+            }
+        }
+        Rounding::Stochastic => {
+            let u = rng.bits(shift);
+            if u < r {
+                q + 1
+            } else {
+                q
+            }
+        }
+    }
+}
+
+/// `v · 2^shift`, saturated to the `i64` range. Returns the value and whether it saturated.
+#[inline]
+pub fn shift_left_saturating(v: i64, shift: u32) -> (i64, bool) {
+    if v == 0 || shift == 0 {
+        return (v, false);
+    }
+    if shift >= 63 {
+        return (if v < 0 { i64::MIN } else { i64::MAX }, true);
+    }
+    let limit = i64::MAX >> shift;
+    if v > limit {
+        (i64::MAX, true)
+    } else if v < -limit - 1 {
+        (i64::MIN, true)
+    } else {
+        (v << shift, false)
+    }
+}
+
+/// `num / den` rounded by `mode`, for `den ≥ 1`. Returns `num` unchanged for `den ≤ 1`.
+///
+/// The stochastic case draws one uniform integer in `0..den` per call.
+pub fn div_round(num: i64, den: i64, mode: Rounding, rng: &mut Rng) -> i64 {
+    if den <= 1 {
+        return num;
+    }
+    if den & (den - 1) == 0 {
+        return shift_right(num, den.trailing_zeros(), mode, rng);
+    }
+    let q = num.div_euclid(den); // floor for den > 0
+    let r = num.rem_euclid(den); // in [0, den)
+    match mode {
+        Rounding::NearestEven => {
+            let twice = 2 * r as i128;
+            if twice > den as i128 || (twice == den as i128 && (q & 1) != 0) {
+                q + 1
+            } else {
+                q
+            }
+        }
+        Rounding::TowardZero => {
+            if num < 0 && r != 0 {
+                q + 1
+            } else {
+                q
+            }
+        }
+        Rounding::Stochastic => {
+            if (rng.below(den as u64) as i64) < r {
+                q + 1
+            } else {
+                q
+            }
+        }
+    }
+}
+
+/// A value with `from_frac` fraction bits, rescaled to `to_frac` fraction bits: rounded by
+/// `mode` when fraction bits are dropped, saturated to `i64` when they are added. Returns the
+/// value and whether the left shift saturated.
+#[inline]
+pub fn rescale(v: i64, from_frac: u32, to_frac: u32, mode: Rounding, rng: &mut Rng) -> (i64, bool) {
+    if from_frac >= to_frac {
+        (shift_right(v, from_frac - to_frac, mode, rng), false)
+    } else {
+        shift_left_saturating(v, to_frac - from_frac)
+    }
+}
+
+/// Requantizes a wide value with `from_frac` fraction bits into format `to`: rescale with
+/// `mode`, then saturate to the word. Returns the raw value and whether it saturated.
+#[inline]
+pub fn requantize(
+    v: i64,
+    from_frac: u32,
+    to: QFormat,
+    mode: Rounding,
+    rng: &mut Rng,
+) -> (i32, bool) {
+    let (r, sat_shift) = rescale(v, from_frac, to.frac as u32, mode, rng);
+    let (out, sat_word) = to.word.saturate(r);
+    (out, sat_shift || sat_word)
+}
+
+/// Requantizes `v / den` (a value with `from_frac` fraction bits divided by a positive whole
+/// number, such as a pooling window) into format `to`, with a single rounding by `mode`.
+/// Returns the raw value and whether it saturated. `den ≤ 1` is plain [`requantize`].
+///
+/// Exact for every shift the engine produces (`from_frac − to.frac ≤ 31` with `den < 2^16`);
+/// beyond that the divisor is clamped to `i64::MAX`, where every quotient is below one step.
+pub fn requantize_div(
+    v: i64,
+    from_frac: u32,
+    den: u32,
+    to: QFormat,
+    mode: Rounding,
+    rng: &mut Rng,
+) -> (i32, bool) {
+    if den <= 1 {
+        return requantize(v, from_frac, to, mode, rng);
+    }
+    let to_frac = to.frac as u32;
+    let (q, sat_shift) = if to_frac >= from_frac {
+        let (num, sat) = shift_left_saturating(v, to_frac - from_frac);
+        (div_round(num, den as i64, mode, rng), sat)
+    } else {
+        let shift = from_frac - to_frac;
+        let wide = (den as u128) << shift.min(100);
+        let d = if wide > i64::MAX as u128 {
+            i64::MAX
+        } else {
+            wide as i64
+        };
+        (div_round(v, d, mode, rng), false)
+    };
+    let (out, sat_word) = to.word.saturate(q);
+    (out, sat_shift || sat_word)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn exact_floor_div_pow2(v: i64, s: u32) -> i128 {
+        (v as i128).div_euclid(1i128 << s)
+    }
+
+    #[test]
+    fn nearest_even_ties() {
+        let mut r = Rng::new(0);
+        let m = Rounding::NearestEven;
+        // 2.5 -> 2, 3.5 -> 4, -2.5 -> -2, -3.5 -> -4 (shift 1 of 5, 7, -5, -7).
+        assert_eq!(shift_right(5, 1, m, &mut r), 2);
+        assert_eq!(shift_right(7, 1, m, &mut r), 4);
+        assert_eq!(shift_right(-5, 1, m, &mut r), -2);
+        assert_eq!(shift_right(-7, 1, m, &mut r), -4);
+        // Just above and below a tie.
+        assert_eq!(shift_right(9, 2, m, &mut r), 2); // 2.25
+        assert_eq!(shift_right(11, 2, m, &mut r), 3); // 2.75
+        assert_eq!(shift_right(i64::MIN, 62, m, &mut r), -2);
+        assert_eq!(shift_right(i64::MAX, 62, m, &mut r), 2);
+    }
+
+    #[test]
+    fn toward_zero() {
+        let mut r = Rng::new(0);
+        let m = Rounding::TowardZero;
+        assert_eq!(shift_right(7, 1, m, &mut r), 3);
+        assert_eq!(shift_right(-7, 1, m, &mut r), -3);
+        assert_eq!(shift_right(-8, 1, m, &mut r), -4);
+        assert_eq!(div_round(-7, 3, m, &mut r), -2);
+        assert_eq!(div_round(7, 3, m, &mut r), 2);
+    }
+
+    #[test]
+    fn stochastic_stays_between_neighbours() {
+        let mut r = Rng::new(3);
+        for v in [-1001i64, -1, 0, 1, 999, i64::MAX, i64::MIN] {
+            for s in [1, 5, 31, 40, 62] {
+                let got = shift_right(v, s, Rounding::Stochastic, &mut r) as i128;
+                let lo = exact_floor_div_pow2(v, s);
+                assert!(got == lo || got == lo + 1, "{v} >> {s} gave {got}");
+            }
+        }
+        // Exact values are never moved.
+        assert_eq!(shift_right(64, 3, Rounding::Stochastic, &mut r), 8);
+        assert_eq!(div_round(-30, 3, Rounding::Stochastic, &mut r), -10);
+    }
+
+    #[test]
+    fn div_round_nearest_even() {
+        let mut r = Rng::new(0);
+        let m = Rounding::NearestEven;
+        assert_eq!(div_round(5, 2, m, &mut r), 2);
+        assert_eq!(div_round(15, 6, m, &mut r), 2); // 2.5 -> 2
+        assert_eq!(div_round(21, 6, m, &mut r), 4); // 3.5 -> 4
+        assert_eq!(div_round(-21, 6, m, &mut r), -4);
+        assert_eq!(div_round(-15, 6, m, &mut r), -2);
+        assert_eq!(div_round(10, 3, m, &mut r), 3);
+        assert_eq!(div_round(11, 3, m, &mut r), 4);
+        assert_eq!(div_round(i64::MIN, 3, m, &mut r), -3074457345618258603);
+    }
+
+    #[test]
+    fn left_shift_saturates() {
+        assert_eq!(shift_left_saturating(1, 62), (1 << 62, false));
+        assert_eq!(shift_left_saturating(2, 62), (i64::MAX, true));
+        assert_eq!(shift_left_saturating(-2, 62), (i64::MIN, false));
+        assert_eq!(shift_left_saturating(-3, 62), (i64::MIN, true));
+        assert_eq!(shift_left_saturating(-1, 70), (i64::MIN, true));
+    }
+
+    #[test]
+    fn requantize_div_rounds_once() {
+        let mut r = Rng::new(0);
+        let q = QFormat::new(Word::I16, 4).unwrap();
+        // (5 + 6 + 6) / 3 = 17/3 = 5.667 at frac 0 -> frac 4: 90.67 -> 91.
+        assert_eq!(
+            requantize_div(17, 0, 3, q, Rounding::NearestEven, &mut r),
+            (91, false)
+        );
+        // From more fraction bits: 17 at frac 8 / 3 = 0.02213 -> frac 4: 0.354 steps -> 0.
+        assert_eq!(
+            requantize_div(17, 8, 3, q, Rounding::NearestEven, &mut r),
+            (0, false)
+        );
+        // 24 at frac 8 / 3 = 8 at frac 8 = 0.5 step at frac 4 -> tie to even 0.
+        assert_eq!(
+            requantize_div(24, 8, 3, q, Rounding::NearestEven, &mut r),
+            (0, false)
+        );
+        assert_eq!(
+            requantize_div(72, 8, 3, q, Rounding::NearestEven, &mut r),
+            (2, false)
+        ); // 1.5 -> 2
+        assert_eq!(
+            requantize_div(i64::MAX, 0, 2, q, Rounding::NearestEven, &mut r),
+            (32767, true)
+        );
+    }
+
+    #[test]
+    fn requantize_saturates_and_says_so() {
+        let mut r = Rng::new(0);
+        let q = QFormat::Q0_7;
+        // 1.0 with 8 fraction bits (256) into Q0.7: 128 does not fit.
+        assert_eq!(
+            requantize(256, 8, q, Rounding::NearestEven, &mut r),
+            (127, true)
+        );
+        assert_eq!(
+            requantize(-256, 8, q, Rounding::NearestEven, &mut r),
+            (-128, false)
+        );
+        assert_eq!(
+            requantize(-258, 8, q, Rounding::NearestEven, &mut r),
+            (-128, true)
+        );
+        assert_eq!(
+            requantize(3, 0, q, Rounding::NearestEven, &mut r),
+            (127, true)
+        );
+        assert_eq!(
+            requantize(1, 30, q, Rounding::NearestEven, &mut r),
+            (0, false)
+        );
+    }
+}

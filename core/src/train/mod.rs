@@ -1,0 +1,844 @@
+//! Fixed-point training: the [`Trainer`] runs forward, loss, backward and SGD updates over a
+//! caller-owned arena laid out by the [`Plan`].
+//!
+//! One call to [`Trainer::step`] takes one sample: forward through every layer, the loss and
+//! its gradient, backward down to the first trainable layer, and gradient accumulation. Every
+//! `batch` samples the accumulated gradients are applied ([`sgd`]) and, with dynamic fixed
+//! point on, the fraction bits of activations, gradients and accumulators are adjusted
+//! ([`dynamic`]).
+
+pub mod dynamic;
+pub mod sgd;
+
+use crate::error::{Error, ParamTensor};
+use crate::kernel::Tally;
+use crate::layer::loss::{self, LossValue, Target};
+use crate::layer::{self, BackOut, BackTally, Params, Rounder, Tensor, TensorMut};
+use crate::model::{LayerDesc, Loss, ModelDesc, MAX_LAYERS};
+use crate::num::round::{rescale, Rounding};
+use crate::num::{QFormat, Raw, RawMut, Rng};
+use crate::plan::{reads_input, split_disjoint, Plan, Slot};
+
+/// Initial parameters of one layer, borrowed. Frozen tensors are used in place for the whole
+/// life of the trainer (on a device: `&'static` data in flash); trainable ones are copied into
+/// the arena. Layers without parameters take [`LayerParams::NONE`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct LayerParams<'a> {
+    /// Weights, in the layer's weight value format.
+    pub weight: Raw<'a>,
+    /// Bias, in the layer's bias value format.
+    pub bias: Raw<'a>,
+}
+
+impl LayerParams<'static> {
+    /// No parameters.
+    pub const NONE: LayerParams<'static> = LayerParams {
+        weight: Raw::EMPTY,
+        bias: Raw::EMPTY,
+    };
+}
+
+/// The fraction bits that can move during training (dynamic fixed point).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct LiveFracs {
+    /// Output activations.
+    pub out: u8,
+    /// Loss gradient of the output.
+    pub grad: u8,
+    /// Weight-gradient accumulator (and weight momentum).
+    pub accum_weight: u8,
+    /// Bias-gradient accumulator (and bias momentum).
+    pub accum_bias: u8,
+}
+
+/// What happened to each tensor of one layer.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct LayerStats {
+    /// Writes of output activations.
+    pub out: Tally,
+    /// Writes of the loss gradient of the output.
+    pub grad: Tally,
+    /// Updates of the weights (or master weights): saturations and lost updates.
+    pub weight: Tally,
+    /// Updates of the bias.
+    pub bias: Tally,
+    /// Adds into the weight-gradient accumulator and writes of the weight momentum.
+    pub accum_weight: Tally,
+    /// Adds into the bias-gradient accumulator and writes of the bias momentum.
+    pub accum_bias: Tally,
+}
+
+/// The result of one training step.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct StepOutcome {
+    /// Loss of the sample, before the update.
+    pub loss: LossValue,
+    /// For classification, the predicted class.
+    pub predicted: Option<u16>,
+    /// Whether this step completed a batch and the weights changed.
+    pub updated: bool,
+    /// Activations that saturated in this sample's forward pass.
+    pub saturations: u32,
+}
+
+/// Fixed-point trainer over a caller-owned arena. See the [module docs](self).
+pub struct Trainer<'a> {
+    desc: &'a ModelDesc,
+    plan: &'a Plan,
+    arena: &'a mut [u32],
+    flash: [LayerParams<'a>; MAX_LAYERS],
+    live: [LiveFracs; MAX_LAYERS],
+    rng: Rng,
+    in_batch: u16,
+    steps: u32,
+    updates: u32,
+    stats: [LayerStats; MAX_LAYERS],
+    marks: [LayerStats; MAX_LAYERS],
+}
+
+/// Cuts disjoint mutable pieces out of the arena, one per slot (see [`split_disjoint`]).
+fn carve<'b, const N: usize>(arena: &'b mut [u32], slots: [Slot; N]) -> [&'b mut [u32]; N] {
+    split_disjoint(
+        arena,
+        slots.map(|s| {
+            if s.is_some() {
+                (s.first_word(), s.words())
+            } else {
+                (0, 0)
+            }
+        }),
+    )
+}
+
+fn view_mut(words: &mut [u32], fmt: QFormat, elems: u32) -> TensorMut<'_> {
+    let raw = RawMut::from_words(words, fmt.word, elems as usize).unwrap_or(RawMut::I8(&mut []));
+    TensorMut { raw, fmt }
+}
+
+fn fmt_frac(f: QFormat, frac: u8) -> QFormat {
+    QFormat { word: f.word, frac }
+}
+
+impl<'a> Trainer<'a> {
+    /// A trainer for `desc`, working in `arena` as laid out by `plan`, starting from `init`
+    /// (one entry per layer).
+    ///
+    /// # Errors
+    /// [`Error::PlanMismatch`] if `plan` is not the plan of `desc`; [`Error::ArenaTooSmall`];
+    /// [`Error::Params`] if an initial tensor has the wrong word or length; the description's
+    /// own errors.
+    pub fn new(
+        desc: &'a ModelDesc,
+        plan: &'a Plan,
+        arena: &'a mut [u32],
+        init: &[LayerParams<'a>],
+    ) -> Result<Trainer<'a>, Error> {
+        desc.check()?;
+        if Plan::of(desc)? != *plan {
+            return Err(Error::PlanMismatch);
+        }
+        if arena.len() < plan.ram_words() {
+            return Err(Error::ArenaTooSmall {
+                needed: plan.ram_bytes,
+                found: (arena.len() * 4) as u32,
+            });
+        }
+        let n = desc.layers.len();
+        if init.len() != n {
+            return Err(Error::Params {
+                layer: init.len().min(n) as u8,
+                tensor: ParamTensor::Weight,
+                expected: n as u32,
+                found: init.len() as u32,
+            });
+        }
+        let mut flash = [LayerParams::NONE; MAX_LAYERS];
+        let mut live = [LiveFracs::default(); MAX_LAYERS];
+        for (k, (l, p)) in desc.layers.iter().zip(init.iter()).enumerate() {
+            let g = &plan.shapes.layers[k];
+            live[k] = LiveFracs {
+                out: l.out.frac,
+                grad: l.grad.frac,
+                accum_weight: l.weight.accum.frac,
+                accum_bias: l.bias.accum.frac,
+            };
+            if !l.kind.has_params() {
+                continue;
+            }
+            check_param(k, ParamTensor::Weight, p.weight, l.weight.value, g.weights)?;
+            check_param(k, ParamTensor::Bias, p.bias, l.bias.value, g.biases)?;
+            flash[k] = *p;
+        }
+        let mut t = Trainer {
+            desc,
+            plan,
+            arena,
+            flash,
+            live,
+            rng: Rng::new(desc.train.seed),
+            in_batch: 0,
+            steps: 0,
+            updates: 0,
+            stats: [LayerStats::default(); MAX_LAYERS],
+            marks: [LayerStats::default(); MAX_LAYERS],
+        };
+        t.load(init)?;
+        Ok(t)
+    }
+
+    /// Replaces the trainable parameters with `params` (one entry per layer), and clears the
+    /// accumulators, momentum and the partial batch. Frozen tensors stay as they were given
+    /// at construction. Used to roll back to a last good model.
+    ///
+    /// # Errors
+    /// [`Error::Params`] if a tensor has the wrong word or length.
+    pub fn load(&mut self, params: &[LayerParams<'_>]) -> Result<(), Error> {
+        let n = self.desc.layers.len();
+        if params.len() != n {
+            return Err(Error::Params {
+                layer: 0,
+                tensor: ParamTensor::Weight,
+                expected: n as u32,
+                found: params.len() as u32,
+            });
+        }
+        for (k, (l, p)) in self.desc.layers.iter().zip(params.iter()).enumerate() {
+            if !l.kind.has_params() {
+                continue;
+            }
+            let g = &self.plan.shapes.layers[k];
+            check_param(k, ParamTensor::Weight, p.weight, l.weight.value, g.weights)?;
+            check_param(k, ParamTensor::Bias, p.bias, l.bias.value, g.biases)?;
+            let s = &self.plan.layers[k];
+            let [w, b, mw, mb, aw, ab, vw, vb] = carve(
+                self.arena,
+                [
+                    s.weight,
+                    s.bias,
+                    s.master_weight,
+                    s.master_bias,
+                    s.accum_weight,
+                    s.accum_bias,
+                    s.momentum_weight,
+                    s.momentum_bias,
+                ],
+            );
+            let mut w = view_mut(w, l.weight.value, s.weight.elems);
+            let mut b = view_mut(b, l.bias.value, s.bias.elems);
+            if s.weight.is_some() {
+                w.raw.copy_from(p.weight);
+            }
+            if s.bias.is_some() {
+                b.raw.copy_from(p.bias);
+            }
+            for (m, src, f) in [(mw, &w, l.weight.master), (mb, &b, l.bias.master)] {
+                if let Some(f) = f {
+                    let len = src.raw.len() as u32;
+                    let mut m = view_mut(m, f, len);
+                    for i in 0..len as usize {
+                        // Widening into the master: exact when the master has at least the
+                        // value's fraction bits (the usual case), else rounded to nearest.
+                        let (v, _) = crate::num::round::requantize(
+                            src.raw.at(i) as i64,
+                            src.frac(),
+                            f,
+                            Rounding::NearestEven,
+                            &mut self.rng,
+                        );
+                        m.raw.put(i, v);
+                    }
+                }
+            }
+            for buf in [aw, ab, vw, vb] {
+                buf.fill(0);
+            }
+        }
+        self.in_batch = 0;
+        Ok(())
+    }
+
+    /// The model description.
+    pub fn desc(&self) -> &ModelDesc {
+        self.desc
+    }
+
+    /// The memory plan.
+    pub fn plan(&self) -> &Plan {
+        self.plan
+    }
+
+    /// Samples stepped so far.
+    pub fn steps(&self) -> u32 {
+        self.steps
+    }
+
+    /// Weight updates applied so far.
+    pub fn updates(&self) -> u32 {
+        self.updates
+    }
+
+    /// Samples accumulated toward the next update.
+    pub fn pending(&self) -> u16 {
+        self.in_batch
+    }
+
+    /// The generator's state (for checkpoints and for host/device comparisons).
+    pub fn rng(&self) -> Rng {
+        self.rng
+    }
+
+    /// Cumulative statistics of layer `k`.
+    pub fn stats(&self, k: usize) -> Option<&LayerStats> {
+        self.stats.get(k).filter(|_| k < self.desc.layers.len())
+    }
+
+    /// The current fraction bits of layer `k`'s moving tensors.
+    pub fn live_fracs(&self, k: usize) -> Option<LiveFracs> {
+        self.live
+            .get(k)
+            .copied()
+            .filter(|_| k < self.desc.layers.len())
+    }
+
+    /// The current parameters of layer `k`: from the arena where they train, else the
+    /// initial ones. `None` for layers without parameters or past the end.
+    pub fn params(&self, k: usize) -> Option<LayerParams<'_>> {
+        let l = self.desc.layers.get(k)?;
+        if !l.kind.has_params() {
+            return None;
+        }
+        let s = &self.plan.layers[k];
+        let pick = |slot: Slot, word, init: Raw<'a>| -> Raw<'_> {
+            if slot.is_some() {
+                raw_view(self.arena, slot, word)
+            } else {
+                init
+            }
+        };
+        let f = self.flash[k];
+        Some(LayerParams {
+            weight: pick(s.weight, l.weight.value.word, f.weight),
+            bias: pick(s.bias, l.bias.value.word, f.bias),
+        })
+    }
+
+    /// One training step on one sample: forward, loss, backward, accumulate; applies the
+    /// update when the batch is complete.
+    ///
+    /// # Errors
+    /// [`Error::InputLength`], [`Error::TargetLength`], [`Error::TargetKind`] or
+    /// [`Error::LabelOutOfRange`] for a sample that does not fit the model.
+    pub fn step(&mut self, x: Tensor<'_>, target: Target<'_>) -> Result<StepOutcome, Error> {
+        self.check_sample(x, target)?;
+        let n = self.desc.layers.len();
+        let mut rng = self.rng;
+        let saturations = self.forward(x, &mut rng, true);
+        let (loss, predicted) = self.loss(target, &mut rng, self.plan.trains());
+        if self.plan.trains() {
+            for k in (self.plan.first_trainable..n).rev() {
+                self.backward(k, x, &mut rng);
+            }
+        }
+        self.rng = rng;
+        self.steps = self.steps.saturating_add(1);
+        let mut updated = false;
+        if self.plan.trains() {
+            self.in_batch += 1;
+            if self.in_batch >= self.desc.train.batch {
+                self.apply_update();
+                updated = true;
+            }
+        }
+        Ok(StepOutcome {
+            loss,
+            predicted,
+            updated,
+            saturations,
+        })
+    }
+
+    /// Applies a partial batch now (dividing by the samples it holds), for example at the end
+    /// of an epoch. Does nothing if no sample is pending. Returns whether it updated.
+    pub fn flush(&mut self) -> bool {
+        if self.in_batch == 0 || !self.plan.trains() {
+            return false;
+        }
+        self.apply_update();
+        true
+    }
+
+    /// Loss of one sample under the current weights, without training. Uses a copy of the
+    /// generator, so evaluating does not change the training's random stream.
+    ///
+    /// # Errors
+    /// As [`Trainer::step`].
+    pub fn evaluate(&mut self, x: Tensor<'_>, target: Target<'_>) -> Result<StepOutcome, Error> {
+        self.check_sample(x, target)?;
+        let mut rng = self.rng;
+        let saturations = self.forward(x, &mut rng, false);
+        let (loss, predicted) = self.loss(target, &mut rng, false);
+        Ok(StepOutcome {
+            loss,
+            predicted,
+            updated: false,
+            saturations,
+        })
+    }
+
+    /// Runs forward only and returns the output. Like [`Trainer::evaluate`], it uses a copy
+    /// of the generator.
+    ///
+    /// # Errors
+    /// [`Error::InputLength`].
+    pub fn predict(&mut self, x: Tensor<'_>) -> Result<Tensor<'_>, Error> {
+        self.check_input(x)?;
+        let mut rng = self.rng;
+        self.forward(x, &mut rng, false);
+        Ok(self.output())
+    }
+
+    /// The output of the last forward pass.
+    pub fn output(&self) -> Tensor<'_> {
+        let last = self.desc.layers.len() - 1;
+        self.act_view(last)
+    }
+
+    fn check_input(&self, x: Tensor<'_>) -> Result<(), Error> {
+        let expected = self.desc.input.size();
+        if x.raw.len() != expected as usize {
+            return Err(Error::InputLength {
+                expected,
+                found: x.raw.len() as u32,
+            });
+        }
+        Ok(())
+    }
+
+    fn check_sample(&self, x: Tensor<'_>, target: Target<'_>) -> Result<(), Error> {
+        self.check_input(x)?;
+        let outputs = self.plan.shapes.output.size();
+        match (self.desc.loss, target) {
+            (Loss::SquaredError, Target::Values(t)) => {
+                if t.raw.len() != outputs as usize {
+                    return Err(Error::TargetLength {
+                        expected: outputs,
+                        found: t.raw.len() as u32,
+                    });
+                }
+            }
+            (Loss::SoftmaxCrossEntropy, Target::Class(c)) => {
+                if c as u32 >= outputs {
+                    return Err(Error::LabelOutOfRange {
+                        label: c as u32,
+                        classes: outputs,
+                    });
+                }
+            }
+            _ => return Err(Error::TargetKind),
+        }
+        Ok(())
+    }
+
+    fn layer(&self, k: usize) -> &LayerDesc {
+        &self.desc.layers[k]
+    }
+
+    fn out_fmt(&self, k: usize) -> QFormat {
+        fmt_frac(self.layer(k).out, self.live[k].out)
+    }
+
+    fn grad_fmt(&self, k: usize) -> QFormat {
+        fmt_frac(self.layer(k).grad, self.live[k].grad)
+    }
+
+    fn act_view(&self, k: usize) -> Tensor<'_> {
+        let fmt = self.out_fmt(k);
+        let slot = self.plan.output_slot(k);
+        let elems = self.plan.shapes.layers[k].output.size();
+        Tensor {
+            raw: raw_view(
+                self.arena,
+                Slot {
+                    elems,
+                    word: fmt.word,
+                    ..slot
+                },
+                fmt.word,
+            ),
+            fmt,
+        }
+    }
+
+    /// Forward through every layer; with `count`, the writes are counted in the statistics.
+    /// Returns the number of saturated activations.
+    fn forward(&mut self, x: Tensor<'_>, rng: &mut Rng, count: bool) -> u32 {
+        let mut saturations = 0u32;
+        let n = self.desc.layers.len();
+        let mode = self.desc.train.rounding.activations;
+        for k in 0..n {
+            let l = *self.layer(k);
+            let g = self.plan.shapes.layers[k];
+            let s = self.plan.layers[k];
+            let in_slot = if k == 0 {
+                Slot::NONE
+            } else {
+                self.plan.output_slot(k - 1)
+            };
+            let in_fmt = if k == 0 { x.fmt } else { self.out_fmt(k - 1) };
+            let out_fmt = self.out_fmt(k);
+            let out_slot = self.plan.output_slot(k);
+            let f = self.flash[k];
+            let [w, b, xin, y] = carve(self.arena, [s.weight, s.bias, in_slot, out_slot]);
+            let w = param_view(w, s.weight, l.weight.value, f.weight);
+            let b = param_view(b, s.bias, l.bias.value, f.bias);
+            let xin = if k == 0 {
+                x
+            } else {
+                view_mut_ro(xin, in_fmt, g.input.size())
+            };
+            let mut y = view_mut(y, out_fmt, g.output.size());
+            let mut tally = Tally::default();
+            layer::forward(
+                l.kind,
+                &g,
+                Params { w, b },
+                xin,
+                &mut y,
+                &mut Rounder { mode, rng },
+                &mut tally,
+            );
+            saturations = saturations.saturating_add(tally.saturations);
+            if count {
+                self.stats[k].out.merge(&tally);
+            }
+        }
+        saturations
+    }
+
+    /// Loss of the last output against `target`; with `grad`, writes the loss gradient and
+    /// counts it.
+    fn loss(&mut self, target: Target<'_>, rng: &mut Rng, grad: bool) -> (LossValue, Option<u16>) {
+        let last = self.desc.layers.len() - 1;
+        let n = self.plan.shapes.output.size() as usize;
+        let out_fmt = self.out_fmt(last);
+        let g_fmt = self.grad_fmt(last);
+        let mode = self.desc.train.rounding.gradients;
+        let [y, gy] = carve(
+            self.arena,
+            [
+                self.plan.output_slot(last),
+                if grad {
+                    self.plan.grad_slot(last)
+                } else {
+                    Slot::NONE
+                },
+            ],
+        );
+        let y = view_mut_ro(y, out_fmt, n as u32);
+        let mut gy = view_mut(gy, g_fmt, n as u32);
+        let gy = if grad { Some(&mut gy) } else { None };
+        let mut tally = Tally::default();
+        let mut r = Rounder { mode, rng };
+        let out = match target {
+            Target::Values(t) => (loss::squared_error(y, t, n, gy, &mut r, &mut tally), None),
+            Target::Class(c) => {
+                let p = loss::argmax(y, n) as u16;
+                (
+                    loss::softmax_cross_entropy(y, c as usize, n, gy, &mut r, &mut tally),
+                    Some(p),
+                )
+            }
+        };
+        if grad {
+            self.stats[last].grad.merge(&tally);
+        }
+        out
+    }
+
+    fn backward(&mut self, k: usize, x: Tensor<'_>, rng: &mut Rng) {
+        let l = *self.layer(k);
+        let g = self.plan.shapes.layers[k];
+        let s = self.plan.layers[k];
+        let first = self.plan.first_trainable;
+        let f = self.flash[k];
+        let reads_x = reads_input(&self.desc.layers, k, first);
+        let in_slot = if k == 0 || !reads_x {
+            Slot::NONE
+        } else {
+            self.plan.output_slot(k - 1)
+        };
+        let in_fmt = if k == 0 { x.fmt } else { self.out_fmt(k - 1) };
+        let out_fmt = self.out_fmt(k);
+        let gy_fmt = self.grad_fmt(k);
+        let gx_fmt = if k > 0 { self.grad_fmt(k - 1) } else { gy_fmt };
+        let gx_slot = if k > first {
+            self.plan.grad_slot(k - 1)
+        } else {
+            Slot::NONE
+        };
+        let acc_w_fmt = fmt_frac(l.weight.accum, self.live[k].accum_weight);
+        let acc_b_fmt = fmt_frac(l.bias.accum, self.live[k].accum_bias);
+        let [w, b, xin, y, gy, gx, aw, ab] = carve(
+            self.arena,
+            [
+                s.weight,
+                s.bias,
+                in_slot,
+                s.kept,
+                self.plan.grad_slot(k),
+                gx_slot,
+                s.accum_weight,
+                s.accum_bias,
+            ],
+        );
+        let w = param_view(w, s.weight, l.weight.value, f.weight);
+        let b = param_view(b, s.bias, l.bias.value, f.bias);
+        let xin = if k == 0 {
+            x
+        } else {
+            view_mut_ro(xin, in_fmt, g.input.size())
+        };
+        let y = view_mut_ro(y, out_fmt, s.kept.elems);
+        let gy = view_mut_ro(gy, gy_fmt, g.output.size());
+        let mut gx = view_mut(gx, gx_fmt, g.input.size());
+        let mut aw = view_mut(aw, acc_w_fmt, s.accum_weight.elems);
+        let mut ab = view_mut(ab, acc_b_fmt, s.accum_bias.elems);
+        let out = BackOut {
+            gx: if gx_slot.is_some() {
+                Some(&mut gx)
+            } else {
+                None
+            },
+            acc_w: if s.accum_weight.is_some() {
+                Some(&mut aw)
+            } else {
+                None
+            },
+            acc_b: if s.accum_bias.is_some() {
+                Some(&mut ab)
+            } else {
+                None
+            },
+        };
+        let mut t = BackTally::default();
+        let mode = self.desc.train.rounding.gradients;
+        layer::backward(
+            l.kind,
+            &g,
+            Params { w, b },
+            xin,
+            y,
+            gy,
+            out,
+            &mut Rounder { mode, rng },
+            &mut t,
+        );
+        if k > 0 {
+            self.stats[k - 1].grad.merge(&t.gx);
+        }
+        self.stats[k].accum_weight.merge(&t.acc_w);
+        self.stats[k].accum_bias.merge(&t.acc_b);
+    }
+
+    fn apply_update(&mut self) {
+        let train = self.desc.train;
+        let mut cfg = sgd::UpdateConfig {
+            lr: train.lr,
+            momentum: train.momentum,
+            decay: train.weight_decay,
+            clip: train.clip,
+            samples: self.in_batch.max(1) as u32,
+            mode: train.rounding.updates,
+        };
+        let with_momentum = !train.momentum.is_zero();
+        for k in 0..self.desc.layers.len() {
+            let l = *self.layer(k);
+            let s = self.plan.layers[k];
+            let [w, b, mw, mb, aw, ab, vw, vb] = carve(
+                self.arena,
+                [
+                    s.weight,
+                    s.bias,
+                    s.master_weight,
+                    s.master_bias,
+                    s.accum_weight,
+                    s.accum_bias,
+                    s.momentum_weight,
+                    s.momentum_bias,
+                ],
+            );
+            let parts = [
+                (
+                    w,
+                    mw,
+                    aw,
+                    vw,
+                    s.weight,
+                    l.weight,
+                    self.live[k].accum_weight,
+                    true,
+                ),
+                (
+                    b,
+                    mb,
+                    ab,
+                    vb,
+                    s.bias,
+                    l.bias,
+                    self.live[k].accum_bias,
+                    false,
+                ),
+            ];
+            for (value, master, accum, mom, slot, pf, acc_frac, is_weight) in parts {
+                if !slot.is_some() {
+                    continue;
+                }
+                let acc_fmt = fmt_frac(pf.accum, acc_frac);
+                let mut value = view_mut(value, pf.value, slot.elems);
+                let mut master = pf.master.map(|m| view_mut(master, m, slot.elems));
+                let mut accum = view_mut(accum, acc_fmt, slot.elems);
+                let mut mom = view_mut(mom, acc_fmt, slot.elems);
+                cfg.samples = self.in_batch.max(1) as u32;
+                let st = &mut self.stats[k];
+                let (tally, acc_tally) = if is_weight {
+                    (&mut st.weight, &mut st.accum_weight)
+                } else {
+                    (&mut st.bias, &mut st.accum_bias)
+                };
+                sgd::update(
+                    sgd::UpdateTensors {
+                        value: &mut value,
+                        master: master.as_mut(),
+                        accum: &mut accum,
+                        momentum: if with_momentum { Some(&mut mom) } else { None },
+                    },
+                    &cfg,
+                    &mut self.rng,
+                    tally,
+                    acc_tally,
+                );
+            }
+        }
+        self.in_batch = 0;
+        self.updates = self.updates.saturating_add(1);
+        if let Some(rule) = train.dynamic {
+            if self.updates % rule.interval as u32 == 0 {
+                self.adjust_fracs(rule);
+            }
+        }
+    }
+
+    /// Applies the overflow-rate rule to every moving tensor, then restarts the interval.
+    fn adjust_fracs(&mut self, rule: crate::model::DynamicRule) {
+        for k in 0..self.desc.layers.len() {
+            let now = self.stats[k];
+            let mark = self.marks[k];
+            let l = *self.layer(k);
+            let live = &mut self.live[k];
+            live.out = dynamic::adjust(live.out, &now.out, &mark.out, rule);
+            live.grad = dynamic::adjust(live.grad, &now.grad, &mark.grad, rule);
+            let s = self.plan.layers[k];
+            let old = (live.accum_weight, live.accum_bias);
+            if s.accum_weight.is_some() {
+                live.accum_weight =
+                    dynamic::adjust(old.0, &now.accum_weight, &mark.accum_weight, rule);
+            }
+            if s.accum_bias.is_some() {
+                live.accum_bias = dynamic::adjust(old.1, &now.accum_bias, &mark.accum_bias, rule);
+            }
+            let new = (live.accum_weight, live.accum_bias);
+            // Momentum lives in the accumulator format: rescale it with the accumulator.
+            let [vw, vb] = carve(self.arena, [s.momentum_weight, s.momentum_bias]);
+            for (buf, slot, word, from, to) in [
+                (vw, s.momentum_weight, l.weight.accum, old.0, new.0),
+                (vb, s.momentum_bias, l.bias.accum, old.1, new.1),
+            ] {
+                if from == to || !slot.is_some() {
+                    continue;
+                }
+                let mut m = view_mut(buf, fmt_frac(word, to), slot.elems);
+                for i in 0..slot.elems as usize {
+                    let (v, _) = rescale(
+                        m.raw.at(i) as i64,
+                        from as u32,
+                        to as u32,
+                        self.desc.train.rounding.updates,
+                        &mut self.rng,
+                    );
+                    let (v, _) = word.word.saturate(v);
+                    m.raw.put(i, v);
+                }
+            }
+        }
+        self.marks = self.stats;
+    }
+}
+
+fn check_param(
+    k: usize,
+    tensor: ParamTensor,
+    raw: Raw<'_>,
+    fmt: QFormat,
+    elems: u32,
+) -> Result<(), Error> {
+    if raw.word() != fmt.word || raw.len() != elems as usize {
+        let found = if raw.word() == fmt.word {
+            raw.len() as u32
+        } else {
+            0
+        };
+        return Err(Error::Params {
+            layer: k as u8,
+            tensor,
+            expected: elems,
+            found,
+        });
+    }
+    Ok(())
+}
+
+fn raw_view(arena: &[u32], slot: Slot, word: crate::num::Word) -> Raw<'_> {
+    let words = arena
+        .get(slot.first_word()..slot.first_word() + slot.words())
+        .unwrap_or(&[]);
+    let bytes: &[u8] = bytemuck::cast_slice(words);
+    let bytes = bytes
+        .get(..slot.elems as usize * word.bytes())
+        .unwrap_or(&[]);
+    match word {
+        crate::num::Word::I8 => Raw::I8(bytemuck::cast_slice(bytes)),
+        crate::num::Word::I16 => Raw::I16(bytemuck::try_cast_slice(bytes).unwrap_or(&[])),
+        crate::num::Word::I32 => Raw::I32(bytemuck::try_cast_slice(bytes).unwrap_or(&[])),
+    }
+}
+
+/// A read-only tensor over a carved piece.
+fn view_mut_ro(words: &mut [u32], fmt: QFormat, elems: u32) -> Tensor<'_> {
+    let words: &[u32] = words;
+    raw_tensor(words, fmt, elems)
+}
+
+fn raw_tensor(words: &[u32], fmt: QFormat, elems: u32) -> Tensor<'_> {
+    let slot = Slot {
+        offset: 0,
+        bytes: (words.len() * 4) as u32,
+        elems,
+        word: fmt.word,
+    };
+    Tensor {
+        raw: raw_view(words, slot, fmt.word),
+        fmt,
+    }
+}
+
+/// The parameters a layer reads: its arena copy if it trains, else the initial tensor.
+fn param_view<'x>(words: &'x mut [u32], slot: Slot, fmt: QFormat, init: Raw<'x>) -> Tensor<'x> {
+    if slot.is_some() {
+        view_mut_ro(words, fmt, slot.elems)
+    } else {
+        Tensor { raw: init, fmt }
+    }
+}

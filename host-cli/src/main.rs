@@ -1,0 +1,5 @@
+//! The `hone` command.
+
+fn main() {
+    println!("hone {}", env!("CARGO_PKG_VERSION"));
+}
