@@ -62,11 +62,7 @@ pub struct Evaluation {
 impl Evaluation {
     /// Saturation rate in parts per million.
     pub fn saturation_ppm(&self) -> u64 {
-        if self.activations == 0 {
-            0
-        } else {
-            self.saturations as u64 * 1_000_000 / self.activations
-        }
+        (self.saturations as u64 * 1_000_000).checked_div(self.activations).unwrap_or(0)
     }
 }
 

@@ -73,7 +73,7 @@ fn range<R: Real>(s: Slot) -> (usize, usize) {
     }
 }
 
-fn carve<'b, R: Real, const N: usize>(arena: &'b mut [R], slots: [Slot; N]) -> [&'b mut [R]; N] {
+fn carve<R: Real, const N: usize>(arena: &mut [R], slots: [Slot; N]) -> [&mut [R]; N] {
     split_disjoint(arena, slots.map(range::<R>))
 }
 
@@ -764,12 +764,9 @@ pub fn backward<R: Real>(
                     };
                     let mut s = R::ZERO;
                     for t in crate::layer::conv::covering(i, wn, st, l_out) {
-                        if avg {
+                        if avg || first_max(x, c * l_in, t * st, wn) == i {
                             s += at(gy, c * l_out + t);
-                        } else if first_max(x, c * l_in, t * st, wn) == i {
-                            s += at(gy, c * l_out + t);
-                        }
-                    }
+                        }                    }
                     *v = if avg { s / R::from_f64(wn as f64) } else { s };
                 }
             }

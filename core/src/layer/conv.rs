@@ -6,7 +6,7 @@
 //! `∂L/∂w[o][c][k] += Σ_t g[o][t] x[c][tS+k]`, `∂L/∂b[o] += Σ_t g[o][t]`; each sum exact,
 //! rounded once per sample.
 
-use super::dense::add_bias;
+use super::dense::store_with_bias;
 use super::{BackOut, BackTally, Params, Rounder, Tensor, TensorMut};
 use crate::kernel::{add_sat, dot, Tally};
 use crate::model::LayerGeometry;
@@ -64,8 +64,17 @@ pub fn forward(
                 acc = a;
                 sat |= s1 | s2;
             }
-            let (v, f, s3) = add_bias(acc, fs, p.b.at(o), p.b.frac());
-            r.store(y, o * l_out + t, v, f, sat || s3, tally);
+            store_with_bias(
+                r,
+                y,
+                o * l_out + t,
+                acc,
+                fs,
+                p.b.at(o),
+                p.b.frac(),
+                sat,
+                tally,
+            );
         }
     }
 }

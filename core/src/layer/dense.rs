@@ -6,19 +6,37 @@
 //! `∂L/∂b_j += g_j`, each rounded into the accumulator format.
 
 use super::{BackOut, BackTally, Params, Rounder, Tensor, TensorMut};
-use crate::kernel::{add_sat, dot, Tally};
+use crate::kernel::{dot, Tally};
 use crate::model::LayerGeometry;
 use crate::num::round::shift_left_saturating;
 
 /// Adds a bias with `fb` fraction bits to an exact sum with `fs` fraction bits, exactly, at
-/// the wider scale. Returns the sum, its fraction bits and whether anything saturated.
+/// the wider scale, and stores the result rounded once into `y[j]`. The sum is formed in 64
+/// bits when it fits and in 128 bits otherwise (wide formats aligned far apart), so the result
+/// is exact whatever the formats.
 #[inline]
-pub(crate) fn add_bias(sum: i64, fs: u32, bias: i32, fb: u32) -> (i64, u32, bool) {
+#[allow(clippy::too_many_arguments)]
+pub(crate) fn store_with_bias(
+    r: &mut Rounder<'_>,
+    y: &mut TensorMut<'_>,
+    j: usize,
+    sum: i64,
+    fs: u32,
+    bias: i32,
+    fb: u32,
+    sat_before: bool,
+    tally: &mut Tally,
+) {
     let f = fs.max(fb);
     let (s, o1) = shift_left_saturating(sum, f - fs);
     let (b, o2) = shift_left_saturating(bias as i64, f - fb);
-    let (t, o3) = add_sat(s, b);
-    (t, f, o1 || o2 || o3)
+    match (o1 || o2, s.checked_add(b)) {
+        (false, Some(v)) => r.store(y, j, v, f, sat_before, tally),
+        _ => {
+            let v = ((sum as i128) << (f - fs)) + ((bias as i128) << (f - fb));
+            r.store_wide(y, j, v, f, sat_before, tally);
+        }
+    }
 }
 
 /// Forward pass.
@@ -35,8 +53,7 @@ pub fn forward(
     let fs = p.w.frac() + x.frac();
     for j in 0..n_out {
         let (d, sat_dot) = dot(p.w.raw, j * n_in, 1, x.raw, 0, 1, n_in);
-        let (v, f, sat_bias) = add_bias(d, fs, p.b.at(j), p.b.frac());
-        r.store(y, j, v, f, sat_dot || sat_bias, tally);
+        store_with_bias(r, y, j, d, fs, p.b.at(j), p.b.frac(), sat_dot, tally);
     }
 }
 

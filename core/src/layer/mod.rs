@@ -100,6 +100,24 @@ impl Rounder<'_> {
         tally.note(sat || sat_before);
     }
 
+    /// Like [`Rounder::store`] for a 128-bit value (the rare case of a bias aligned to a very
+    /// fine scale).
+    #[inline(never)]
+    pub fn store_wide(
+        &mut self,
+        out: &mut TensorMut<'_>,
+        i: usize,
+        v: i128,
+        from_frac: u32,
+        sat_before: bool,
+        tally: &mut Tally,
+    ) {
+        let (q, sat) =
+            crate::num::round::requantize_wide(v, from_frac, out.fmt, self.mode, self.rng);
+        out.raw.put(i, q);
+        tally.note(sat || sat_before);
+    }
+
     /// Like [`Rounder::store`] for `v / den`, rounded once.
     #[inline]
     pub fn store_div(

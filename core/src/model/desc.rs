@@ -311,6 +311,9 @@ impl TrainDesc {
 pub struct ModelDesc {
     /// Shape of one input sample.
     pub input: Shape,
+    /// Format the device quantizes inputs into (after scaling). The trainer accepts any
+    /// format for an input tensor; this is the one the model was planned and exported with.
+    pub input_format: QFormat,
     /// Layers in order.
     pub layers: Vec<LayerDesc, MAX_LAYERS>,
     /// The loss.
@@ -327,6 +330,7 @@ impl ModelDesc {
     /// [`ModelDesc::check`].
     pub fn new(
         input: Shape,
+        input_format: QFormat,
         layers: &[LayerDesc],
         loss: Loss,
         train: TrainDesc,
@@ -334,6 +338,7 @@ impl ModelDesc {
         let layers = Vec::from_slice(layers).map_err(|_| Error::TooManyLayers)?;
         let d = ModelDesc {
             input,
+            input_format,
             layers,
             loss,
             train,
@@ -348,6 +353,9 @@ impl ModelDesc {
     /// # Errors
     /// The first problem found, as an [`Error`].
     pub fn check(&self) -> Result<(), Error> {
+        if !self.input_format.is_valid() {
+            return Err(Error::InvalidFormat);
+        }
         self.train.check()?;
         shapes(self.input, &self.layers, self.loss).map(|_| ())
     }
@@ -735,6 +743,7 @@ mod tests {
         let lr = QScalar::from_f64(0.01, 16).unwrap();
         let e = ModelDesc::new(
             Shape::vector(2),
+            act,
             &layers,
             Loss::SquaredError,
             TrainDesc::sgd(lr),

@@ -225,7 +225,7 @@ pub fn pow2(e: i32) -> f64 {
 /// whose magnitude is below 2^62 (larger ones are already integers in `f64` and are returned
 /// unchanged).
 pub fn round_half_even_f64(x: f64) -> f64 {
-    if !(x.abs() < 4.611_686_018_427_388e18) {
+    if x.is_nan() || x.abs() >= 4.611_686_018_427_388e18 {
         return x;
     }
     let t = x as i64; // toward zero, exact for |x| < 2^63

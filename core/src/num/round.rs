@@ -217,6 +217,57 @@ pub fn requantize_div(
     (out, sat_shift || sat_word)
 }
 
+/// [`requantize`] for a 128-bit value: rescale with `mode`, then saturate to the word.
+/// `from_frac ≤ 126`. Used only where a 64-bit intermediate would overflow.
+pub fn requantize_wide(
+    v: i128,
+    from_frac: u32,
+    to: QFormat,
+    mode: Rounding,
+    rng: &mut Rng,
+) -> (i32, bool) {
+    let to_frac = to.frac as u32;
+    let q: i128 = if from_frac <= to_frac {
+        let s = to_frac - from_frac;
+        match v.checked_mul(1i128 << s.min(126)) {
+            Some(x) => x,
+            None => {
+                if v < 0 {
+                    i128::MIN
+                } else {
+                    i128::MAX
+                }
+            }
+        }
+    } else {
+        let s = (from_frac - to_frac).min(126);
+        let q = v >> s;
+        let r = (v - (q << s)) as u128; // in [0, 2^s)
+        let up = match mode {
+            Rounding::NearestEven => {
+                let half = 1u128 << (s - 1);
+                r > half || (r == half && q & 1 != 0)
+            }
+            Rounding::TowardZero => v < 0 && r != 0,
+            Rounding::Stochastic => {
+                // Compare the top 64 bits of the remainder with 64 random bits; for s ≤ 64
+                // this is exact, beyond that the probability is exact to 2^-64.
+                let (rt, bits) = if s > 64 {
+                    ((r >> (s - 64)) as u64, 64)
+                } else {
+                    (r as u64, s)
+                };
+                rng.bits(bits) < rt
+            }
+        };
+        q + up as i128
+    };
+    let lo = to.word.min_raw() as i128;
+    let hi = to.word.max_raw() as i128;
+    let c = q.clamp(lo, hi);
+    (c as i32, c != q)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

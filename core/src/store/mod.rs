@@ -311,7 +311,7 @@ impl<F: NorFlash> Store<F> {
             return Err(StoreError::Geometry);
         }
         let erase = u32::try_from(erase).map_err(|_| StoreError::Geometry)?;
-        if offset % erase != 0 || len % erase != 0 {
+        if !offset.is_multiple_of(erase) || !len.is_multiple_of(erase) {
             return Err(StoreError::RegionMisaligned);
         }
         let end = offset
@@ -755,7 +755,7 @@ mod tests {
     /// multiples of `w`.
     fn expected_steps(off: u32, len: usize, e: usize, w: usize, mode: Mode) -> u32 {
         let erases = (off as usize + len).div_ceil(e);
-        let tail = usize::from(len % w != 0);
+        let tail = usize::from(!len.is_multiple_of(w));
         let body = match mode {
             Mode::OneShot => usize::from(len >= w),
             Mode::Chunked(c) => {

@@ -91,9 +91,9 @@ impl<const SIZE: usize, const ERASE: usize, const WRITE: usize, const READ: usiz
         ERASE > 0
             && WRITE > 0
             && READ > 0
-            && SIZE % ERASE == 0
-            && ERASE % WRITE == 0
-            && ERASE % READ == 0
+            && SIZE.is_multiple_of(ERASE)
+            && ERASE.is_multiple_of(WRITE)
+            && ERASE.is_multiple_of(READ)
             && SIZE <= u32::MAX as usize,
         "SimFlash geometry: SIZE % ERASE, ERASE % WRITE and ERASE % READ must be 0"
     );
@@ -193,7 +193,7 @@ impl<const SIZE: usize, const ERASE: usize, const WRITE: usize, const READ: usiz
         if end > SIZE {
             return Err(SimError::OutOfBounds);
         }
-        if start % unit != 0 || len % unit != 0 {
+        if start % unit != 0 || !len.is_multiple_of(unit) {
             return Err(SimError::NotAligned);
         }
         Ok((start, end))

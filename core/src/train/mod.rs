@@ -100,7 +100,7 @@ pub struct Trainer<'a> {
 }
 
 /// Cuts disjoint mutable pieces out of the arena, one per slot (see [`split_disjoint`]).
-fn carve<'b, const N: usize>(arena: &'b mut [u32], slots: [Slot; N]) -> [&'b mut [u32]; N] {
+fn carve<const N: usize>(arena: &mut [u32], slots: [Slot; N]) -> [&mut [u32]; N] {
     split_disjoint(
         arena,
         slots.map(|s| {
@@ -322,6 +322,18 @@ impl<'a> Trainer<'a> {
         Some(LayerParams {
             weight: pick(s.weight, l.weight.value.word, f.weight),
             bias: pick(s.bias, l.bias.value.word, f.bias),
+        })
+    }
+
+    /// The gradient accumulators of layer `k` (sums over the samples of the current batch,
+    /// in the accumulator formats of [`Trainer::live_fracs`]): weights and bias, each empty
+    /// where that tensor does not train.
+    pub fn accumulators(&self, k: usize) -> Option<LayerParams<'_>> {
+        let l = self.desc.layers.get(k)?;
+        let s = &self.plan.layers[k];
+        Some(LayerParams {
+            weight: raw_view(self.arena, s.accum_weight, l.weight.accum.word),
+            bias: raw_view(self.arena, s.accum_bias, l.bias.accum.word),
         })
     }
 
@@ -725,7 +737,7 @@ impl<'a> Trainer<'a> {
         self.in_batch = 0;
         self.updates = self.updates.saturating_add(1);
         if let Some(rule) = train.dynamic {
-            if self.updates % rule.interval as u32 == 0 {
+            if self.updates.is_multiple_of(rule.interval as u32) {
                 self.adjust_fracs(rule);
             }
         }
