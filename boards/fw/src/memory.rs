@@ -1,0 +1,100 @@
+//! Static memory figures from linker symbols, and the stack high-water mark.
+//!
+//! Both `cortex-m-rt` and `riscv-rt` define the section bounds `__stext`/`__etext`,
+//! `__srodata`/`__erodata`, `__sdata`/`__edata`, `__sbss`/`__ebss` and `__suninit`/`__euninit`.
+//! The stack bounds differ per runtime and come from the architecture module.
+
+#[cfg(feature = "cortex-m")]
+use crate::cortex_m::stack_bounds;
+#[cfg(feature = "riscv")]
+use crate::riscv::stack_bounds;
+
+/// Word the runtime paints the free stack with at reset.
+pub const STACK_PAINT: u32 = 0xCCCC_CCCC;
+
+/// Sizes in bytes of the program's sections, read from linker symbols at run time.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct StaticMemory {
+    /// Code (`.text`).
+    pub text: u32,
+    /// Read-only data (`.rodata`), in flash.
+    pub rodata: u32,
+    /// Initialised statics (`.data`): in RAM, with their initial values in flash.
+    pub data: u32,
+    /// Zero-initialised statics (`.bss`), in RAM.
+    pub bss: u32,
+    /// Statics left uninitialised (`.uninit`), in RAM.
+    pub uninit: u32,
+}
+
+impl StaticMemory {
+    /// RAM taken by statics: `.data + .bss + .uninit`.
+    #[must_use]
+    pub const fn ram(&self) -> u32 {
+        self.data + self.bss + self.uninit
+    }
+}
+
+// Section bounds defined by the runtime's linker script. Only their addresses are used.
+extern "C" {
+    static __stext: u8;
+    static __etext: u8;
+    static __srodata: u8;
+    static __erodata: u8;
+    static __sdata: u8;
+    static __edata: u8;
+    static __sbss: u8;
+    static __ebss: u8;
+    static __suninit: u8;
+    static __euninit: u8;
+}
+
+/// Byte distance between two linker symbols.
+fn span(start: *const u8, end: *const u8) -> u32 {
+    // Addresses on these 32-bit targets fit in u32.
+    (end as usize).saturating_sub(start as usize) as u32
+}
+
+/// Reads the section sizes from the runtime's linker symbols.
+#[must_use]
+pub fn static_memory() -> StaticMemory {
+    // Only the addresses of the linker-defined symbols are taken; nothing is read through them.
+    StaticMemory {
+        text: span(&raw const __stext, &raw const __etext),
+        rodata: span(&raw const __srodata, &raw const __erodata),
+        data: span(&raw const __sdata, &raw const __edata),
+        bss: span(&raw const __sbss, &raw const __ebss),
+        uninit: span(&raw const __suninit, &raw const __euninit),
+    }
+}
+
+/// Stack size and the deepest point the stack reached so far.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct StackUsage {
+    /// Bytes between the lowest and the highest stack address.
+    pub size: u32,
+    /// Bytes used at the deepest point: from the stack top down to the lowest word that no longer
+    /// holds [`STACK_PAINT`]. Equal to `size` when the stack reached its bottom (a likely overflow).
+    pub peak: u32,
+}
+
+/// Scans the painted stack upward from its lowest address for the first overwritten word.
+#[must_use]
+pub fn stack_usage() -> StackUsage {
+    let (bottom, top) = stack_bounds();
+    let mut p = bottom as *const u32;
+    let end = top as *const u32;
+    // SAFETY: [bottom, top) is the stack region defined by the linker script, inside RAM and
+    // 4-byte aligned; the words below the current stack pointer are not in use by anyone, and
+    // reading them is the whole point of the scan. Volatile reads keep the compiler from assuming
+    // their contents.
+    unsafe {
+        while p < end && core::ptr::read_volatile(p) == STACK_PAINT {
+            p = p.add(1);
+        }
+    }
+    StackUsage {
+        size: top.saturating_sub(bottom) as u32,
+        peak: top.saturating_sub(p as usize) as u32,
+    }
+}

@@ -1,0 +1,21 @@
+//! hone firmware for the Arm MPS2 AN386 board (Cortex-M4F) under QEMU: the shared session runner with the Phase-1 workload.
+#![no_std]
+#![no_main]
+
+use defmt_semihosting as _;
+use hone_fw::cortex_m::SysTickPlatform;
+use hone_fw::{exit_code, semihosting_exit, TickUnit};
+
+/// Instructions per SysTick tick under `-icount shift=0`: QEMU clocks SysTick at 25 MHz, 40 ns per tick, one instruction per ns.
+/// The runner checks it against a spin loop at every boot.
+const UNIT: TickUnit = TickUnit::Instructions { num: 40, den: 1 };
+
+#[cortex_m_rt::entry]
+fn main() -> ! {
+    let Some(core) = cortex_m::Peripherals::take() else {
+        hone_fw::record::error("core-peripherals-taken");
+        semihosting_exit(exit_code::SESSION_FAILED);
+    };
+    let platform = SysTickPlatform::new(core.SYST, "mps2-an386", UNIT);
+    hone_fw::run(platform, hone_fw::workload::phase1)
+}

@@ -1,0 +1,108 @@
+//! hone firmware for the Raspberry Pi Pico (RP2040, Cortex-M0+ at 125 MHz).
+//!
+//! It samples the analog input on GPIO26 (ADC channel 0) and sends the readings to the host, then
+//! runs the Phase-1 workload. The tick counter is SysTick on the core clock, so spans are reported
+//! in cycles. Logs go out over RTT; the run ends with a semihosting exit, which a probe-based
+//! runner turns into its exit code.
+#![no_std]
+#![no_main]
+
+use defmt_rtt as _;
+use hone_fw::cortex_m::SysTickPlatform;
+use hone_fw::{exit_code, record, semihosting_exit, Ctx, Platform, SessionError, TickUnit};
+use rp2040_hal::adc::{Adc, AdcChannel};
+use rp2040_hal::clocks::{init_clocks_and_plls, Clock};
+use rp2040_hal::{entry, gpio, pac, Sio, Watchdog};
+
+/// Second-stage boot loader for the Pico's W25Q080 flash, placed at the start of flash.
+#[link_section = ".boot2"]
+#[used]
+#[no_mangle]
+pub static BOOT2_FIRMWARE: [u8; 256] = rp2040_boot2::BOOT_LOADER_W25Q080;
+
+/// Frequency of the Pico's crystal.
+const XOSC_HZ: u32 = 12_000_000;
+
+/// ADC readings taken from GPIO26 per run.
+const ADC_SAMPLES: usize = 64;
+
+/// Logs what failed during set-up and exits.
+fn fail(what: &str) -> ! {
+    record::error(what);
+    record::done(exit_code::SESSION_FAILED);
+    semihosting_exit(exit_code::SESSION_FAILED)
+}
+
+#[entry]
+fn main() -> ! {
+    let Some(mut pac) = pac::Peripherals::take() else {
+        fail("peripherals-taken")
+    };
+    let Some(core) = pac::CorePeripherals::take() else {
+        fail("core-peripherals-taken")
+    };
+    let mut watchdog = Watchdog::new(pac.WATCHDOG);
+    let Ok(clocks) = init_clocks_and_plls(
+        XOSC_HZ,
+        pac.XOSC,
+        pac.CLOCKS,
+        pac.PLL_SYS,
+        pac.PLL_USB,
+        &mut pac.RESETS,
+        &mut watchdog,
+    ) else {
+        fail("clock-init")
+    };
+    let sio = Sio::new(pac.SIO);
+    let pins = gpio::Pins::new(
+        pac.IO_BANK0,
+        pac.PADS_BANK0,
+        sio.gpio_bank0,
+        &mut pac.RESETS,
+    );
+    let mut adc = Adc::new(pac.ADC, &mut pac.RESETS);
+    let Ok(mut gpio26) = rp2040_hal::adc::AdcPin::new(pins.gpio26.into_floating_input()) else {
+        fail("adc-pin")
+    };
+
+    let hz = clocks.system_clock.freq().to_Hz();
+    let platform = SysTickPlatform::new(core.SYST, "pico", TickUnit::CoreCycles { hz });
+    hone_fw::run(platform, move |ctx| {
+        sample(ctx, &mut adc, &mut gpio26)?;
+        hone_fw::workload::phase1(ctx)
+    })
+}
+
+/// Reads [`ADC_SAMPLES`] conversions from `channel`, measures them, logs a `sensor` summary and
+/// sends the raw readings (little-endian `u16`) as the payload `adc_gpio26`.
+fn sample<P: Platform>(
+    ctx: &mut Ctx<'_, P>,
+    adc: &mut Adc,
+    channel: &mut impl AdcChannel,
+) -> Result<(), SessionError> {
+    let mut readings = [0u16; ADC_SAMPLES];
+    let (result, _) = ctx.measure("adc_gpio26", ADC_SAMPLES as u32, || {
+        for r in readings.iter_mut() {
+            *r = adc.read(channel)?;
+        }
+        Ok::<(), rp2040_hal::adc::Error>(())
+    });
+    result.map_err(|_| SessionError::Check("adc-read"))?;
+
+    let min = readings.iter().copied().min().unwrap_or(0);
+    let max = readings.iter().copied().max().unwrap_or(0);
+    let sum: u32 = readings.iter().map(|&r| u32::from(r)).sum();
+    record::sensor(
+        "adc_gpio26",
+        ADC_SAMPLES as u32,
+        u32::from(min),
+        u32::from(max),
+        sum / ADC_SAMPLES as u32,
+    );
+
+    let mut bytes = [0u8; ADC_SAMPLES * 2];
+    for (pair, r) in bytes.chunks_exact_mut(2).zip(readings) {
+        pair.copy_from_slice(&r.to_le_bytes());
+    }
+    ctx.send_blob("adc_gpio26", &bytes)
+}
