@@ -62,7 +62,9 @@ pub struct Evaluation {
 impl Evaluation {
     /// Saturation rate in parts per million.
     pub fn saturation_ppm(&self) -> u64 {
-        (self.saturations as u64 * 1_000_000).checked_div(self.activations).unwrap_or(0)
+        (self.saturations as u64 * 1_000_000)
+            .checked_div(self.activations)
+            .unwrap_or(0)
     }
 }
 
@@ -144,6 +146,59 @@ pub fn judge(before: &Evaluation, after: &Evaluation, cfg: &GuardConfig) -> Verd
         });
     }
     Verdict::Accept
+}
+
+/// What one guarded calibration session did.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub struct SessionReport {
+    /// The held-back samples under the weights before the session.
+    pub before: Evaluation,
+    /// The held-back samples under the weights after training.
+    pub after: Evaluation,
+    /// The decision. On [`Verdict::Reject`] the trainer holds the weights of before again.
+    pub verdict: Verdict,
+    /// Samples trained on.
+    pub trained: u32,
+}
+
+/// Runs one guarded calibration session: evaluates `holdout`, trains on `train` (flushing a
+/// partial batch at the end), evaluates `holdout` again and judges. On rejection it restores
+/// the trainer from `last_good` (the blob of the weights before the session: the factory
+/// model or the last committed checkpoint).
+///
+/// # Errors
+/// Sample errors from training or evaluation, and the errors of
+/// [`Trainer::restore`](crate::train::Trainer::restore).
+pub fn calibrate<'s, T, H>(
+    trainer: &mut Trainer<'_>,
+    train: T,
+    holdout: H,
+    cfg: &GuardConfig,
+    last_good: &crate::blob::CheckedBlob<'_>,
+) -> Result<SessionReport, Error>
+where
+    T: IntoIterator<Item = (Tensor<'s>, Target<'s>)>,
+    H: IntoIterator<Item = (Tensor<'s>, Target<'s>)> + Clone,
+{
+    let before = evaluate(trainer, holdout.clone())?;
+    let mut trained = 0u32;
+    for (x, t) in train {
+        trainer.step(x, t)?;
+        trained += 1;
+    }
+    trainer.flush();
+    let after = evaluate(trainer, holdout)?;
+    let verdict = judge(&before, &after, cfg);
+    if verdict != Verdict::Accept {
+        trainer.restore(last_good)?;
+    }
+    Ok(SessionReport {
+        before,
+        after,
+        verdict,
+        trained,
+    })
 }
 
 #[cfg(test)]

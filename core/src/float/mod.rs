@@ -766,7 +766,8 @@ pub fn backward<R: Real>(
                     for t in crate::layer::conv::covering(i, wn, st, l_out) {
                         if avg || first_max(x, c * l_in, t * st, wn) == i {
                             s += at(gy, c * l_out + t);
-                        }                    }
+                        }
+                    }
                     *v = if avg { s / R::from_f64(wn as f64) } else { s };
                 }
             }

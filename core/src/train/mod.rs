@@ -7,6 +7,7 @@
 //! point on, the fraction bits of activations, gradients and accumulators are adjusted
 //! ([`dynamic`]).
 
+pub mod checkpoint;
 pub mod dynamic;
 pub mod sgd;
 
@@ -212,7 +213,28 @@ impl<'a> Trainer<'a> {
             let g = &self.plan.shapes.layers[k];
             check_param(k, ParamTensor::Weight, p.weight, l.weight.value, g.weights)?;
             check_param(k, ParamTensor::Bias, p.bias, l.bias.value, g.biases)?;
-            let s = &self.plan.layers[k];
+            let s = self.plan.layers[k];
+            let [w, b] = carve(self.arena, [s.weight, s.bias]);
+            if s.weight.is_some() {
+                view_mut(w, l.weight.value, s.weight.elems)
+                    .raw
+                    .copy_from(p.weight);
+            }
+            if s.bias.is_some() {
+                view_mut(b, l.bias.value, s.bias.elems)
+                    .raw
+                    .copy_from(p.bias);
+            }
+        }
+        self.reinit_from_values();
+        Ok(())
+    }
+
+    /// Derives the master copies from the trainable values and clears accumulators, momentum
+    /// and the partial batch.
+    fn reinit_from_values(&mut self) {
+        for (k, l) in self.desc.layers.iter().enumerate() {
+            let s = self.plan.layers[k];
             let [w, b, mw, mb, aw, ab, vw, vb] = carve(
                 self.arena,
                 [
@@ -226,30 +248,23 @@ impl<'a> Trainer<'a> {
                     s.momentum_bias,
                 ],
             );
-            let mut w = view_mut(w, l.weight.value, s.weight.elems);
-            let mut b = view_mut(b, l.bias.value, s.bias.elems);
-            if s.weight.is_some() {
-                w.raw.copy_from(p.weight);
-            }
-            if s.bias.is_some() {
-                b.raw.copy_from(p.bias);
-            }
+            let w = view_mut(w, l.weight.value, s.weight.elems);
+            let b = view_mut(b, l.bias.value, s.bias.elems);
             for (m, src, f) in [(mw, &w, l.weight.master), (mb, &b, l.bias.master)] {
-                if let Some(f) = f {
-                    let len = src.raw.len() as u32;
-                    let mut m = view_mut(m, f, len);
-                    for i in 0..len as usize {
-                        // Widening into the master: exact when the master has at least the
-                        // value's fraction bits (the usual case), else rounded to nearest.
-                        let (v, _) = crate::num::round::requantize(
-                            src.raw.at(i) as i64,
-                            src.frac(),
-                            f,
-                            Rounding::NearestEven,
-                            &mut self.rng,
-                        );
-                        m.raw.put(i, v);
-                    }
+                let Some(f) = f else { continue };
+                let len = src.raw.len() as u32;
+                let mut m = view_mut(m, f, len);
+                for i in 0..len as usize {
+                    // Widening into the master: exact when the master has at least the
+                    // value's fraction bits (the usual case), else rounded to nearest.
+                    let (v, _) = crate::num::round::requantize(
+                        src.raw.at(i) as i64,
+                        src.frac(),
+                        f,
+                        Rounding::NearestEven,
+                        &mut self.rng,
+                    );
+                    m.raw.put(i, v);
                 }
             }
             for buf in [aw, ab, vw, vb] {
@@ -257,7 +272,16 @@ impl<'a> Trainer<'a> {
             }
         }
         self.in_batch = 0;
-        Ok(())
+    }
+
+    /// Clears the gradient accumulators and the partial batch.
+    fn clear_accumulators(&mut self) {
+        for s in self.plan.layers.iter().take(self.desc.layers.len()) {
+            let [aw, ab] = carve(self.arena, [s.accum_weight, s.accum_bias]);
+            aw.fill(0);
+            ab.fill(0);
+        }
+        self.in_batch = 0;
     }
 
     /// The model description.

@@ -1,0 +1,318 @@
+//! Checkpoints of a [`Trainer`]: what training changed, written as a [`crate::blob`] and read
+//! back.
+//!
+//! A checkpoint carries the description, the trained tensors (values, master copies,
+//! momentum) and the training state (steps, updates, generator state, current fraction bits).
+//! Frozen tensors are not in it: they are the factory model's and stay in flash. Tensors are
+//! written straight from the arena as little-endian bytes, without a copy, which is why the
+//! crate refuses to build for big-endian targets.
+
+use heapless::Vec;
+
+use super::{LiveFracs, Trainer};
+use crate::blob::{
+    self, BlobBody, BlobError, BlobKind, ChannelScale, CheckedBlob, TensorBlob, TensorRole,
+    TrainState,
+};
+use crate::error::Error;
+use crate::model::MAX_LAYERS;
+use crate::num::{QFormat, Rng};
+use crate::plan::Slot;
+
+#[cfg(target_endian = "big")]
+compile_error!("hone-core writes tensors as little-endian bytes straight from memory");
+
+fn slot_bytes(arena: &[u32], slot: Slot, fmt: QFormat) -> &[u8] {
+    let words = arena
+        .get(slot.first_word()..slot.first_word() + slot.words())
+        .unwrap_or(&[]);
+    let bytes: &[u8] = bytemuck::cast_slice(words);
+    bytes
+        .get(..slot.elems as usize * fmt.word.bytes())
+        .unwrap_or(&[])
+}
+
+impl Trainer<'_> {
+    /// The training state as carried by a checkpoint.
+    pub fn train_state(&self) -> TrainState {
+        let mut fracs = [[0u8; 4]; MAX_LAYERS];
+        for (f, l) in fracs.iter_mut().zip(self.live.iter()) {
+            *f = [l.out, l.grad, l.accum_weight, l.accum_bias];
+        }
+        TrainState {
+            steps: self.steps,
+            updates: self.updates,
+            rng: self.rng.state(),
+            fracs,
+        }
+    }
+
+    /// The checkpoint body: description, scaling, state and every trained tensor, borrowing
+    /// the tensors from the arena.
+    ///
+    /// # Errors
+    /// [`BlobError::Scaling`] if `scaling` is too long.
+    pub fn checkpoint_body(&self, scaling: &[ChannelScale]) -> Result<BlobBody<'_>, Error> {
+        let mut tensors: Vec<TensorBlob<'_>, { blob::MAX_TENSORS }> = Vec::new();
+        for (k, l) in self.desc.layers.iter().enumerate() {
+            let s = &self.plan.layers[k];
+            let live = self.live[k];
+            let acc_w = QFormat {
+                word: l.weight.accum.word,
+                frac: live.accum_weight,
+            };
+            let acc_b = QFormat {
+                word: l.bias.accum.word,
+                frac: live.accum_bias,
+            };
+            let entries = [
+                (TensorRole::Weight, s.weight, Some(l.weight.value)),
+                (TensorRole::Bias, s.bias, Some(l.bias.value)),
+                (TensorRole::MasterWeight, s.master_weight, l.weight.master),
+                (TensorRole::MasterBias, s.master_bias, l.bias.master),
+                (TensorRole::MomentumWeight, s.momentum_weight, Some(acc_w)),
+                (TensorRole::MomentumBias, s.momentum_bias, Some(acc_b)),
+            ];
+            for (role, slot, fmt) in entries {
+                let Some(fmt) = fmt else { continue };
+                if !slot.is_some() {
+                    continue;
+                }
+                let t = TensorBlob {
+                    layer: k as u8,
+                    role,
+                    format: fmt,
+                    elems: slot.elems,
+                    data: slot_bytes(self.arena, slot, fmt),
+                };
+                tensors.push(t).map_err(|_| BlobError::TooManyTensors)?;
+            }
+        }
+        Ok(BlobBody {
+            kind: BlobKind::Checkpoint,
+            desc: self.desc.clone(),
+            scaling: Vec::from_slice(scaling).map_err(|_| BlobError::Scaling)?,
+            state: Some(self.train_state()),
+            tensors,
+        })
+    }
+
+    /// Writes a checkpoint blob into `out`; returns its length.
+    ///
+    /// # Errors
+    /// [`BlobError::BufferTooSmall`] and the errors of [`Trainer::checkpoint_body`].
+    pub fn write_checkpoint(
+        &self,
+        scaling: &[ChannelScale],
+        out: &mut [u8],
+    ) -> Result<usize, Error> {
+        blob::encode(&self.checkpoint_body(scaling)?, out)
+    }
+
+    /// Restores the trainer from a validated blob of the same model description.
+    ///
+    /// A checkpoint restores the trained tensors and the training state. A factory model
+    /// restores the trainable values (the frozen ones stay those given at construction),
+    /// recomputes master copies from them, clears momentum and keeps the state.
+    ///
+    /// # Errors
+    /// [`Error::PlanMismatch`] if the blob describes another model; [`BlobError::TensorShape`]
+    /// if a tensor does not fit its buffer. On error the trainer may hold a partial restore:
+    /// reload the last good blob.
+    pub fn restore(&mut self, blob: &CheckedBlob<'_>) -> Result<(), Error> {
+        if blob.desc() != self.desc {
+            return Err(Error::PlanMismatch);
+        }
+        if blob.kind() == BlobKind::Model {
+            return self.load_model_blob(blob);
+        }
+        let state = blob.state().ok_or(BlobError::StateMismatch)?;
+        for t in blob.tensors() {
+            let k = t.layer as usize;
+            let s = self.plan.layers[k];
+            let slot = match t.role {
+                TensorRole::Weight => s.weight,
+                TensorRole::Bias => s.bias,
+                TensorRole::MasterWeight => s.master_weight,
+                TensorRole::MasterBias => s.master_bias,
+                TensorRole::MomentumWeight => s.momentum_weight,
+                TensorRole::MomentumBias => s.momentum_bias,
+            };
+            self.copy_into(slot, t)?;
+        }
+        self.steps = state.steps;
+        self.updates = state.updates;
+        self.rng = Rng::from_state(state.rng).ok_or(BlobError::StateMismatch)?;
+        for (l, f) in self.live.iter_mut().zip(state.fracs.iter()) {
+            *l = LiveFracs {
+                out: f[0],
+                grad: f[1],
+                accum_weight: f[2],
+                accum_bias: f[3],
+            };
+        }
+        self.clear_accumulators();
+        Ok(())
+    }
+
+    fn load_model_blob(&mut self, blob: &CheckedBlob<'_>) -> Result<(), Error> {
+        // Values first (trainable ones only), then masters re-derived and momentum cleared
+        // through `load`, which reads the values back from the arena.
+        for t in blob.tensors() {
+            let s = self.plan.layers[t.layer as usize];
+            let slot = match t.role {
+                TensorRole::Weight => s.weight,
+                TensorRole::Bias => s.bias,
+                _ => continue,
+            };
+            if slot.is_some() {
+                self.copy_into(slot, t)?;
+            }
+        }
+        self.reinit_from_values();
+        Ok(())
+    }
+
+    fn copy_into(&mut self, slot: Slot, t: &TensorBlob<'_>) -> Result<(), Error> {
+        if !slot.is_some() || slot.elems != t.elems {
+            return Err(BlobError::TensorShape {
+                layer: t.layer,
+                role: t.role,
+            }
+            .into());
+        }
+        let words = self
+            .arena
+            .get_mut(slot.first_word()..slot.first_word() + slot.words())
+            .unwrap_or(&mut []);
+        let mut raw = crate::num::RawMut::from_words(words, t.format.word, slot.elems as usize)
+            .ok_or(BlobError::TensorShape {
+                layer: t.layer,
+                role: t.role,
+            })?;
+        blob::copy_tensor(t, &mut raw)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::blob::{self, BlobKind};
+    use crate::layer::loss::Target;
+    use crate::layer::Tensor;
+    use crate::model::{
+        DynamicRule, LayerDesc, LayerKind, Loss, ModelDesc, ParamFormats, Shape, TrainDesc,
+        TrainMode,
+    };
+    use crate::num::{QFormat, QScalar, Raw, Rounding, Word};
+    use crate::plan::Plan;
+    use crate::train::{LayerParams, Trainer};
+
+    fn desc() -> ModelDesc {
+        let act = QFormat::new(Word::I16, 11).unwrap();
+        let grad = QFormat::new(Word::I16, 13).unwrap();
+        let mut p = ParamFormats::plain(QFormat::new(Word::I8, 6).unwrap(), 24);
+        p.master = Some(QFormat::new(Word::I16, 13).unwrap());
+        let dense = |units, mode| LayerDesc {
+            kind: LayerKind::Dense { units },
+            mode,
+            weight: p,
+            bias: p,
+            out: act,
+            grad,
+        };
+        let layers = [
+            dense(6, TrainMode::Frozen),
+            LayerDesc::simple(LayerKind::Relu, act, grad),
+            dense(2, TrainMode::Full),
+        ];
+        let mut t = TrainDesc::sgd(QScalar::from_f64(0.05, 16).unwrap());
+        t.momentum = QScalar::from_f64(0.5, 15).unwrap();
+        t.batch = 2;
+        t.rounding.updates = Rounding::Stochastic;
+        t.dynamic = Some(DynamicRule {
+            max_rate_ppm: 100,
+            interval: 2,
+        });
+        ModelDesc::new(Shape::vector(3), act, &layers, Loss::SquaredError, t).unwrap()
+    }
+
+    fn sample(i: i32) -> ([i16; 3], [i16; 2]) {
+        (
+            [
+                (i * 97 % 2048) as i16 - 1024,
+                (i * 31 % 2048) as i16 - 1024,
+                512,
+            ],
+            [(i * 13 % 1024) as i16, -300],
+        )
+    }
+
+    #[test]
+    fn checkpoint_round_trip_continues_bit_exact() {
+        let d = desc();
+        let plan = Plan::of(&d).unwrap();
+        let w0: [i8; 18] = core::array::from_fn(|i| (i as i8 * 7) - 60);
+        let b0 = [3i8; 6];
+        let w2: [i8; 12] = core::array::from_fn(|i| 40 - (i as i8 * 5));
+        let b2 = [-2i8; 2];
+        let init = [
+            LayerParams {
+                weight: Raw::I8(&w0),
+                bias: Raw::I8(&b0),
+            },
+            LayerParams::NONE,
+            LayerParams {
+                weight: Raw::I8(&w2),
+                bias: Raw::I8(&b2),
+            },
+        ];
+        let (fx, fo) = (d.input_format, d.layers[2].out);
+        let step = |t: &mut Trainer<'_>, i: i32| {
+            let (x, y) = sample(i);
+            t.step(
+                Tensor {
+                    raw: Raw::I16(&x),
+                    fmt: fx,
+                },
+                Target::Values(Tensor {
+                    raw: Raw::I16(&y),
+                    fmt: fo,
+                }),
+            )
+            .unwrap();
+        };
+        let mut a1 = vec![0u32; plan.ram_words()];
+        let mut a = Trainer::new(&d, &plan, &mut a1, &init).unwrap();
+        for i in 0..9 {
+            step(&mut a, i);
+        }
+        let mut buf = [0u8; 2048];
+        let n = a.write_checkpoint(&[], &mut buf).unwrap();
+        let checked = blob::decode(&buf[..n]).unwrap();
+        assert_eq!(checked.kind(), BlobKind::Checkpoint);
+        // Frozen layer 0 is not carried; layer 2 carries values, masters and momentum.
+        assert!(checked.tensors().iter().all(|t| t.layer == 2));
+        assert_eq!(checked.tensors().len(), 6);
+        let mut a2 = vec![0u32; plan.ram_words()];
+        let mut b = Trainer::new(&d, &plan, &mut a2, &init).unwrap();
+        b.restore(&checked).unwrap();
+        // 9 steps with batch 2 leave one sample pending in `a`. A checkpoint holds no
+        // accumulator, so restoring drops the partial batch: restore `a` from the same blob
+        // so both continue from the same point.
+        a.restore(&checked).unwrap();
+        for i in 9..30 {
+            step(&mut a, i);
+            step(&mut b, i);
+        }
+        assert_eq!(a.params(2), b.params(2));
+        assert_eq!(a.train_state(), b.train_state());
+        assert_eq!(a.rng(), b.rng());
+        // Corrupting one byte is caught by the CRC.
+        let mut bad = buf;
+        bad[n / 2] ^= 0x10;
+        assert_eq!(
+            blob::decode(&bad[..n]).err(),
+            Some(crate::Error::Blob(blob::BlobError::CrcMismatch))
+        );
+    }
+}
