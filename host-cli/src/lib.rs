@@ -1,2 +1,14 @@
 //! Library half of the `hone` workstation tool. The binary stays thin; everything a test may
 //! want to call without spawning a process lives here.
+
+pub mod checkpoint;
+pub mod chips;
+pub mod config;
+pub mod data;
+pub mod device;
+pub mod fsutil;
+pub mod inspect;
+pub mod memplan;
+pub mod model;
+pub mod scenario;
+pub mod sim;

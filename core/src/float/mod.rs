@@ -271,6 +271,42 @@ impl<'a, R: Real> Twin<'a, R> {
         })
     }
 
+    /// Measures the gradients of `samples` without training (see
+    /// [`crate::train::Trainer::probe_gradients`]); read them with [`Twin::accumulators`],
+    /// then call [`Twin::clear_probe`].
+    ///
+    /// # Errors
+    /// [`Error::InvalidTraining`] while a batch is pending; sample errors as in [`Twin::step`].
+    pub fn probe_gradients<'s, I>(&mut self, samples: I) -> Result<u32, Error>
+    where
+        R: 's,
+        I: IntoIterator<Item = (&'s [R], FloatTarget<'s, R>)>,
+    {
+        if self.in_batch != 0 {
+            return Err(Error::InvalidTraining);
+        }
+        let mut n = 0;
+        for (x, t) in samples {
+            self.check(x, t)?;
+            self.forward(x);
+            self.loss(t, true);
+            for k in (self.plan.first_trainable..self.desc.layers.len()).rev() {
+                self.backward(k, x);
+            }
+            n += 1;
+        }
+        Ok(n)
+    }
+
+    /// Clears the accumulators after a probe.
+    pub fn clear_probe(&mut self) {
+        for s in self.plan.layers.iter().take(self.desc.layers.len()) {
+            let [aw, ab] = carve(self.arena, [s.accum_weight, s.accum_bias]);
+            aw.fill(R::ZERO);
+            ab.fill(R::ZERO);
+        }
+    }
+
     /// Applies a partial batch now. Returns whether it updated.
     pub fn flush(&mut self) -> bool {
         if self.in_batch == 0 || !self.plan.trains() {

@@ -396,6 +396,49 @@ impl<'a> Trainer<'a> {
         })
     }
 
+    /// Measures the gradients of `samples` under the current weights without training: the
+    /// sums land in the accumulators (read them with [`Trainer::accumulators`]) and nothing
+    /// else changes — not the weights, the statistics, the generator or the step count — so
+    /// a run that probes stays bit-identical to one that does not. Call
+    /// [`Trainer::clear_probe`] afterwards. Returns the number of samples probed.
+    ///
+    /// # Errors
+    /// [`Error::InvalidTraining`] while a batch is pending (flush first); sample errors as in
+    /// [`Trainer::step`].
+    pub fn probe_gradients<'s, I>(&mut self, samples: I) -> Result<u32, Error>
+    where
+        I: IntoIterator<Item = (Tensor<'s>, Target<'s>)>,
+    {
+        if self.in_batch != 0 {
+            return Err(Error::InvalidTraining);
+        }
+        let (stats, rng) = (self.stats, self.rng);
+        let mut n = 0u32;
+        let mut result = Ok(());
+        for (x, t) in samples {
+            if let Err(e) = self.check_sample(x, t) {
+                result = Err(e);
+                break;
+            }
+            let mut r = self.rng;
+            self.forward(x, &mut r, false);
+            self.loss(t, &mut r, true);
+            for k in (self.plan.first_trainable..self.desc.layers.len()).rev() {
+                self.backward(k, x, &mut r);
+            }
+            self.rng = r;
+            n += 1;
+        }
+        self.stats = stats;
+        self.rng = rng;
+        result.map(|_| n)
+    }
+
+    /// Clears what [`Trainer::probe_gradients`] left in the accumulators.
+    pub fn clear_probe(&mut self) {
+        self.clear_accumulators();
+    }
+
     /// Applies a partial batch now (dividing by the samples it holds), for example at the end
     /// of an epoch. Does nothing if no sample is pending. Returns whether it updated.
     pub fn flush(&mut self) -> bool {

@@ -1,0 +1,1482 @@
+//! CSV datasets: loading with checks that name the line and column, input scaling, and a
+//! seeded hold-out split.
+//!
+//! # The file
+//! A data file is CSV with a **header line** naming the columns, then one sample per line:
+//!
+//! ```text
+//! unit,raw_counts,temp_c,vwc
+//! 1,1647,7.16,0.3841
+//! 1,2316,32.64,0.1400
+//! ```
+//!
+//! - Fields are separated by commas and may be quoted; spaces around a field are dropped.
+//!   Blank lines and lines starting with `#` are skipped.
+//! - Every line has as many fields as the header. A last line cut short (a logger that lost
+//!   power mid-write) has too few fields and is reported like any other short line.
+//! - Feature and regression-target values are decimal numbers (`-0.25`, `1e-3`). NaN and
+//!   infinities are refused in every spelling (`nan`, `NaN`, `inf`, `-Infinity`, ...), and so
+//!   are numbers too large for `f64`, because one of them would poison every statistic.
+//! - Ignored columns are not read at all: they may hold text, such as a timestamp or a unit id.
+//!
+//! # Which columns are what
+//! A [`DataSpec`] names the target column(s) and the ignored ones, and either lists the feature
+//! columns in order or takes every other column in file order ([`FeatureSelect::AllOther`]).
+//!
+//! # Targets
+//! - Regression: one or more numeric columns ([`Targets::Values`]).
+//! - Classification: one column of class names or integers ([`Targets::Classes`]). The class
+//!   order, which fixes the meaning of each model output, is: ascending by value if every
+//!   label is an integer (`0, 1, 2, 3`, with `03` read as `3`), else the order of first
+//!   appearance in the file. A calibration file must use the classes of the trained model, so
+//!   [`Dataset::load_with_classes`] takes that list; a label outside it is an error naming its
+//!   line.
+//!
+//! # Scaling
+//! [`Scaling`] fits one offset and gain per input channel ([`ChannelScale`]:
+//! `x = (raw − offset) · gain`), and [`apply`] applies them. [`split`] divides a dataset into
+//! a training and a hold-out part with the core's seeded generator.
+
+use std::collections::HashMap;
+use std::fmt;
+use std::path::{Path, PathBuf};
+
+use hone_core::blob::ChannelScale;
+use hone_core::num::Rng;
+
+/// Which columns are the model's input features.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub enum FeatureSelect {
+    /// These columns, in this order (the order of the model's inputs).
+    Named(Vec<String>),
+    /// Every column that is neither a target nor ignored, in file order.
+    AllOther,
+}
+
+/// What the model learns to predict.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Task {
+    /// Numeric target column(s).
+    Regression,
+    /// One target column of class labels.
+    Classification,
+}
+
+impl fmt::Display for Task {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        f.write_str(match self {
+            Task::Regression => "regression",
+            Task::Classification => "classification",
+        })
+    }
+}
+
+/// How to read a data file: which columns are features, targets and ignored, and the task.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct DataSpec {
+    /// The feature columns.
+    pub features: FeatureSelect,
+    /// The target column(s): one for classification, one or more for regression.
+    pub target: Vec<String>,
+    /// Columns that are not read (ids, timestamps, notes).
+    pub ignore: Vec<String>,
+    /// Regression or classification.
+    pub task: Task,
+}
+
+/// The targets of a dataset, one entry per row.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Targets {
+    /// Regression targets.
+    Values {
+        /// Target column names, in the order of `y`'s entries.
+        names: Vec<String>,
+        /// Per row, one value per target column.
+        y: Vec<Vec<f64>>,
+    },
+    /// Class labels.
+    Classes {
+        /// Class names; label `i` means `names[i]`, and the model's output `i`.
+        names: Vec<String>,
+        /// Per row, the index of its class in `names`.
+        labels: Vec<u16>,
+    },
+}
+
+impl Targets {
+    /// Number of rows.
+    pub fn len(&self) -> usize {
+        match self {
+            Targets::Values { y, .. } => y.len(),
+            Targets::Classes { labels, .. } => labels.len(),
+        }
+    }
+
+    /// Whether there are no rows.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// The task these targets belong to.
+    pub fn task(&self) -> Task {
+        match self {
+            Targets::Values { .. } => Task::Regression,
+            Targets::Classes { .. } => Task::Classification,
+        }
+    }
+
+    /// The values the model must produce per sample: the number of target columns for
+    /// regression, the number of classes for classification.
+    pub fn outputs(&self) -> usize {
+        match self {
+            Targets::Values { names, .. } | Targets::Classes { names, .. } => names.len(),
+        }
+    }
+
+    fn select(&self, rows: &[usize]) -> Targets {
+        match self {
+            Targets::Values { names, y } => Targets::Values {
+                names: names.clone(),
+                y: rows.iter().map(|&r| y[r].clone()).collect(),
+            },
+            Targets::Classes { names, labels } => Targets::Classes {
+                names: names.clone(),
+                labels: rows.iter().map(|&r| labels[r]).collect(),
+            },
+        }
+    }
+}
+
+/// A loaded dataset: one row per sample.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Dataset {
+    /// The file it was read from (used in error messages).
+    pub source: PathBuf,
+    /// Feature column names, in the order of each row of `x`.
+    pub features: Vec<String>,
+    /// Per row, the feature values.
+    pub x: Vec<Vec<f64>>,
+    /// The targets.
+    pub target: Targets,
+}
+
+/// Everything that can be wrong with a data file, its column selection or its use.
+///
+/// Every message names the file, and the line (1-based, as an editor counts) and column where
+/// there is one, and says what to do.
+#[derive(Debug, thiserror::Error)]
+pub enum DataError {
+    /// The file could not be read.
+    #[error("{}: cannot read the data file: {source}", path.display())]
+    Io {
+        /// The file.
+        path: PathBuf,
+        /// Operating-system error.
+        #[source]
+        source: std::io::Error,
+    },
+    /// The file has no content.
+    #[error(
+        "{}: the file is empty; a data file needs a header line naming the columns and at \
+         least one data row",
+        path.display()
+    )]
+    Empty {
+        /// The file.
+        path: PathBuf,
+    },
+    /// The first line holds only numbers, so it is data, not a header.
+    #[error(
+        "{}: line {line} is `{text}`, all numbers, but the first line must name the columns; \
+         add a header line such as `{example}`",
+        path.display()
+    )]
+    NoHeader {
+        /// The file.
+        path: PathBuf,
+        /// Line of the first record.
+        line: u64,
+        /// The first record as read.
+        text: String,
+        /// A header the user could add.
+        example: String,
+    },
+    /// A header field is empty.
+    #[error(
+        "{}: line {line}: column {column} of the header has no name; name every column",
+        path.display()
+    )]
+    UnnamedColumn {
+        /// The file.
+        path: PathBuf,
+        /// Line of the header.
+        line: u64,
+        /// 1-based column number.
+        column: usize,
+    },
+    /// Two header fields have the same name.
+    #[error(
+        "{}: line {line}: the header names `{name}` twice (columns {first} and {second}); \
+         rename one of them",
+        path.display()
+    )]
+    DuplicateColumn {
+        /// The file.
+        path: PathBuf,
+        /// Line of the header.
+        line: u64,
+        /// The repeated name.
+        name: String,
+        /// 1-based column of the first occurrence.
+        first: usize,
+        /// 1-based column of the second occurrence.
+        second: usize,
+    },
+    /// A column named by the selection is not in the header.
+    #[error(
+        "{}: no column `{name}` (named as {role}); the header has: {}",
+        path.display(), header.join(", ")
+    )]
+    MissingColumn {
+        /// The file.
+        path: PathBuf,
+        /// The name looked for.
+        name: String,
+        /// Where the name came from: "a feature", "the target", "ignored".
+        role: &'static str,
+        /// The header's column names.
+        header: Vec<String>,
+    },
+    /// The column selection itself is contradictory.
+    #[error("{}: {message}", path.display())]
+    Selection {
+        /// The file.
+        path: PathBuf,
+        /// What is wrong and what to do.
+        message: String,
+    },
+    /// A line has a different number of fields from the header.
+    #[error(
+        "{}: line {line}: {found} fields, header has {expected}; {}",
+        path.display(),
+        if *found < *expected {
+            "the line may be cut short (a truncated last line?) or miss a value"
+        } else {
+            "the line may have a stray comma or an unquoted comma inside a value"
+        }
+    )]
+    FieldCount {
+        /// The file.
+        path: PathBuf,
+        /// Line of the record.
+        line: u64,
+        /// Fields found.
+        found: usize,
+        /// Fields in the header.
+        expected: usize,
+    },
+    /// A field that must hold a number is empty.
+    #[error(
+        "{}: line {line}, column `{column}`: the field is empty; fill in a value or delete \
+         the line",
+        path.display()
+    )]
+    EmptyField {
+        /// The file.
+        path: PathBuf,
+        /// Line of the record.
+        line: u64,
+        /// Column name.
+        column: String,
+    },
+    /// A field that must hold a number does not.
+    #[error(
+        "{}: line {line}, column `{column}`: `{value}` is not a number; correct it, or list \
+         the column under `ignore` if it is not an input",
+        path.display()
+    )]
+    NotNumber {
+        /// The file.
+        path: PathBuf,
+        /// Line of the record.
+        line: u64,
+        /// Column name.
+        column: String,
+        /// The text found.
+        value: String,
+    },
+    /// A field holds NaN, an infinity, or a number beyond the `f64` range.
+    #[error(
+        "{}: line {line}, column `{column}`: `{value}` is not a finite number (NaN and \
+         infinities are refused); replace it with a measured value or delete the line",
+        path.display()
+    )]
+    NotFinite {
+        /// The file.
+        path: PathBuf,
+        /// Line of the record.
+        line: u64,
+        /// Column name.
+        column: String,
+        /// The text found.
+        value: String,
+    },
+    /// The CSV structure is broken (bad quoting, invalid UTF-8 in a used column).
+    #[error("{}: line {line}: {message}", path.display())]
+    Csv {
+        /// The file.
+        path: PathBuf,
+        /// Line where the reader stopped.
+        line: u64,
+        /// What the reader found.
+        message: String,
+    },
+    /// The header is there but no data row follows.
+    #[error("{}: the file has a header but no data rows; add at least one sample", path.display())]
+    NoRows {
+        /// The file.
+        path: PathBuf,
+    },
+    /// A class label is not one of the classes the model was trained on.
+    #[error(
+        "{}: line {line}, column `{column}`: class `{value}` is not one of the model's \
+         classes ({}); correct the label or retrain with this class",
+        path.display(), known.join(", ")
+    )]
+    UnknownClass {
+        /// The file.
+        path: PathBuf,
+        /// Line of the record.
+        line: u64,
+        /// Target column.
+        column: String,
+        /// The label found.
+        value: String,
+        /// The classes the model knows.
+        known: Vec<String>,
+    },
+    /// A classification target column holds only one class.
+    #[error(
+        "{}: column `{column}` holds only the class `{class}`; classification needs samples \
+         of at least two classes",
+        path.display()
+    )]
+    SingleClass {
+        /// The file.
+        path: PathBuf,
+        /// Target column.
+        column: String,
+        /// The only class.
+        class: String,
+    },
+    /// More distinct classes than a `u16` label can number.
+    #[error(
+        "{}: column `{column}` holds more than {max} distinct classes; is it really a class \
+         label, or should the task be regression?",
+        path.display(), max = MAX_CLASSES
+    )]
+    TooManyClasses {
+        /// The file.
+        path: PathBuf,
+        /// Target column.
+        column: String,
+    },
+    /// The dataset's features do not match what a model expects.
+    #[error("{}: the features do not match the model: {detail}", path.display())]
+    FeatureMismatch {
+        /// The file.
+        path: PathBuf,
+        /// Which names differ and where.
+        detail: String,
+    },
+    /// A scaling or split request does not fit the dataset.
+    #[error("{}: {message}", path.display())]
+    Request {
+        /// The file the dataset came from.
+        path: PathBuf,
+        /// What is wrong and what to do.
+        message: String,
+    },
+}
+
+/// The most classes a classification target may have: labels are `u16`.
+pub const MAX_CLASSES: usize = u16::MAX as usize + 1;
+
+impl Dataset {
+    /// Reads a CSV file with the columns chosen by `spec`. For classification the classes are
+    /// found in the file (see the [module docs](self) for their order).
+    ///
+    /// # Errors
+    /// A [`DataError`] naming the file, line and column: unreadable or empty file, no header,
+    /// unnamed or duplicate columns, a selected column missing from the header, a line with
+    /// the wrong number of fields, an empty, non-numeric or non-finite value, no data rows, a
+    /// classification target with one class or more than [`MAX_CLASSES`].
+    pub fn load(path: &Path, spec: &DataSpec) -> Result<Dataset, DataError> {
+        let bytes = read(path)?;
+        Dataset::from_bytes(path, &bytes, spec, None)
+    }
+
+    /// Like [`Dataset::load`] for classification with the class list of a trained model, so
+    /// that label `i` means the same class as when the model was trained. The file may hold
+    /// any subset of the classes, even a single one.
+    ///
+    /// # Errors
+    /// As [`Dataset::load`], and [`DataError::UnknownClass`] for a label not in `classes`.
+    /// A regression `spec` with a class list is a [`DataError::Selection`] error.
+    pub fn load_with_classes(
+        path: &Path,
+        spec: &DataSpec,
+        classes: &[String],
+    ) -> Result<Dataset, DataError> {
+        let bytes = read(path)?;
+        Dataset::from_bytes(path, &bytes, spec, Some(classes))
+    }
+
+    /// Parses CSV text already in memory; `source` names it in errors. `classes` is the class
+    /// list of a trained model, as in [`Dataset::load_with_classes`].
+    ///
+    /// # Errors
+    /// As [`Dataset::load_with_classes`], without the I/O errors.
+    pub fn from_bytes(
+        source: &Path,
+        bytes: &[u8],
+        spec: &DataSpec,
+        classes: Option<&[String]>,
+    ) -> Result<Dataset, DataError> {
+        Loader::new(source, spec, classes)?.run(bytes)
+    }
+
+    /// Number of samples.
+    pub fn len(&self) -> usize {
+        self.x.len()
+    }
+
+    /// Whether there are no samples.
+    pub fn is_empty(&self) -> bool {
+        self.x.is_empty()
+    }
+
+    /// The class names of a classification dataset, in label order.
+    pub fn classes(&self) -> Option<&[String]> {
+        match &self.target {
+            Targets::Classes { names, .. } => Some(names),
+            Targets::Values { .. } => None,
+        }
+    }
+
+    /// Checks that the feature columns are exactly `expected`, by name and in order, as a
+    /// model trained on other data requires.
+    ///
+    /// # Errors
+    /// [`DataError::FeatureMismatch`] saying which names are missing, extra or out of place.
+    pub fn check_features(&self, expected: &[String]) -> Result<(), DataError> {
+        if self.features == expected {
+            return Ok(());
+        }
+        let missing: Vec<&str> = expected
+            .iter()
+            .filter(|e| !self.features.contains(e))
+            .map(String::as_str)
+            .collect();
+        let extra: Vec<&str> = self
+            .features
+            .iter()
+            .filter(|f| !expected.contains(f))
+            .map(String::as_str)
+            .collect();
+        let mut parts = vec![format!(
+            "the model takes {} features, the file gives {}",
+            expected.len(),
+            self.features.len()
+        )];
+        if !missing.is_empty() {
+            parts.push(format!("missing {}", quoted_list(&missing)));
+        }
+        if !extra.is_empty() {
+            parts.push(format!(
+                "not in the model {} (list them under `ignore`)",
+                quoted_list(&extra)
+            ));
+        }
+        if missing.is_empty() && extra.is_empty() {
+            // Same names, another order: name the first position that differs.
+            if let Some((i, (want, got))) = expected
+                .iter()
+                .zip(&self.features)
+                .enumerate()
+                .find(|(_, (a, b))| a != b)
+            {
+                parts.push(format!(
+                    "feature {} should be `{want}` but is `{got}`; list the features in the \
+                     model's order",
+                    i + 1
+                ));
+            }
+        }
+        Err(DataError::FeatureMismatch {
+            path: self.source.clone(),
+            detail: parts.join("; "),
+        })
+    }
+
+    fn select(&self, rows: &[usize]) -> Dataset {
+        Dataset {
+            source: self.source.clone(),
+            features: self.features.clone(),
+            x: rows.iter().map(|&r| self.x[r].clone()).collect(),
+            target: self.target.select(rows),
+        }
+    }
+}
+
+fn read(path: &Path) -> Result<Vec<u8>, DataError> {
+    std::fs::read(path).map_err(|source| DataError::Io {
+        path: path.to_path_buf(),
+        source,
+    })
+}
+
+fn quoted_list(names: &[&str]) -> String {
+    names
+        .iter()
+        .map(|n| format!("`{n}`"))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// Canonical text of a class label: integers lose signs and leading zeros (`+03` is `3`).
+fn canonical_label(text: &str) -> String {
+    match text.parse::<i64>() {
+        Ok(v) => v.to_string(),
+        Err(_) => text.to_string(),
+    }
+}
+
+/// Parses a number, refusing NaN, infinities and overflow.
+fn parse_number(path: &Path, line: u64, column: &str, text: &str) -> Result<f64, DataError> {
+    if text.is_empty() {
+        return Err(DataError::EmptyField {
+            path: path.to_path_buf(),
+            line,
+            column: column.to_string(),
+        });
+    }
+    match text.parse::<f64>() {
+        Ok(v) if v.is_finite() => Ok(v),
+        Ok(_) => Err(DataError::NotFinite {
+            path: path.to_path_buf(),
+            line,
+            column: column.to_string(),
+            value: text.to_string(),
+        }),
+        Err(_) => Err(DataError::NotNumber {
+            path: path.to_path_buf(),
+            line,
+            column: column.to_string(),
+            value: text.to_string(),
+        }),
+    }
+}
+
+/// The column plan of one load, and the rows read so far.
+struct Loader<'a> {
+    path: &'a Path,
+    spec: &'a DataSpec,
+    classes: Option<&'a [String]>,
+}
+
+/// Resolved column indices.
+struct Columns {
+    header: Vec<String>,
+    features: Vec<usize>,
+    targets: Vec<usize>,
+}
+
+impl<'a> Loader<'a> {
+    fn new(
+        path: &'a Path,
+        spec: &'a DataSpec,
+        classes: Option<&'a [String]>,
+    ) -> Result<Loader<'a>, DataError> {
+        let selection = |message: String| DataError::Selection {
+            path: path.to_path_buf(),
+            message,
+        };
+        if spec.target.is_empty() {
+            return Err(selection(
+                "no target column is named; name the column the model predicts".into(),
+            ));
+        }
+        if spec.task == Task::Classification && spec.target.len() != 1 {
+            return Err(selection(format!(
+                "classification takes one target column of labels, {} are named ({})",
+                spec.target.len(),
+                spec.target.join(", ")
+            )));
+        }
+        if classes.is_some() && spec.task == Task::Regression {
+            return Err(selection(
+                "a class list was given for a regression dataset; classes apply only to \
+                 classification"
+                    .into(),
+            ));
+        }
+        if let Some(c) = classes {
+            if c.len() < 2 || c.len() > MAX_CLASSES {
+                return Err(selection(format!(
+                    "the model's class list has {} entries; it needs 2 to {MAX_CLASSES}",
+                    c.len()
+                )));
+            }
+        }
+        // Each name may have one role only.
+        let mut roles: HashMap<&str, &'static str> = HashMap::new();
+        let features: &[String] = match &spec.features {
+            FeatureSelect::Named(f) => f,
+            FeatureSelect::AllOther => &[],
+        };
+        for (names, role) in [
+            (&spec.target[..], "the target"),
+            (&spec.ignore[..], "ignored"),
+            (features, "a feature"),
+        ] {
+            for n in names {
+                if let Some(prev) = roles.insert(n.as_str(), role) {
+                    return Err(selection(if prev == role {
+                        format!("column `{n}` is named twice as {role}; name it once")
+                    } else {
+                        format!(
+                            "column `{n}` is named both as {prev} and as {role}; give each \
+                             column one role"
+                        )
+                    }));
+                }
+            }
+        }
+        Ok(Loader {
+            path,
+            spec,
+            classes,
+        })
+    }
+
+    fn err_path(&self) -> PathBuf {
+        self.path.to_path_buf()
+    }
+
+    fn columns(&self, header: Vec<String>, line: u64) -> Result<Columns, DataError> {
+        let mut seen: HashMap<&str, usize> = HashMap::new();
+        for (i, name) in header.iter().enumerate() {
+            if name.is_empty() {
+                return Err(DataError::UnnamedColumn {
+                    path: self.err_path(),
+                    line,
+                    column: i + 1,
+                });
+            }
+            if let Some(first) = seen.insert(name, i) {
+                return Err(DataError::DuplicateColumn {
+                    path: self.err_path(),
+                    line,
+                    name: name.clone(),
+                    first: first + 1,
+                    second: i + 1,
+                });
+            }
+        }
+        let find = |name: &String, role: &'static str| -> Result<usize, DataError> {
+            seen.get(name.as_str())
+                .copied()
+                .ok_or_else(|| DataError::MissingColumn {
+                    path: self.err_path(),
+                    name: name.clone(),
+                    role,
+                    header: header.clone(),
+                })
+        };
+        let targets = self
+            .spec
+            .target
+            .iter()
+            .map(|n| find(n, "the target"))
+            .collect::<Result<Vec<_>, _>>()?;
+        for n in &self.spec.ignore {
+            find(n, "ignored")?;
+        }
+        let features = match &self.spec.features {
+            FeatureSelect::Named(names) => names
+                .iter()
+                .map(|n| find(n, "a feature"))
+                .collect::<Result<Vec<_>, _>>()?,
+            FeatureSelect::AllOther => (0..header.len())
+                .filter(|i| {
+                    !targets.contains(i) && !self.spec.ignore.iter().any(|n| *n == header[*i])
+                })
+                .collect(),
+        };
+        if features.is_empty() {
+            return Err(DataError::Selection {
+                path: self.err_path(),
+                message: format!(
+                    "no feature columns are left after the target and ignored columns; the \
+                     header has: {}",
+                    header.join(", ")
+                ),
+            });
+        }
+        Ok(Columns {
+            header,
+            features,
+            targets,
+        })
+    }
+
+    fn run(&self, bytes: &[u8]) -> Result<Dataset, DataError> {
+        if bytes.iter().all(u8::is_ascii_whitespace) {
+            return Err(DataError::Empty {
+                path: self.err_path(),
+            });
+        }
+        let mut reader = csv::ReaderBuilder::new()
+            .has_headers(false)
+            .flexible(true)
+            .trim(csv::Trim::All)
+            .comment(Some(b'#'))
+            .from_reader(bytes);
+        let mut record = csv::ByteRecord::new();
+        // The reader's own line count skips comment lines, so lines are counted here from the
+        // byte offset of each record.
+        let newlines: Vec<usize> = bytes
+            .iter()
+            .enumerate()
+            .filter_map(|(i, &b)| (b == b'\n').then_some(i))
+            .collect();
+        let line_at = |pos: Option<&csv::Position>| -> u64 {
+            // A record's position is where the reader started looking for it, before the
+            // blank and comment lines it skipped; step over those to the record's own line.
+            let mut byte = pos.map_or(0, |p| p.byte() as usize);
+            while let Some(&b) = bytes.get(byte) {
+                if !matches!(b, b'\n' | b'\r' | b'#') {
+                    break;
+                }
+                byte = match (b, bytes[byte..].iter().position(|&c| c == b'\n')) {
+                    (b'#', Some(nl)) => byte + nl + 1,
+                    (b'#', None) => bytes.len(),
+                    _ => byte + 1,
+                };
+            }
+            newlines.partition_point(|&nl| nl < byte) as u64 + 1
+        };
+        let csv_err = |e: csv::Error| DataError::Csv {
+            path: self.err_path(),
+            line: line_at(e.position()),
+            message: e.to_string(),
+        };
+        let blank = |r: &csv::ByteRecord| r.len() == 1 && r[0].is_empty();
+        loop {
+            if !reader.read_byte_record(&mut record).map_err(csv_err)? {
+                // Only comments and blank lines.
+                return Err(DataError::Empty {
+                    path: self.err_path(),
+                });
+            }
+            if !blank(&record) {
+                break;
+            }
+        }
+        let header_line = line_at(record.position());
+        let header = self.header(&record, header_line)?;
+        let cols = self.columns(header, header_line)?;
+        let width = cols.header.len();
+
+        let mut x = Vec::new();
+        let mut values: Vec<Vec<f64>> = Vec::new();
+        let mut labels: Vec<(u64, String)> = Vec::new();
+        while reader.read_byte_record(&mut record).map_err(csv_err)? {
+            let line = line_at(record.position());
+            if blank(&record) {
+                // A line of spaces only.
+                continue;
+            }
+            if record.len() != width {
+                return Err(DataError::FieldCount {
+                    path: self.err_path(),
+                    line,
+                    found: record.len(),
+                    expected: width,
+                });
+            }
+            let field = |i: usize| self.text(&record, i, line, &cols.header[i]);
+            let mut row = Vec::with_capacity(cols.features.len());
+            for &i in &cols.features {
+                row.push(parse_number(self.path, line, &cols.header[i], field(i)?)?);
+            }
+            x.push(row);
+            match self.spec.task {
+                Task::Regression => {
+                    let mut y = Vec::with_capacity(cols.targets.len());
+                    for &i in &cols.targets {
+                        y.push(parse_number(self.path, line, &cols.header[i], field(i)?)?);
+                    }
+                    values.push(y);
+                }
+                Task::Classification => {
+                    let i = cols.targets[0];
+                    let text = field(i)?;
+                    if text.is_empty() {
+                        return Err(DataError::EmptyField {
+                            path: self.err_path(),
+                            line,
+                            column: cols.header[i].clone(),
+                        });
+                    }
+                    labels.push((line, text.to_string()));
+                }
+            }
+        }
+        if x.is_empty() {
+            return Err(DataError::NoRows {
+                path: self.err_path(),
+            });
+        }
+        let target = match self.spec.task {
+            Task::Regression => Targets::Values {
+                names: cols
+                    .targets
+                    .iter()
+                    .map(|&i| cols.header[i].clone())
+                    .collect(),
+                y: values,
+            },
+            Task::Classification => self.classes_of(&cols.header[cols.targets[0]], &labels)?,
+        };
+        Ok(Dataset {
+            source: self.err_path(),
+            features: cols
+                .features
+                .iter()
+                .map(|&i| cols.header[i].clone())
+                .collect(),
+            x,
+            target,
+        })
+    }
+
+    fn text<'r>(
+        &self,
+        record: &'r csv::ByteRecord,
+        i: usize,
+        line: u64,
+        column: &str,
+    ) -> Result<&'r str, DataError> {
+        let bytes = record.get(i).unwrap_or_default();
+        std::str::from_utf8(bytes).map_err(|_| DataError::Csv {
+            path: self.err_path(),
+            line,
+            message: format!(
+                "column `{column}` holds bytes that are not UTF-8 text; save the file as UTF-8"
+            ),
+        })
+    }
+
+    fn header(&self, record: &csv::ByteRecord, line: u64) -> Result<Vec<String>, DataError> {
+        let mut header = Vec::with_capacity(record.len());
+        for (i, bytes) in record.iter().enumerate() {
+            let mut name = String::from_utf8(bytes.to_vec()).map_err(|_| DataError::Csv {
+                path: self.err_path(),
+                line,
+                message: format!(
+                    "header column {} is not UTF-8 text; save the file as UTF-8",
+                    i + 1
+                ),
+            })?;
+            if i == 0 {
+                if let Some(rest) = name.strip_prefix('\u{feff}') {
+                    name = rest.trim().to_string();
+                }
+            }
+            header.push(name);
+        }
+        let numeric = header
+            .iter()
+            .all(|h| !h.is_empty() && h.parse::<f64>().is_ok());
+        if numeric {
+            let mut example: Vec<String> = Vec::new();
+            let named: Vec<&String> = self
+                .spec
+                .target
+                .iter()
+                .chain(&self.spec.ignore)
+                .chain(match &self.spec.features {
+                    FeatureSelect::Named(f) => f.iter(),
+                    FeatureSelect::AllOther => [].iter(),
+                })
+                .collect();
+            for i in 0..header.len() {
+                example.push(match named.get(i) {
+                    Some(n) if header.len() == named.len() => (*n).clone(),
+                    _ => format!("c{}", i + 1),
+                });
+            }
+            return Err(DataError::NoHeader {
+                path: self.err_path(),
+                line,
+                text: header.join(","),
+                example: example.join(","),
+            });
+        }
+        Ok(header)
+    }
+
+    fn classes_of(&self, column: &str, labels: &[(u64, String)]) -> Result<Targets, DataError> {
+        let names: Vec<String> = match self.classes {
+            Some(given) => given.to_vec(),
+            None => {
+                let mut found: Vec<String> = Vec::new();
+                let mut seen: HashMap<String, ()> = HashMap::new();
+                for (_, l) in labels {
+                    let c = canonical_label(l);
+                    if seen.insert(c.clone(), ()).is_none() {
+                        found.push(c);
+                        if found.len() > MAX_CLASSES {
+                            return Err(DataError::TooManyClasses {
+                                path: self.err_path(),
+                                column: column.to_string(),
+                            });
+                        }
+                    }
+                }
+                let ints: Option<Vec<i64>> = found.iter().map(|s| s.parse().ok()).collect();
+                if let Some(mut ints) = ints {
+                    ints.sort_unstable();
+                    found = ints.iter().map(i64::to_string).collect();
+                }
+                if found.len() == 1 {
+                    return Err(DataError::SingleClass {
+                        path: self.err_path(),
+                        column: column.to_string(),
+                        class: found.swap_remove(0),
+                    });
+                }
+                found
+            }
+        };
+        let index: HashMap<String, u16> = names
+            .iter()
+            .enumerate()
+            // At most MAX_CLASSES names, checked above, so every index fits a u16.
+            .map(|(i, n)| (canonical_label(n), i as u16))
+            .collect();
+        let mut out = Vec::with_capacity(labels.len());
+        for (line, l) in labels {
+            match index.get(&canonical_label(l)) {
+                Some(&i) => out.push(i),
+                None => {
+                    return Err(DataError::UnknownClass {
+                        path: self.err_path(),
+                        line: *line,
+                        column: column.to_string(),
+                        value: l.clone(),
+                        known: names.clone(),
+                    })
+                }
+            }
+        }
+        Ok(Targets::Classes { names, labels: out })
+    }
+}
+
+/// A channel whose values do not vary in the data, so its standard deviation is zero. It gets
+/// gain 1 (the scaled values are then all zero); the model learns nothing from it.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ConstantChannel {
+    /// Channel index.
+    pub channel: usize,
+    /// The channel's columns: one name, or `first … last` for a window.
+    pub columns: String,
+    /// Its value (the mean; all values are within about 1e-9 of it, relative).
+    pub value: f64,
+}
+
+impl fmt::Display for ConstantChannel {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "channel {} ({}) is constant at {}; it was given gain 1 and carries no information, \
+             so check the sensor or drop the column",
+            self.channel, self.columns, self.value
+        )
+    }
+}
+
+/// Input scaling fitted on a dataset: one [`ChannelScale`] per input channel, and the
+/// channels that could not be standardized.
+///
+/// Standardizing means `offset = mean` and `gain = 1 / std` (population standard deviation,
+/// dividing by the number of values), so the scaled training data of each channel have mean
+/// 0 and standard deviation 1, and fit an input format such as Q3.12 (range ±8) with room
+/// for outliers up to 8 standard deviations. Statistics are computed in `f64`; the stored
+/// offset and gain are `f32`, as the device uses them.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Scaling {
+    /// One entry per channel.
+    pub scales: Vec<ChannelScale>,
+    /// Channels with zero spread (see [`ConstantChannel`]).
+    pub constant: Vec<ConstantChannel>,
+}
+
+impl Scaling {
+    /// Standardizes each feature column on its own: one channel per feature (tabular data,
+    /// `channels = features, length = 1`).
+    pub fn fit_standardize(data: &Dataset) -> Scaling {
+        fit(data, data.features.len().max(1))
+    }
+
+    /// Standardizes per channel for inputs with several samples per channel. The features are
+    /// read channel-major (`[c][t]`): channel `c` is the contiguous run of
+    /// `len = features / channels` columns starting at column `c · len`, and all of its values
+    /// over all rows share one offset and one gain. For a single-channel window of 64 samples
+    /// (`s0 … s63`), `channels = 1` gives one offset and gain for the whole window, which keeps
+    /// the relative amplitude of the samples intact.
+    ///
+    /// # Errors
+    /// [`DataError::Request`] if `channels` is zero or does not divide the feature count.
+    pub fn fit_per_channel(data: &Dataset, channels: usize) -> Result<Scaling, DataError> {
+        check_channels(data, channels)?;
+        Ok(fit(data, channels))
+    }
+
+    /// Applies this scaling to `data` in place; see [`apply`].
+    ///
+    /// # Errors
+    /// As [`apply`].
+    pub fn apply(&self, data: &mut Dataset) -> Result<(), DataError> {
+        apply(&self.scales, data)
+    }
+}
+
+fn check_channels(data: &Dataset, channels: usize) -> Result<(), DataError> {
+    let n = data.features.len();
+    if channels == 0 || !n.is_multiple_of(channels) {
+        return Err(DataError::Request {
+            path: data.source.clone(),
+            message: format!(
+                "{n} feature columns cannot be split into {channels} channels of equal length; \
+                 the model's input must have channels × length = {n}"
+            ),
+        });
+    }
+    Ok(())
+}
+
+/// Fits `channels` channels; the caller has checked that `channels` divides the features.
+fn fit(data: &Dataset, channels: usize) -> Scaling {
+    let len = data.features.len() / channels;
+    let mut scales = Vec::with_capacity(channels);
+    let mut constant = Vec::new();
+    for c in 0..channels {
+        let cols = c * len..(c + 1) * len;
+        let count = (data.x.len() * len) as f64;
+        let mean = if count > 0.0 {
+            data.x
+                .iter()
+                .map(|r| r[cols.clone()].iter().sum::<f64>())
+                .sum::<f64>()
+                / count
+        } else {
+            0.0
+        };
+        let var = if count > 0.0 {
+            data.x
+                .iter()
+                .map(|r| {
+                    r[cols.clone()]
+                        .iter()
+                        .map(|v| (v - mean) * (v - mean))
+                        .sum::<f64>()
+                })
+                .sum::<f64>()
+                / count
+        } else {
+            0.0
+        };
+        let std = var.sqrt();
+        let gain = (1.0 / std) as f32;
+        if std <= 1e-9 * mean.abs().max(1.0) || !gain.is_finite() || gain == 0.0 {
+            let columns = if len == 1 {
+                data.features[cols.start].clone()
+            } else {
+                format!(
+                    "{} … {}",
+                    data.features[cols.start],
+                    data.features[cols.end - 1]
+                )
+            };
+            constant.push(ConstantChannel {
+                channel: c,
+                columns,
+                value: mean,
+            });
+            scales.push(ChannelScale {
+                offset: mean as f32,
+                gain: 1.0,
+            });
+        } else {
+            scales.push(ChannelScale {
+                offset: mean as f32,
+                gain,
+            });
+        }
+    }
+    Scaling { scales, constant }
+}
+
+/// Applies per-channel scaling in place: each feature value `v` of channel `c` becomes
+/// `(v − offset_c) · gain_c`, computed in `f64` from the `f32` offset and gain, exactly as
+/// stored for the device. With `n` scales and `F` features, each channel is a contiguous run of
+/// `F / n` columns (channel-major), as in [`Scaling::fit_per_channel`].
+///
+/// # Errors
+/// [`DataError::Request`] if there are no scales or their number does not divide the feature
+/// count.
+pub fn apply(scales: &[ChannelScale], data: &mut Dataset) -> Result<(), DataError> {
+    check_channels(data, scales.len())?;
+    let len = data.features.len() / scales.len();
+    for row in &mut data.x {
+        for (c, s) in scales.iter().enumerate() {
+            let (offset, gain) = (f64::from(s.offset), f64::from(s.gain));
+            for v in &mut row[c * len..(c + 1) * len] {
+                *v = (*v - offset) * gain;
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Splits a dataset into a training part and a hold-out part, deterministically for a seed.
+///
+/// Rows are grouped into strata: one per class for classification (so each class keeps its
+/// share in both parts), a single one for regression. From each stratum of `n` rows,
+/// `round(n · holdout_fraction)` rows go to the hold-out, but never all of them: every stratum
+/// keeps at least one row for training. Which rows go is decided by a Fisher–Yates shuffle of
+/// the stratum with the core's [`Rng`] seeded with `seed`. Both parts keep the file order of
+/// their rows.
+///
+/// # Errors
+/// [`DataError::Request`] if `holdout_fraction` is not in `[0, 1)`.
+pub fn split(
+    data: &Dataset,
+    holdout_fraction: f64,
+    seed: u64,
+) -> Result<(Dataset, Dataset), DataError> {
+    if !(0.0..1.0).contains(&holdout_fraction) {
+        return Err(DataError::Request {
+            path: data.source.clone(),
+            message: format!(
+                "hold-out fraction {holdout_fraction} is outside [0, 1); use for example 0.2 \
+                 to keep a fifth of the rows for evaluation"
+            ),
+        });
+    }
+    let strata: Vec<Vec<usize>> = match &data.target {
+        Targets::Values { .. } => vec![(0..data.len()).collect()],
+        Targets::Classes { names, labels } => {
+            let mut s = vec![Vec::new(); names.len()];
+            for (row, &l) in labels.iter().enumerate() {
+                s[l as usize].push(row);
+            }
+            s
+        }
+    };
+    let mut rng = Rng::new(seed);
+    let mut held = vec![false; data.len()];
+    for mut rows in strata {
+        let n = rows.len();
+        if n == 0 {
+            continue;
+        }
+        let k = ((n as f64 * holdout_fraction).round() as usize).min(n - 1);
+        // Fisher–Yates from the back: after the loop, the last `k` positions hold a uniformly
+        // chosen subset.
+        for i in (n - k..n).rev() {
+            let j = rng.below(i as u64 + 1) as usize;
+            rows.swap(i, j);
+        }
+        for &r in &rows[n - k..] {
+            held[r] = true;
+        }
+    }
+    let train: Vec<usize> = (0..data.len()).filter(|&r| !held[r]).collect();
+    let hold: Vec<usize> = (0..data.len()).filter(|&r| held[r]).collect();
+    Ok((data.select(&train), data.select(&hold)))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn spec(target: &str, ignore: &[&str], task: Task) -> DataSpec {
+        DataSpec {
+            features: FeatureSelect::AllOther,
+            target: vec![target.to_string()],
+            ignore: ignore.iter().map(|s| s.to_string()).collect(),
+            task,
+        }
+    }
+
+    fn load(text: &str, spec: &DataSpec) -> Result<Dataset, DataError> {
+        Dataset::from_bytes(Path::new("t.csv"), text.as_bytes(), spec, None)
+    }
+
+    #[test]
+    fn reads_features_and_targets() {
+        let d = load(
+            "unit,raw,temp,vwc\n1,1647,7.16,0.3841\n# a comment\n\n2, 2316 ,32.64,0.14",
+            &spec("vwc", &["unit"], Task::Regression),
+        )
+        .unwrap();
+        assert_eq!(d.features, ["raw", "temp"]);
+        assert_eq!(d.x, vec![vec![1647.0, 7.16], vec![2316.0, 32.64]]);
+        assert_eq!(
+            d.target,
+            Targets::Values {
+                names: vec!["vwc".into()],
+                y: vec![vec![0.3841], vec![0.14]]
+            }
+        );
+    }
+
+    #[test]
+    fn lines_count_comments_and_blank_lines() {
+        let text = "# probe 7\n\na,y\n# bench run 2\n1,2\n\n  \n# end\n3,x\n";
+        let e = load(text, &spec("y", &[], Task::Regression)).unwrap_err();
+        assert!(matches!(e, DataError::NotNumber { line: 9, .. }), "{e}");
+        let e = load("# c\n  \na,a\n1,2\n", &spec("y", &[], Task::Regression)).unwrap_err();
+        assert!(
+            matches!(e, DataError::DuplicateColumn { line: 3, .. }),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn named_features_keep_their_order() {
+        let s = DataSpec {
+            features: FeatureSelect::Named(vec!["b".into(), "a".into()]),
+            target: vec!["y".into(), "z".into()],
+            ignore: vec![],
+            task: Task::Regression,
+        };
+        let d = load("a,b,c,y,z\n1,2,x,3,4\n", &s).unwrap();
+        assert_eq!(d.features, ["b", "a"]);
+        assert_eq!(d.x, vec![vec![2.0, 1.0]]);
+        assert_eq!(d.target.outputs(), 2);
+    }
+
+    #[test]
+    fn every_spelling_of_nan_and_infinity_is_refused() {
+        for bad in ["nan", "NaN", "inf", "-inf", "+Infinity", "INF", "1e999"] {
+            let e = load(
+                &format!("a,y\n1,2\n{bad},3\n"),
+                &spec("y", &[], Task::Regression),
+            )
+            .unwrap_err();
+            assert!(
+                matches!(e, DataError::NotFinite { line: 3, .. }),
+                "{bad}: {e}"
+            );
+            assert!(e.to_string().contains("line 3, column `a`"), "{e}");
+        }
+    }
+
+    #[test]
+    fn integer_classes_sort_by_value() {
+        let d = load(
+            "a,zone\n1,10\n2,2\n3,03\n4,2\n",
+            &spec("zone", &[], Task::Classification),
+        )
+        .unwrap();
+        assert_eq!(
+            d.target,
+            Targets::Classes {
+                names: vec!["2".into(), "3".into(), "10".into()],
+                labels: vec![2, 0, 1, 0]
+            }
+        );
+    }
+
+    #[test]
+    fn text_classes_keep_first_appearance() {
+        let d = load(
+            "a,state\n1,wet\n2,dry\n3,wet\n4,moist\n",
+            &spec("state", &[], Task::Classification),
+        )
+        .unwrap();
+        assert_eq!(d.classes().unwrap(), ["wet", "dry", "moist"]);
+        let Targets::Classes { labels, .. } = &d.target else {
+            panic!("classification targets expected")
+        };
+        assert_eq!(labels, &[0, 1, 0, 2]);
+    }
+
+    #[test]
+    fn given_classes_fix_the_mapping_and_allow_one_class() {
+        let classes: Vec<String> = ["0", "1", "2", "3"].iter().map(|s| s.to_string()).collect();
+        let s = spec("zone", &[], Task::Classification);
+        let d = Dataset::from_bytes(
+            Path::new("c.csv"),
+            b"a,zone\n1,2\n2,2\n",
+            &s,
+            Some(&classes),
+        )
+        .unwrap();
+        let Targets::Classes { names, labels } = &d.target else {
+            panic!("classification targets expected")
+        };
+        assert_eq!(names, &classes);
+        assert_eq!(labels, &[2, 2]);
+        let e = Dataset::from_bytes(
+            Path::new("c.csv"),
+            b"a,zone\n1,2\n2,7\n",
+            &s,
+            Some(&classes),
+        )
+        .unwrap_err();
+        assert!(matches!(e, DataError::UnknownClass { line: 3, .. }), "{e}");
+    }
+
+    #[test]
+    fn check_features_names_the_difference() {
+        let d = load("a,b,y\n1,2,3\n", &spec("y", &[], Task::Regression)).unwrap();
+        assert!(d.check_features(&["a".into(), "b".into()]).is_ok());
+        let e = d.check_features(&["b".into(), "a".into()]).unwrap_err();
+        assert!(
+            e.to_string().contains("feature 1 should be `b` but is `a`"),
+            "{e}"
+        );
+        let e = d.check_features(&["a".into(), "c".into()]).unwrap_err();
+        let text = e.to_string();
+        assert!(
+            text.contains("missing `c`") && text.contains("not in the model `b`"),
+            "{text}"
+        );
+    }
+
+    fn data(x: Vec<Vec<f64>>, features: &[&str]) -> Dataset {
+        let n = x.len();
+        Dataset {
+            source: PathBuf::from("m.csv"),
+            features: features.iter().map(|s| s.to_string()).collect(),
+            x,
+            target: Targets::Values {
+                names: vec!["y".into()],
+                y: vec![vec![0.0]; n],
+            },
+        }
+    }
+
+    #[test]
+    fn standardize_gives_zero_mean_unit_std() {
+        // Column a: 1, 2, 3, 6 has mean 3, population variance (4+1+0+9)/4 = 3.5.
+        let mut d = data(
+            vec![
+                vec![1.0, 5.0],
+                vec![2.0, 5.0],
+                vec![3.0, 5.0],
+                vec![6.0, 5.0],
+            ],
+            &["a", "b"],
+        );
+        let s = Scaling::fit_standardize(&d);
+        assert_eq!(s.scales[0].offset, 3.0);
+        assert_eq!(s.scales[0].gain, (1.0 / 3.5f64.sqrt()) as f32);
+        assert_eq!(
+            s.scales[1],
+            ChannelScale {
+                offset: 5.0,
+                gain: 1.0
+            }
+        );
+        assert_eq!(s.constant.len(), 1);
+        assert_eq!(s.constant[0].columns, "b");
+        s.apply(&mut d).unwrap();
+        let col: Vec<f64> = d.x.iter().map(|r| r[0]).collect();
+        let mean = col.iter().sum::<f64>() / 4.0;
+        let var = col.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / 4.0;
+        assert!(mean.abs() < 1e-6, "{mean}");
+        assert!((var - 1.0).abs() < 1e-6, "{var}");
+        assert!(d.x.iter().all(|r| r[1] == 0.0));
+    }
+
+    #[test]
+    fn per_channel_pools_each_run_of_columns() {
+        // Two channels of two samples: channel 0 = columns 0-1, channel 1 = columns 2-3.
+        let d = data(
+            vec![vec![0.0, 2.0, 10.0, 10.0], vec![4.0, 6.0, 30.0, 30.0]],
+            &["a0", "a1", "b0", "b1"],
+        );
+        let s = Scaling::fit_per_channel(&d, 2).unwrap();
+        // Channel 0 values 0, 2, 4, 6: mean 3, variance (9+1+1+9)/4 = 5.
+        assert_eq!(s.scales[0].offset, 3.0);
+        assert_eq!(s.scales[0].gain, (1.0 / 5f64.sqrt()) as f32);
+        // Channel 1 values 10, 10, 30, 30: mean 20, std 10.
+        assert_eq!(
+            s.scales[1],
+            ChannelScale {
+                offset: 20.0,
+                gain: 0.1
+            }
+        );
+        assert!(s.constant.is_empty());
+        assert!(Scaling::fit_per_channel(&d, 3).is_err());
+        assert!(Scaling::fit_per_channel(&d, 0).is_err());
+        let mut d2 = d.clone();
+        assert!(apply(&s.scales[..1], &mut d2).is_ok());
+        assert!(apply(&[], &mut d2).is_err());
+    }
+
+    fn classes(labels: &[u16], names: usize) -> Dataset {
+        Dataset {
+            source: PathBuf::from("k.csv"),
+            features: vec!["a".into()],
+            x: (0..labels.len()).map(|i| vec![i as f64]).collect(),
+            target: Targets::Classes {
+                names: (0..names).map(|i| i.to_string()).collect(),
+                labels: labels.to_vec(),
+            },
+        }
+    }
+
+    #[test]
+    fn split_is_stratified_deterministic_and_complete() {
+        let labels: Vec<u16> = (0..100).map(|i| if i < 80 { 0 } else { 1 }).collect();
+        let d = classes(&labels, 2);
+        let (train, hold) = split(&d, 0.25, 9).unwrap();
+        let count = |ds: &Dataset, c: u16| match &ds.target {
+            Targets::Classes { labels, .. } => labels.iter().filter(|&&l| l == c).count(),
+            Targets::Values { .. } => 0,
+        };
+        assert_eq!((count(&hold, 0), count(&hold, 1)), (20, 5));
+        assert_eq!((count(&train, 0), count(&train, 1)), (60, 15));
+        // Every row lands in exactly one part, in file order.
+        let mut all: Vec<f64> = train.x.iter().chain(&hold.x).map(|r| r[0]).collect();
+        assert!(train.x.windows(2).all(|w| w[0][0] < w[1][0]));
+        all.sort_by(f64::total_cmp);
+        assert_eq!(all, (0..100).map(f64::from).collect::<Vec<_>>());
+        assert_eq!(split(&d, 0.25, 9).unwrap(), (train.clone(), hold.clone()));
+        let (_, other) = split(&d, 0.25, 10).unwrap();
+        assert_ne!(other, hold);
+        assert!(split(&d, 1.0, 0).is_err());
+        assert!(split(&d, -0.1, 0).is_err());
+        assert!(split(&d, f64::NAN, 0).is_err());
+    }
+
+    #[test]
+    fn split_keeps_a_training_row_per_class() {
+        let d = classes(&[0, 1, 1], 2);
+        let (train, hold) = split(&d, 0.9, 1).unwrap();
+        assert_eq!(train.len(), 2);
+        assert_eq!(hold.len(), 1);
+        let (train, hold) = split(&d, 0.0, 1).unwrap();
+        assert_eq!((train.len(), hold.len()), (3, 0));
+    }
+}

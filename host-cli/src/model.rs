@@ -1,0 +1,184 @@
+//! The float model file: a trained base model in `f64` with everything needed to use it
+//! again — architecture, input scaling, the names of its inputs and outputs, the weights.
+//!
+//! # Format
+//! A JSON document (UTF-8, one object) with these keys:
+//!
+//! | key | content |
+//! |---|---|
+//! | `format` | the string `"hone-float-model"` |
+//! | `version` | `1` |
+//! | `input` | `{ "channels": c, "len": l }` |
+//! | `loss` | `"SquaredError"` or `"SoftmaxCrossEntropy"` |
+//! | `layers` | per layer: `kind` (as in the core's `LayerKind`, e.g. `{"Dense": {"units": 8}}` or `"Relu"`), `mode`, `weights` and `bias` (arrays of numbers, row-major as the core stores them; empty for layers without parameters) |
+//! | `scaling` | per input channel `{ "offset": o, "gain": g }`: `x = (raw − o)·g` before the model (empty: none) |
+//! | `features` | input column names in input order |
+//! | `outputs` | target column names (regression) or class names in output order (classification) |
+//! | `history` | per epoch of the training that made it: `{ "epoch", "loss", "metric" }` |
+//!
+//! Numbers are written with Rust's shortest round-trip formatting, so reading a file back gives
+//! the very same `f64` weights.
+
+use std::path::Path;
+
+use hone_core::blob::ChannelScale;
+use hone_core::model::{LayerKind, Loss, Shape, TrainMode};
+use serde::{Deserialize, Serialize};
+
+/// The value of the `format` key.
+pub const FORMAT_NAME: &str = "hone-float-model";
+/// The version this build writes and reads.
+pub const FORMAT_VERSION: u32 = 1;
+
+/// One layer of a float model.
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct FloatLayer {
+    /// What it computes.
+    pub kind: LayerKind,
+    /// What fine-tuning may change.
+    pub mode: TrainMode,
+    /// Weights, row-major (`[units][inputs]` or `[filters][channels][kernel]`).
+    pub weights: Vec<f64>,
+    /// Bias.
+    pub bias: Vec<f64>,
+}
+
+/// One epoch of the training that produced a model.
+#[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+pub struct EpochRecord {
+    /// Epoch number, from 1.
+    pub epoch: u32,
+    /// Mean training loss.
+    pub loss: f64,
+    /// Accuracy in % (classification) or mean absolute error (regression) on the training data.
+    pub metric: f64,
+}
+
+/// A trained float model. See the [module docs](self).
+#[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+pub struct FloatModel {
+    /// Always [`FORMAT_NAME`].
+    pub format: String,
+    /// Always [`FORMAT_VERSION`].
+    pub version: u32,
+    /// Input shape.
+    pub input: Shape,
+    /// Loss.
+    pub loss: Loss,
+    /// Layers.
+    pub layers: Vec<FloatLayer>,
+    /// Input scaling per channel.
+    pub scaling: Vec<ChannelScale>,
+    /// Input column names.
+    pub features: Vec<String>,
+    /// Output names: target columns or classes.
+    pub outputs: Vec<String>,
+    /// Training history.
+    pub history: Vec<EpochRecord>,
+}
+
+/// A problem with a float model file.
+#[derive(Debug, thiserror::Error)]
+pub enum ModelError {
+    /// Reading or writing failed.
+    #[error("{path}: {source}")]
+    Io {
+        /// The file.
+        path: String,
+        /// The cause.
+        #[source]
+        source: std::io::Error,
+    },
+    /// Not valid JSON or not the expected structure.
+    #[error("{path}:{line}:{column}: not a hone float model: {message}")]
+    Parse {
+        /// The file.
+        path: String,
+        /// Line, from 1.
+        line: usize,
+        /// Column, from 1.
+        column: usize,
+        /// What the parser said.
+        message: String,
+    },
+    /// Valid structure, wrong content.
+    #[error("{path}: {message}")]
+    Invalid {
+        /// The file.
+        path: String,
+        /// What is wrong and what to do.
+        message: String,
+    },
+}
+
+impl FloatModel {
+    /// Per layer, the weights and bias as slices.
+    pub fn params(&self) -> Vec<(&[f64], &[f64])> {
+        self.layers.iter().map(|l| (&l.weights[..], &l.bias[..])).collect()
+    }
+
+    /// Reads and checks a model file.
+    ///
+    /// # Errors
+    /// [`ModelError`] naming the file, and the line and column of a syntax error.
+    pub fn load(path: &Path) -> Result<FloatModel, ModelError> {
+        let shown = path.display().to_string();
+        let text = std::fs::read_to_string(path).map_err(|source| ModelError::Io { path: shown.clone(), source })?;
+        let m: FloatModel = serde_json::from_str(&text).map_err(|e| ModelError::Parse { path: shown.clone(), line: e.line(), column: e.column(), message: e.to_string() })?;
+        m.check().map_err(|message| ModelError::Invalid { path: shown, message })?;
+        Ok(m)
+    }
+
+    /// Writes the model atomically (temporary file, then rename).
+    ///
+    /// # Errors
+    /// [`ModelError::Io`].
+    pub fn save(&self, path: &Path) -> Result<(), ModelError> {
+        let text = serde_json::to_string_pretty(self).map_err(|e| ModelError::Invalid { path: path.display().to_string(), message: e.to_string() })?;
+        crate::fsutil::write_atomic(path, text.as_bytes()).map_err(|source| ModelError::Io { path: path.display().to_string(), source })
+    }
+
+    /// Checks format name, version, shapes against the architecture, and finiteness.
+    ///
+    /// # Errors
+    /// A message saying what is wrong.
+    pub fn check(&self) -> Result<(), String> {
+        if self.format != FORMAT_NAME {
+            return Err(format!("`format` is {:?}, expected {FORMAT_NAME:?}", self.format));
+        }
+        if self.version != FORMAT_VERSION {
+            return Err(format!("`version` is {}, this build reads version {FORMAT_VERSION}", self.version));
+        }
+        let probe: Vec<hone_core::model::LayerDesc> = self
+            .layers
+            .iter()
+            .map(|l| hone_core::model::LayerDesc::simple(l.kind, hone_core::num::QFormat::Q0_7, hone_core::num::QFormat::Q0_7))
+            .collect();
+        let shapes = hone_core::model::shapes(self.input, &probe, self.loss).map_err(|e| format!("architecture: {e}"))?;
+        for (k, l) in self.layers.iter().enumerate() {
+            let g = shapes.layers[k];
+            if l.weights.len() != g.weights as usize || l.bias.len() != g.biases as usize {
+                return Err(format!(
+                    "layer {k}: {} weights and {} biases, the architecture needs {} and {}",
+                    l.weights.len(),
+                    l.bias.len(),
+                    g.weights,
+                    g.biases
+                ));
+            }
+            if let Some(i) = l.weights.iter().chain(l.bias.iter()).position(|v| !v.is_finite()) {
+                return Err(format!("layer {k}: parameter {i} is not a finite number"));
+            }
+            if !l.kind.has_params() && l.mode != TrainMode::Frozen {
+                return Err(format!("layer {k}: a train mode is set on a layer without parameters"));
+            }
+        }
+        if !self.scaling.is_empty() && self.scaling.len() != self.input.channels as usize {
+            return Err(format!("{} scaling entries for {} input channels", self.scaling.len(), self.input.channels));
+        }
+        if self.features.len() != self.input.size() as usize {
+            return Err(format!("{} feature names for an input of {} values", self.features.len(), self.input.size()));
+        }
+        Ok(())
+    }
+}
