@@ -114,7 +114,10 @@ pub enum ModelError {
 impl FloatModel {
     /// Per layer, the weights and bias as slices.
     pub fn params(&self) -> Vec<(&[f64], &[f64])> {
-        self.layers.iter().map(|l| (&l.weights[..], &l.bias[..])).collect()
+        self.layers
+            .iter()
+            .map(|l| (&l.weights[..], &l.bias[..]))
+            .collect()
     }
 
     /// Reads and checks a model file.
@@ -123,9 +126,20 @@ impl FloatModel {
     /// [`ModelError`] naming the file, and the line and column of a syntax error.
     pub fn load(path: &Path) -> Result<FloatModel, ModelError> {
         let shown = path.display().to_string();
-        let text = std::fs::read_to_string(path).map_err(|source| ModelError::Io { path: shown.clone(), source })?;
-        let m: FloatModel = serde_json::from_str(&text).map_err(|e| ModelError::Parse { path: shown.clone(), line: e.line(), column: e.column(), message: e.to_string() })?;
-        m.check().map_err(|message| ModelError::Invalid { path: shown, message })?;
+        let text = std::fs::read_to_string(path).map_err(|source| ModelError::Io {
+            path: shown.clone(),
+            source,
+        })?;
+        let m: FloatModel = serde_json::from_str(&text).map_err(|e| ModelError::Parse {
+            path: shown.clone(),
+            line: e.line(),
+            column: e.column(),
+            message: e.to_string(),
+        })?;
+        m.check().map_err(|message| ModelError::Invalid {
+            path: shown,
+            message,
+        })?;
         Ok(m)
     }
 
@@ -134,8 +148,14 @@ impl FloatModel {
     /// # Errors
     /// [`ModelError::Io`].
     pub fn save(&self, path: &Path) -> Result<(), ModelError> {
-        let text = serde_json::to_string_pretty(self).map_err(|e| ModelError::Invalid { path: path.display().to_string(), message: e.to_string() })?;
-        crate::fsutil::write_atomic(path, text.as_bytes()).map_err(|source| ModelError::Io { path: path.display().to_string(), source })
+        let text = serde_json::to_string_pretty(self).map_err(|e| ModelError::Invalid {
+            path: path.display().to_string(),
+            message: e.to_string(),
+        })?;
+        crate::fsutil::write_atomic(path, text.as_bytes()).map_err(|source| ModelError::Io {
+            path: path.display().to_string(),
+            source,
+        })
     }
 
     /// Checks format name, version, shapes against the architecture, and finiteness.
@@ -144,17 +164,30 @@ impl FloatModel {
     /// A message saying what is wrong.
     pub fn check(&self) -> Result<(), String> {
         if self.format != FORMAT_NAME {
-            return Err(format!("`format` is {:?}, expected {FORMAT_NAME:?}", self.format));
+            return Err(format!(
+                "`format` is {:?}, expected {FORMAT_NAME:?}",
+                self.format
+            ));
         }
         if self.version != FORMAT_VERSION {
-            return Err(format!("`version` is {}, this build reads version {FORMAT_VERSION}", self.version));
+            return Err(format!(
+                "`version` is {}, this build reads version {FORMAT_VERSION}",
+                self.version
+            ));
         }
         let probe: Vec<hone_core::model::LayerDesc> = self
             .layers
             .iter()
-            .map(|l| hone_core::model::LayerDesc::simple(l.kind, hone_core::num::QFormat::Q0_7, hone_core::num::QFormat::Q0_7))
+            .map(|l| {
+                hone_core::model::LayerDesc::simple(
+                    l.kind,
+                    hone_core::num::QFormat::Q0_7,
+                    hone_core::num::QFormat::Q0_7,
+                )
+            })
             .collect();
-        let shapes = hone_core::model::shapes(self.input, &probe, self.loss).map_err(|e| format!("architecture: {e}"))?;
+        let shapes = hone_core::model::shapes(self.input, &probe, self.loss)
+            .map_err(|e| format!("architecture: {e}"))?;
         for (k, l) in self.layers.iter().enumerate() {
             let g = shapes.layers[k];
             if l.weights.len() != g.weights as usize || l.bias.len() != g.biases as usize {
@@ -166,18 +199,33 @@ impl FloatModel {
                     g.biases
                 ));
             }
-            if let Some(i) = l.weights.iter().chain(l.bias.iter()).position(|v| !v.is_finite()) {
+            if let Some(i) = l
+                .weights
+                .iter()
+                .chain(l.bias.iter())
+                .position(|v| !v.is_finite())
+            {
                 return Err(format!("layer {k}: parameter {i} is not a finite number"));
             }
             if !l.kind.has_params() && l.mode != TrainMode::Frozen {
-                return Err(format!("layer {k}: a train mode is set on a layer without parameters"));
+                return Err(format!(
+                    "layer {k}: a train mode is set on a layer without parameters"
+                ));
             }
         }
         if !self.scaling.is_empty() && self.scaling.len() != self.input.channels as usize {
-            return Err(format!("{} scaling entries for {} input channels", self.scaling.len(), self.input.channels));
+            return Err(format!(
+                "{} scaling entries for {} input channels",
+                self.scaling.len(),
+                self.input.channels
+            ));
         }
         if self.features.len() != self.input.size() as usize {
-            return Err(format!("{} feature names for an input of {} values", self.features.len(), self.input.size()));
+            return Err(format!(
+                "{} feature names for an input of {} values",
+                self.features.len(),
+                self.input.size()
+            ));
         }
         Ok(())
     }

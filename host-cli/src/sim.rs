@@ -41,7 +41,9 @@ impl OwnedRaw {
         let mut raw = Vec::with_capacity(values.len());
         let mut sat = 0;
         for (i, &v) in values.iter().enumerate() {
-            let (r, s) = fmt.from_f64_saturating(v).map_err(|_| format!("value {i} is {v}, not a finite number"))?;
+            let (r, s) = fmt
+                .from_f64_saturating(v)
+                .map_err(|_| format!("value {i} is {v}, not a finite number"))?;
             sat += s as usize;
             raw.push(r);
         }
@@ -105,12 +107,17 @@ impl QuantParams {
     ///
     /// # Errors
     /// A message naming the layer and value that is not finite.
-    pub fn quantize(desc: &ModelDesc, float: &[(Vec<f64>, Vec<f64>)]) -> Result<(QuantParams, Vec<usize>), String> {
+    pub fn quantize(
+        desc: &ModelDesc,
+        float: &[(Vec<f64>, Vec<f64>)],
+    ) -> Result<(QuantParams, Vec<usize>), String> {
         let mut layers = Vec::new();
         let mut sats = Vec::new();
         for (k, (l, (w, b))) in desc.layers.iter().zip(float).enumerate() {
-            let (qw, sw) = OwnedRaw::quantize(w, l.weight.value).map_err(|e| format!("layer {k} weights: {e}"))?;
-            let (qb, sb) = OwnedRaw::quantize(b, l.bias.value).map_err(|e| format!("layer {k} bias: {e}"))?;
+            let (qw, sw) = OwnedRaw::quantize(w, l.weight.value)
+                .map_err(|e| format!("layer {k} weights: {e}"))?;
+            let (qb, sb) =
+                OwnedRaw::quantize(b, l.bias.value).map_err(|e| format!("layer {k} bias: {e}"))?;
             layers.push((qw, qb));
             sats.push(sw + sb);
         }
@@ -119,12 +126,22 @@ impl QuantParams {
 
     /// Borrowed views for [`Trainer::new`].
     pub fn views(&self) -> Vec<LayerParams<'_>> {
-        self.layers.iter().map(|(w, b)| LayerParams { weight: w.raw(), bias: b.raw() }).collect()
+        self.layers
+            .iter()
+            .map(|(w, b)| LayerParams {
+                weight: w.raw(),
+                bias: b.raw(),
+            })
+            .collect()
     }
 
     /// The real values, per layer, in the value formats of `desc`.
     pub fn real(&self, desc: &ModelDesc) -> Vec<(Vec<f64>, Vec<f64>)> {
-        self.layers.iter().zip(desc.layers.iter()).map(|((w, b), l)| (w.real(l.weight.value), b.real(l.bias.value))).collect()
+        self.layers
+            .iter()
+            .zip(desc.layers.iter())
+            .map(|((w, b), l)| (w.real(l.weight.value), b.real(l.bias.value)))
+            .collect()
     }
 }
 
@@ -168,20 +185,41 @@ impl Prepared {
         let mut xq = Vec::with_capacity(data.x.len());
         let mut input_saturations = 0;
         for (i, row) in data.x.iter().enumerate() {
-            let (q, s) = OwnedRaw::quantize(row, desc.input_format).map_err(|e| format!("{}: row {}: {e}", data.source.display(), i + 1))?;
+            let (q, s) = OwnedRaw::quantize(row, desc.input_format)
+                .map_err(|e| format!("{}: row {}: {e}", data.source.display(), i + 1))?;
             input_saturations += s;
             xq.push(q);
         }
         let target = match (&data.target, desc.loss) {
             (Targets::Values { y, .. }, Loss::SquaredError) => {
                 let format = desc.layers.last().map(|l| l.out).unwrap_or(QFormat::Q0_7);
-                let yq = y.iter().map(|t| OwnedRaw::quantize(t, format).map(|(q, _)| q)).collect::<Result<Vec<_>, _>>()?;
-                PreparedTargets::Values { y: y.clone(), yq, format }
+                let yq = y
+                    .iter()
+                    .map(|t| OwnedRaw::quantize(t, format).map(|(q, _)| q))
+                    .collect::<Result<Vec<_>, _>>()?;
+                PreparedTargets::Values {
+                    y: y.clone(),
+                    yq,
+                    format,
+                }
             }
-            (Targets::Classes { labels, .. }, Loss::SoftmaxCrossEntropy) => PreparedTargets::Classes(labels.clone()),
-            _ => return Err(format!("{}: the targets do not match the loss {:?}", data.source.display(), desc.loss)),
+            (Targets::Classes { labels, .. }, Loss::SoftmaxCrossEntropy) => {
+                PreparedTargets::Classes(labels.clone())
+            }
+            _ => {
+                return Err(format!(
+                    "{}: the targets do not match the loss {:?}",
+                    data.source.display(),
+                    desc.loss
+                ))
+            }
         };
-        Ok(Prepared { x: data.x.clone(), xq, target, input_saturations })
+        Ok(Prepared {
+            x: data.x.clone(),
+            xq,
+            target,
+            input_saturations,
+        })
     }
 
     /// Number of samples.
@@ -196,9 +234,15 @@ impl Prepared {
 
     /// Sample `i` for the fixed-point trainer.
     pub fn fixed(&self, i: usize, fmt: QFormat) -> (Tensor<'_>, Target<'_>) {
-        let x = Tensor { raw: self.xq[i].raw(), fmt };
+        let x = Tensor {
+            raw: self.xq[i].raw(),
+            fmt,
+        };
         let t = match &self.target {
-            PreparedTargets::Values { yq, format, .. } => Target::Values(Tensor { raw: yq[i].raw(), fmt: *format }),
+            PreparedTargets::Values { yq, format, .. } => Target::Values(Tensor {
+                raw: yq[i].raw(),
+                fmt: *format,
+            }),
             PreparedTargets::Classes(l) => Target::Class(l[i]),
         };
         (x, t)
@@ -337,20 +381,42 @@ pub struct Progress {
 }
 
 fn stats_totals(s: &LayerStats) -> (u64, u64, u64, u64) {
-    let all = [s.out, s.grad, s.weight, s.bias, s.accum_weight, s.accum_bias];
+    let all = [
+        s.out,
+        s.grad,
+        s.weight,
+        s.bias,
+        s.accum_weight,
+        s.accum_bias,
+    ];
     let sat = all.iter().map(|t| t.saturations as u64).sum();
     let val = all.iter().map(|t| t.values as u64).sum();
-    (sat, val, (s.weight.lost_updates + s.bias.lost_updates) as u64, (s.weight.values + s.bias.values) as u64)
+    (
+        sat,
+        val,
+        (s.weight.lost_updates + s.bias.lost_updates) as u64,
+        (s.weight.values + s.bias.values) as u64,
+    )
 }
 
 /// Divergence of the trained values: RMS and max of |fixed − float| in steps of each value's
 /// format. Frozen tensors are equal on both sides by construction and are left out.
-fn divergence(desc: &ModelDesc, plan: &Plan, fixed: &Trainer<'_>, float: &Twin<'_, f64>) -> (f64, f64) {
+fn divergence(
+    desc: &ModelDesc,
+    plan: &Plan,
+    fixed: &Trainer<'_>,
+    float: &Twin<'_, f64>,
+) -> (f64, f64) {
     let (mut sum, mut n, mut max) = (0f64, 0usize, 0f64);
     for (k, l) in desc.layers.iter().enumerate() {
-        let (Some(q), Some(f)) = (fixed.params(k), float.params(k)) else { continue };
+        let (Some(q), Some(f)) = (fixed.params(k), float.params(k)) else {
+            continue;
+        };
         let s = plan.layers[k];
-        for (raw, fv, fmt, trained) in [(q.weight, f.weight, l.weight.value, s.weight.is_some()), (q.bias, f.bias, l.bias.value, s.bias.is_some())] {
+        for (raw, fv, fmt, trained) in [
+            (q.weight, f.weight, l.weight.value, s.weight.is_some()),
+            (q.bias, f.bias, l.bias.value, s.bias.is_some()),
+        ] {
             if !trained {
                 continue;
             }
@@ -371,17 +437,26 @@ fn divergence(desc: &ModelDesc, plan: &Plan, fixed: &Trainer<'_>, float: &Twin<'
 }
 
 /// Mean loss and metric of both sides on `data` (no training, generators untouched).
-fn evaluate_both(fixed: &mut Trainer<'_>, float: &mut Twin<'_, f64>, data: &Prepared, in_fmt: QFormat) -> Result<(f64, f64, f64, f64), String> {
+fn evaluate_both(
+    fixed: &mut Trainer<'_>,
+    float: &mut Twin<'_, f64>,
+    data: &Prepared,
+    in_fmt: QFormat,
+) -> Result<(f64, f64, f64, f64), String> {
     if data.is_empty() {
         return Ok((f64::NAN, f64::NAN, f64::NAN, f64::NAN));
     }
     let (mut lq, mut lf, mut mq, mut mf) = (0f64, 0f64, 0f64, 0f64);
     for i in 0..data.len() {
         let (x, t) = data.fixed(i, in_fmt);
-        let oq = fixed.evaluate(x, t).map_err(|e| format!("sample {}: {e}", i + 1))?;
+        let oq = fixed
+            .evaluate(x, t)
+            .map_err(|e| format!("sample {}: {e}", i + 1))?;
         lq += oq.loss.to_f64();
         let (xf, tf) = data.float(i);
-        let of = float.evaluate(xf, tf).map_err(|e| format!("sample {}: {e}", i + 1))?;
+        let of = float
+            .evaluate(xf, tf)
+            .map_err(|e| format!("sample {}: {e}", i + 1))?;
         lf += of.loss;
         match &data.target {
             PreparedTargets::Classes(labels) => {
@@ -402,25 +477,47 @@ fn evaluate_both(fixed: &mut Trainer<'_>, float: &mut Twin<'_, f64>, data: &Prep
         }
     }
     let n = data.len() as f64;
-    let (mq, mf) = if data.is_classification() { (100.0 * mq / n, 100.0 * mf / n) } else { ((mq / n).sqrt(), (mf / n).sqrt()) };
+    let (mq, mf) = if data.is_classification() {
+        (100.0 * mq / n, 100.0 * mf / n)
+    } else {
+        ((mq / n).sqrt(), (mf / n).sqrt())
+    };
     Ok((lq / n, lf / n, mq, mf))
 }
 
 /// Gradient SQNR on the first `probe` training samples, in dB.
-fn grad_sqnr(desc: &ModelDesc, fixed: &mut Trainer<'_>, float: &mut Twin<'_, f64>, data: &Prepared, probe: usize) -> Result<Option<f64>, String> {
+fn grad_sqnr(
+    desc: &ModelDesc,
+    fixed: &mut Trainer<'_>,
+    float: &mut Twin<'_, f64>,
+    data: &Prepared,
+    probe: usize,
+) -> Result<Option<f64>, String> {
     let n = probe.min(data.len());
     if n == 0 {
         return Ok(None);
     }
     let in_fmt = desc.input_format;
-    fixed.probe_gradients((0..n).map(|i| data.fixed(i, in_fmt))).map_err(|e| e.to_string())?;
-    float.probe_gradients((0..n).map(|i| data.float(i))).map_err(|e| e.to_string())?;
+    fixed
+        .probe_gradients((0..n).map(|i| data.fixed(i, in_fmt)))
+        .map_err(|e| e.to_string())?;
+    float
+        .probe_gradients((0..n).map(|i| data.float(i)))
+        .map_err(|e| e.to_string())?;
     let (mut sig, mut noise) = (0f64, 0f64);
     for (k, l) in desc.layers.iter().enumerate() {
-        let (Some(q), Some(f)) = (fixed.accumulators(k), float.accumulators(k)) else { continue };
+        let (Some(q), Some(f)) = (fixed.accumulators(k), float.accumulators(k)) else {
+            continue;
+        };
         let live = fixed.live_fracs(k).unwrap_or_default();
-        let fw = QFormat { word: l.weight.accum.word, frac: live.accum_weight };
-        let fb = QFormat { word: l.bias.accum.word, frac: live.accum_bias };
+        let fw = QFormat {
+            word: l.weight.accum.word,
+            frac: live.accum_weight,
+        };
+        let fb = QFormat {
+            word: l.bias.accum.word,
+            frac: live.accum_bias,
+        };
         for (raw, fv, fmt) in [(q.weight, f.weight, fw), (q.bias, f.bias, fb)] {
             for (i, &g) in fv.iter().enumerate() {
                 let e = fmt.to_f64(raw.at(i)) - g;
@@ -453,13 +550,19 @@ pub fn run_side_by_side(
     progress: &mut dyn FnMut(Progress),
 ) -> Result<DriftRun, String> {
     let plan = Plan::of(desc).map_err(|e| format!("the model does not plan: {e}"))?;
-    let fplan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8).map_err(|e| e.to_string())?;
+    let fplan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8)
+        .map_err(|e| e.to_string())?;
     let mut arena = vec![0u32; plan.ram_words()];
     let mut farena = vec![0f64; fplan.ram_bytes as usize / 8];
     let views = init_fixed.views();
-    let fviews: Vec<FloatParams<'_, f64>> = init_float.iter().map(|(w, b)| FloatParams { weight: w, bias: b }).collect();
-    let mut fixed = Trainer::new(desc, &plan, &mut arena, &views).map_err(|e| format!("fixed-point start: {e}"))?;
-    let mut float = Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|e| format!("float start: {e}"))?;
+    let fviews: Vec<FloatParams<'_, f64>> = init_float
+        .iter()
+        .map(|(w, b)| FloatParams { weight: w, bias: b })
+        .collect();
+    let mut fixed = Trainer::new(desc, &plan, &mut arena, &views)
+        .map_err(|e| format!("fixed-point start: {e}"))?;
+    let mut float =
+        Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|e| format!("float start: {e}"))?;
     let in_fmt = desc.input_format;
     let total = opts.epochs as u64 * train.len() as u64;
     let mut done = 0u64;
@@ -468,22 +571,44 @@ pub fn run_side_by_side(
 
     let (eq, ef, mq, mf) = evaluate_both(&mut fixed, &mut float, eval, in_fmt)?;
     let g0 = grad_sqnr(desc, &mut fixed, &mut float, train, opts.probe)?;
-    epochs.push(EpochDrift { epoch: 0, fixed_eval_loss: eq, float_eval_loss: ef, fixed_metric: mq, float_metric: mf, grad_sqnr_db: g0, ..Default::default() });
+    epochs.push(EpochDrift {
+        epoch: 0,
+        fixed_eval_loss: eq,
+        float_eval_loss: ef,
+        fixed_metric: mq,
+        float_metric: mf,
+        grad_sqnr_db: g0,
+        ..Default::default()
+    });
     let mut prev = vec![(0u64, 0u64, 0u64, 0u64); desc.layers.len()];
     for epoch in 1..=opts.epochs {
-        let order: Vec<usize> = if opts.shuffle { epoch_order(train.len(), epoch, opts.order_seed) } else { (0..train.len()).collect() };
+        let order: Vec<usize> = if opts.shuffle {
+            epoch_order(train.len(), epoch, opts.order_seed)
+        } else {
+            (0..train.len()).collect()
+        };
         let (mut lq, mut lf) = (0f64, 0f64);
         for &i in &order {
             let (x, t) = train.fixed(i, in_fmt);
-            let oq = fixed.step(x, t).map_err(|e| format!("training sample {}: {e}", i + 1))?;
+            let oq = fixed
+                .step(x, t)
+                .map_err(|e| format!("training sample {}: {e}", i + 1))?;
             let (xf, tf) = train.float(i);
-            let of = float.step(xf, tf).map_err(|e| format!("training sample {}: {e}", i + 1))?;
+            let of = float
+                .step(xf, tf)
+                .map_err(|e| format!("training sample {}: {e}", i + 1))?;
             lq += oq.loss.to_f64();
             lf += of.loss;
             done += 1;
             if opts.per_step {
                 let (rms, max) = divergence(desc, &plan, &fixed, &float);
-                steps.push(StepDrift { step: done as u32, fixed_loss: oq.loss.to_f64(), float_loss: of.loss, weight_rms_steps: rms, weight_max_steps: max });
+                steps.push(StepDrift {
+                    step: done as u32,
+                    fixed_loss: oq.loss.to_f64(),
+                    float_loss: of.loss,
+                    weight_rms_steps: rms,
+                    weight_max_steps: max,
+                });
             }
             if done % 64 == 0 {
                 progress(Progress { done, total });
@@ -522,9 +647,22 @@ pub fn run_side_by_side(
     let mut tensors = Vec::new();
     for k in 0..desc.layers.len() {
         let Some(s) = fixed.stats(k) else { continue };
-        for (name, t) in [("out", s.out), ("grad", s.grad), ("weight", s.weight), ("bias", s.bias), ("accum_weight", s.accum_weight), ("accum_bias", s.accum_bias)] {
+        for (name, t) in [
+            ("out", s.out),
+            ("grad", s.grad),
+            ("weight", s.weight),
+            ("bias", s.bias),
+            ("accum_weight", s.accum_weight),
+            ("accum_bias", s.accum_bias),
+        ] {
             if t.values > 0 {
-                tensors.push(TensorTotals { layer: k, tensor: name, values: t.values as u64, saturations: t.saturations as u64, lost_updates: t.lost_updates as u64 });
+                tensors.push(TensorTotals {
+                    layer: k,
+                    tensor: name,
+                    values: t.values as u64,
+                    saturations: t.saturations as u64,
+                    lost_updates: t.lost_updates as u64,
+                });
             }
         }
     }
@@ -543,5 +681,39 @@ pub fn run_side_by_side(
         })
         .collect();
     let rng_state = fixed.rng().state();
-    Ok(DriftRun { epochs, steps, fixed_params, float_params, tensors, rng_state })
+    Ok(DriftRun {
+        epochs,
+        steps,
+        fixed_params,
+        float_params,
+        tensors,
+        rng_state,
+    })
+}
+
+/// Mean loss and metric of the quantized model and its float original on `data`, without
+/// training: `(fixed loss, float loss, fixed metric, float metric)`; the metric is accuracy
+/// in % or RMSE in target units.
+///
+/// # Errors
+/// As [`run_side_by_side`].
+pub fn evaluate_pair(
+    desc: &ModelDesc,
+    fixed: &QuantParams,
+    float: &[(Vec<f64>, Vec<f64>)],
+    data: &Prepared,
+) -> Result<(f64, f64, f64, f64), String> {
+    let plan = Plan::of(desc).map_err(|e| format!("the model does not plan: {e}"))?;
+    let fplan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8)
+        .map_err(|e| e.to_string())?;
+    let mut arena = vec![0u32; plan.ram_words()];
+    let mut farena = vec![0f64; fplan.ram_bytes as usize / 8];
+    let views = fixed.views();
+    let fviews: Vec<FloatParams<'_, f64>> = float
+        .iter()
+        .map(|(w, b)| FloatParams { weight: w, bias: b })
+        .collect();
+    let mut tq = Trainer::new(desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
+    let mut tf = Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|e| e.to_string())?;
+    evaluate_both(&mut tq, &mut tf, data, desc.input_format)
 }

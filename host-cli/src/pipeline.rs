@@ -1,0 +1,96 @@
+//! The steps every workflow shares, in one place: load a config, train or load the float base
+//! model, quantize it, and prepare samples for it.
+
+use std::path::Path;
+
+use crate::config::Config;
+use crate::data::Dataset;
+use crate::model::FloatModel;
+use crate::quant::{quantize, Quantized};
+use crate::sim::Prepared;
+
+/// A float base model with its quantized form, as one config describes them.
+#[derive(Clone, Debug)]
+pub struct Base {
+    /// The config.
+    pub config: Config,
+    /// The float model.
+    pub float: FloatModel,
+    /// Its quantized form.
+    pub quant: Quantized,
+}
+
+impl Base {
+    /// Trains a float base model on `factory` data, then quantizes it with activation ranges
+    /// from the same data.
+    ///
+    /// # Errors
+    /// Config, data, training or quantization errors, as messages naming the file.
+    pub fn train(
+        config: Config,
+        factory: &Path,
+        progress: &mut dyn FnMut(u32, u32, f64),
+    ) -> Result<Base, String> {
+        let data = config.load_data(factory, None).map_err(|e| e.to_string())?;
+        let float = crate::train::train_float(&config, &data, progress)?;
+        let quant = quantize(&config, &float, &data)?;
+        Ok(Base {
+            config,
+            float,
+            quant,
+        })
+    }
+
+    /// Quantizes an already trained float model, calibrating activation ranges on `calib`.
+    ///
+    /// # Errors
+    /// As [`Base::train`]; also when the model's inputs or outputs do not match the config.
+    pub fn from_float(config: Config, float: FloatModel, calib: &Path) -> Result<Base, String> {
+        let classes = if config.data().spec.task == crate::data::Task::Classification {
+            Some(&float.outputs[..])
+        } else {
+            None
+        };
+        let data = config
+            .load_data(calib, classes)
+            .map_err(|e| e.to_string())?;
+        data.check_features(&float.features)
+            .map_err(|e| e.to_string())?;
+        let quant = quantize(&config, &float, &data)?;
+        Ok(Base {
+            config,
+            float,
+            quant,
+        })
+    }
+
+    /// Loads `csv` with the config's columns (and the model's class order), applies the
+    /// model's input scaling, and quantizes the samples for the model.
+    ///
+    /// # Errors
+    /// Data errors naming the file, line and column.
+    pub fn prepare(&self, csv: &Path) -> Result<Prepared, String> {
+        let data = self.load(csv)?;
+        Prepared::new(&data, &self.quant.desc)
+    }
+
+    /// Loads `csv` scaled, without quantizing.
+    ///
+    /// # Errors
+    /// As [`Base::prepare`].
+    pub fn load(&self, csv: &Path) -> Result<Dataset, String> {
+        let classes = if self.config.data().spec.task == crate::data::Task::Classification {
+            Some(&self.float.outputs[..])
+        } else {
+            None
+        };
+        let mut data = self
+            .config
+            .load_data(csv, classes)
+            .map_err(|e| e.to_string())?;
+        data.check_features(&self.float.features)
+            .map_err(|e| e.to_string())?;
+        crate::data::apply(&self.float.scaling, &mut data).map_err(|e| e.to_string())?;
+        Ok(data)
+    }
+}

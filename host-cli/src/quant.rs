@@ -1,0 +1,376 @@
+//! Quantization: choosing the Q-formats the config leaves to data, converting the float
+//! model, and measuring what the conversion costs.
+//!
+//! # Headroom policy
+//! A format is chosen by its fraction bits: as many as possible while the largest magnitude,
+//! times a margin, still fits the word's range.
+//!
+//! - **Weights and biases**: the largest magnitude in the tensor, with a margin of
+//!   [`WEIGHT_MARGIN`] = 1.25, so fine-tuning can grow a weight by a quarter before it
+//!   saturates (our policy).
+//! - **Activations**: the largest magnitude of the layer's output over the calibration data,
+//!   run through the float model, with a margin of [`ACTIVATION_MARGIN`] = 2, one integer
+//!   bit of headroom for inputs beyond the calibration data (common practice).
+//! - A tensor that is all zero gets the finest format whose range still covers ±1.
+//!
+//! # Report
+//! Per parameter tensor: RMS and maximum quantization error in real units and the SQNR
+//! (`10·log10(Σw² / Σ(w − q)²)`, dB); per chosen format: the range it was chosen for; and the
+//! metric of the float model and of the quantized model on the calibration data, so the cost
+//! of quantization in the user's own metric is one line.
+
+use hone_core::model::ModelDesc;
+use hone_core::num::{QFormat, Word, MAX_FRAC};
+use serde::Serialize;
+
+use crate::config::{AutoFormat, Config, FormatRole};
+use crate::data::Dataset;
+use crate::model::FloatModel;
+use crate::sim::{evaluate_pair, Prepared, QuantParams};
+
+/// Margin over the largest weight or bias magnitude.
+pub const WEIGHT_MARGIN: f64 = 1.25;
+/// Margin over the largest activation magnitude seen on calibration data.
+pub const ACTIVATION_MARGIN: f64 = 2.0;
+
+/// The most fraction bits for which `max_abs · margin` still fits `word`.
+pub fn frac_for(max_abs: f64, margin: f64, word: Word) -> u8 {
+    let need = if max_abs > 0.0 { max_abs * margin } else { 1.0 };
+    let mut best = 0u8;
+    for f in 0..=MAX_FRAC {
+        let fmt = QFormat::new_unchecked(word, f);
+        if fmt.max_value() >= need && fmt.min_value() <= -need {
+            best = f;
+        }
+    }
+    best
+}
+
+/// One format chosen from data.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct ChosenFormat {
+    /// Layer index.
+    pub layer: usize,
+    /// `weights`, `bias` or `activations`.
+    pub role: String,
+    /// The chosen format, written `Qm.n (iW)`.
+    pub format: String,
+    /// Largest magnitude it was chosen for.
+    pub max_abs: f64,
+    /// Margin applied.
+    pub margin: f64,
+}
+
+/// Quantization error of one parameter tensor.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct TensorError {
+    /// Layer index.
+    pub layer: usize,
+    /// `weights` or `bias`.
+    pub role: String,
+    /// Format, `Qm.n (iW)`.
+    pub format: String,
+    /// Values.
+    pub values: usize,
+    /// Largest magnitude in float.
+    pub max_abs: f64,
+    /// RMS of the error, real units.
+    pub rms_error: f64,
+    /// Largest error, real units.
+    pub max_error: f64,
+    /// Signal-to-quantization-noise ratio, dB (infinite when exact).
+    pub sqnr_db: f64,
+    /// Values that saturated.
+    pub saturated: usize,
+}
+
+/// What quantization chose and cost.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct QuantReport {
+    /// Formats chosen from data.
+    pub chosen: Vec<ChosenFormat>,
+    /// Error per parameter tensor.
+    pub tensors: Vec<TensorError>,
+    /// Name of the metric: `accuracy_pct` or `rmse`.
+    pub metric: String,
+    /// Float model on the calibration data: loss and metric.
+    pub float_loss: f64,
+    /// Float metric.
+    pub float_metric: f64,
+    /// Quantized model on the same data.
+    pub fixed_loss: f64,
+    /// Quantized metric.
+    pub fixed_metric: f64,
+    /// Input values that saturated when quantized.
+    pub input_saturations: usize,
+    /// Samples evaluated.
+    pub samples: usize,
+}
+
+/// A quantized model ready to export or fine-tune.
+#[derive(Clone, Debug)]
+pub struct Quantized {
+    /// The complete description with every format fixed.
+    pub desc: ModelDesc,
+    /// Quantized parameters.
+    pub params: QuantParams,
+    /// The float parameters they came from.
+    pub float_params: Vec<(Vec<f64>, Vec<f64>)>,
+    /// The report.
+    pub report: QuantReport,
+}
+
+/// Largest output magnitude of every layer over `data` (already scaled), run through the
+/// float model.
+fn activation_ranges(
+    desc: &ModelDesc,
+    params: &[(Vec<f64>, Vec<f64>)],
+    data: &Dataset,
+) -> Result<Vec<f64>, String> {
+    let shapes =
+        hone_core::model::shapes(desc.input, &desc.layers, desc.loss).map_err(|e| e.to_string())?;
+    let mut max = vec![0f64; desc.layers.len()];
+    for row in &data.x {
+        let mut x = row.clone();
+        for (k, l) in desc.layers.iter().enumerate() {
+            let g = shapes.layers[k];
+            let mut y = vec![0f64; g.output.size() as usize];
+            hone_core::float::forward(l.kind, &g, &params[k].0, &params[k].1, &x, &mut y);
+            max[k] = y.iter().fold(max[k], |m, v| m.max(v.abs()));
+            x = y;
+        }
+    }
+    Ok(max)
+}
+
+fn tensor_error(
+    layer: usize,
+    role: &str,
+    float: &[f64],
+    q: &[f64],
+    fmt: QFormat,
+    saturated: usize,
+) -> TensorError {
+    let (mut sig, mut noise, mut max_e, mut max_abs) = (0f64, 0f64, 0f64, 0f64);
+    for (a, b) in float.iter().zip(q) {
+        let e = a - b;
+        sig += a * a;
+        noise += e * e;
+        max_e = max_e.max(e.abs());
+        max_abs = max_abs.max(a.abs());
+    }
+    let n = float.len().max(1) as f64;
+    TensorError {
+        layer,
+        role: role.into(),
+        format: fmt.to_string(),
+        values: float.len(),
+        max_abs,
+        rms_error: (noise / n).sqrt(),
+        max_error: max_e,
+        sqnr_db: if noise == 0.0 {
+            f64::INFINITY
+        } else {
+            10.0 * (sig / noise).log10()
+        },
+        saturated,
+    }
+}
+
+/// Quantizes `model` as `cfg` says, choosing `auto` formats from the model's weights and from
+/// activations on `calib` (unscaled, as loaded; the model's scaling is applied here).
+///
+/// # Errors
+/// A message for data that do not fit the model or a description the core rejects.
+pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Quantized, String> {
+    let float_params: Vec<(Vec<f64>, Vec<f64>)> = model
+        .layers
+        .iter()
+        .map(|l| (l.weights.clone(), l.bias.clone()))
+        .collect();
+    let mut scaled = calib.clone();
+    crate::data::apply(&model.scaling, &mut scaled).map_err(|e| e.to_string())?;
+    let provisional = cfg
+        .model_desc_with(crate::train::provisional_frac)
+        .map_err(|e| e.to_string())?;
+    let ranges = activation_ranges(&provisional, &float_params, &scaled)?;
+    let mut chosen = Vec::new();
+    let desc = cfg
+        .model_desc_with(|a: AutoFormat| {
+            let (max_abs, margin) = match a.role {
+                FormatRole::Weights => (
+                    float_params[a.layer]
+                        .0
+                        .iter()
+                        .fold(0f64, |m, v| m.max(v.abs())),
+                    WEIGHT_MARGIN,
+                ),
+                FormatRole::Bias => (
+                    float_params[a.layer]
+                        .1
+                        .iter()
+                        .fold(0f64, |m, v| m.max(v.abs())),
+                    WEIGHT_MARGIN,
+                ),
+                _ => (ranges[a.layer], ACTIVATION_MARGIN),
+            };
+            let frac = frac_for(max_abs, margin, a.word);
+            chosen.push(ChosenFormat {
+                layer: a.layer,
+                role: a.role.key().into(),
+                format: QFormat::new_unchecked(a.word, frac).to_string(),
+                max_abs,
+                margin,
+            });
+            frac
+        })
+        .map_err(|e| e.to_string())?;
+    let (params, _) = QuantParams::quantize(&desc, &float_params)?;
+    let mut tensors = Vec::new();
+    for (k, l) in desc.layers.iter().enumerate() {
+        if !l.kind.has_params() {
+            continue;
+        }
+        let (qw, qb) = &params.layers[k];
+        let (fw, fb) = &float_params[k];
+        let sat = |raw: hone_core::num::Raw<'_>, f: QFormat| {
+            (0..raw.len())
+                .filter(|&i| raw.at(i) == f.word.min_raw() || raw.at(i) == f.word.max_raw())
+                .count()
+        };
+        tensors.push(tensor_error(
+            k,
+            "weights",
+            fw,
+            &qw.real(l.weight.value),
+            l.weight.value,
+            sat(qw.raw(), l.weight.value),
+        ));
+        tensors.push(tensor_error(
+            k,
+            "bias",
+            fb,
+            &qb.real(l.bias.value),
+            l.bias.value,
+            sat(qb.raw(), l.bias.value),
+        ));
+    }
+    let prepared = Prepared::new(&scaled, &desc)?;
+    let (fixed_loss, float_loss, fixed_metric, float_metric) =
+        evaluate_pair(&desc, &params, &float_params, &prepared)?;
+    let report = QuantReport {
+        chosen,
+        tensors,
+        metric: if prepared.is_classification() {
+            "accuracy_pct".into()
+        } else {
+            "rmse".into()
+        },
+        float_loss,
+        float_metric,
+        fixed_loss,
+        fixed_metric,
+        input_saturations: prepared.input_saturations,
+        samples: prepared.len(),
+    };
+    Ok(Quantized {
+        desc,
+        params,
+        float_params,
+        report,
+    })
+}
+
+/// Renders a quantization report as aligned text.
+pub fn render(r: &QuantReport) -> String {
+    let mut s = String::new();
+    if !r.chosen.is_empty() {
+        s.push_str("Formats chosen from data\n");
+        s.push_str(&format!(
+            "  {:>5}  {:<12} {:<16} {:>12} {:>7}\n",
+            "layer", "role", "format", "max |value|", "margin"
+        ));
+        for c in &r.chosen {
+            s.push_str(&format!(
+                "  {:>5}  {:<12} {:<16} {:>12.5} {:>6.2}×\n",
+                c.layer, c.role, c.format, c.max_abs, c.margin
+            ));
+        }
+        s.push('\n');
+    }
+    s.push_str("Quantization error per parameter tensor\n");
+    s.push_str(&format!(
+        "  {:>5}  {:<8} {:<16} {:>7} {:>11} {:>11} {:>11} {:>9} {:>5}\n",
+        "layer", "tensor", "format", "values", "max |w|", "RMS err", "max err", "SQNR dB", "sat."
+    ));
+    for t in &r.tensors {
+        let sqnr = if t.sqnr_db.is_finite() {
+            format!("{:.1}", t.sqnr_db)
+        } else {
+            "exact".into()
+        };
+        s.push_str(&format!(
+            "  {:>5}  {:<8} {:<16} {:>7} {:>11.3e} {:>11.3e} {:>11.3e} {:>9} {:>5}\n",
+            t.layer,
+            t.role,
+            t.format,
+            t.values,
+            t.max_abs,
+            t.rms_error,
+            t.max_error,
+            sqnr,
+            t.saturated
+        ));
+    }
+    let (unit, fmt_metric): (&str, fn(f64) -> String) = if r.metric == "accuracy_pct" {
+        ("accuracy", |v| format!("{v:.2} %"))
+    } else {
+        ("RMSE", |v| format!("{v:.5}"))
+    };
+    s.push_str(&format!(
+        "\nOn {} calibration samples: float loss {:.6}, {unit} {}; quantized loss {:.6}, {unit} {} (change {:+.6} loss)\n",
+        r.samples,
+        r.float_loss,
+        fmt_metric(r.float_metric),
+        r.fixed_loss,
+        fmt_metric(r.fixed_metric),
+        r.fixed_loss - r.float_loss
+    ));
+    if r.input_saturations > 0 {
+        s.push_str(&format!(
+            "  {} input values saturated the input format\n",
+            r.input_saturations
+        ));
+    }
+    s
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn frac_rule() {
+        // 0.9 × 1.25 = 1.125 needs one integer bit: Q1.14 in i16.
+        assert_eq!(frac_for(0.9, 1.25, Word::I16), 14);
+        // 0.7 × 1.25 = 0.875 fits Q0.15.
+        assert_eq!(frac_for(0.7, 1.25, Word::I16), 15);
+        // 3.0 × 2 = 6 needs three integer bits: Q3.4 in i8.
+        assert_eq!(frac_for(3.0, 2.0, Word::I8), 4);
+        // All zero: range ±1 is still covered.
+        assert_eq!(frac_for(0.0, 2.0, Word::I8), 6);
+        // Tiny values get many fraction bits, capped at 31.
+        assert_eq!(frac_for(1e-12, 1.0, Word::I32), 31);
+    }
+
+    #[test]
+    fn error_figures() {
+        let f = [0.5, -0.25, 0.1];
+        let q = [0.5, -0.25, 0.125];
+        let e = tensor_error(0, "weights", &f, &q, QFormat::Q0_7, 0);
+        assert!((e.max_error - 0.025).abs() < 1e-12);
+        assert!((e.rms_error - (0.025f64.powi(2) / 3.0).sqrt()).abs() < 1e-12);
+        let sig: f64 = f.iter().map(|v| v * v).sum();
+        assert!((e.sqnr_db - 10.0 * (sig / 0.025f64.powi(2)).log10()).abs() < 1e-9);
+    }
+}

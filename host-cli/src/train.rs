@@ -1,0 +1,187 @@
+//! Float training of a base model on the host: the `f64` twin of the core, run over the
+//! factory data for the configured epochs.
+//!
+//! Factory training trains every layer that has parameters, whatever its `train` mode: the
+//! modes say what the *device* may change later, during calibration. The saved model keeps
+//! the configured modes.
+
+use hone_core::float::{FloatParams, FloatTarget, Twin};
+use hone_core::model::{LayerDesc, ModelDesc, TrainMode};
+use hone_core::num::Rng;
+use hone_core::plan::Plan;
+
+use crate::config::Config;
+use crate::data::{Dataset, Scaling, Targets};
+use crate::model::{EpochRecord, FloatLayer, FloatModel, FORMAT_NAME, FORMAT_VERSION};
+use crate::sim::epoch_order;
+
+/// Initial weights: uniform in ±√(6 / (fan_in + fan_out)) (Glorot and Bengio, "Understanding
+/// the difficulty of training deep feedforward neural networks", AISTATS 2010, eq. 16), biases
+/// zero. Seeded, so a config and a seed give one start.
+pub fn glorot_init(desc: &ModelDesc, seed: u64) -> Result<Vec<(Vec<f64>, Vec<f64>)>, String> {
+    let shapes =
+        hone_core::model::shapes(desc.input, &desc.layers, desc.loss).map_err(|e| e.to_string())?;
+    let mut rng = Rng::new(seed ^ 0x9E37_79B9);
+    Ok((0..desc.layers.len())
+        .map(|k| {
+            let g = shapes.layers[k];
+            if g.weights == 0 {
+                return (Vec::new(), Vec::new());
+            }
+            let fan_in = g.weights / g.biases.max(1);
+            let fan_out = match desc.layers[k].kind {
+                hone_core::model::LayerKind::Conv1d { kernel, .. } => g.biases * kernel as u32,
+                _ => g.biases,
+            };
+            let a = (6.0 / (fan_in + fan_out) as f64).sqrt();
+            let w = (0..g.weights)
+                .map(|_| a * (2.0 * (rng.next_u32() as f64 / 4294967296.0) - 1.0))
+                .collect();
+            (w, vec![0.0; g.biases as usize])
+        })
+        .collect())
+}
+
+/// The description with every parameter layer set to train fully (factory training).
+pub fn all_trainable(desc: &ModelDesc) -> ModelDesc {
+    let mut d = desc.clone();
+    for l in d.layers.iter_mut() {
+        if l.kind.has_params() {
+            *l = LayerDesc {
+                mode: TrainMode::Full,
+                ..*l
+            };
+        }
+    }
+    d
+}
+
+/// Fraction bits that stand in for `auto` formats where formats do not matter (float
+/// training): three integer bits.
+pub fn provisional_frac(a: crate::config::AutoFormat) -> u8 {
+    (a.word.bits() - 4) as u8
+}
+
+/// Scales a dataset as the config says: fits standardization per input channel on `fit_on`
+/// when `standardize` is on, and applies it. Returns the scaling (empty when off).
+///
+/// # Errors
+/// A message from the scaler.
+pub fn fit_scaling(
+    cfg: &Config,
+    fit_on: &Dataset,
+) -> Result<Vec<hone_core::blob::ChannelScale>, String> {
+    if !cfg.data().standardize {
+        return Ok(Vec::new());
+    }
+    let s = Scaling::fit_per_channel(fit_on, cfg.input().channels as usize)
+        .map_err(|e| e.to_string())?;
+    Ok(s.scales)
+}
+
+/// Trains a float base model on `data` (unscaled, as loaded). `progress` is called with
+/// (epoch, epochs, mean loss) after each epoch.
+///
+/// # Errors
+/// A message naming what failed: a description the core rejects, data that do not fit.
+pub fn train_float(
+    cfg: &Config,
+    data: &Dataset,
+    progress: &mut dyn FnMut(u32, u32, f64),
+) -> Result<FloatModel, String> {
+    cfg.check_dataset(data).map_err(|e| e.to_string())?;
+    let desc = cfg
+        .model_desc_with(provisional_frac)
+        .map_err(|e| e.to_string())?;
+    let train_desc = all_trainable(&desc);
+    let scaling = fit_scaling(cfg, data)?;
+    let mut scaled = data.clone();
+    crate::data::apply(&scaling, &mut scaled).map_err(|e| e.to_string())?;
+    let seed = cfg.train().seed;
+    let params = glorot_init(&train_desc, seed)?;
+    let plan = Plan::new_float(
+        train_desc.input,
+        &train_desc.layers,
+        train_desc.loss,
+        &train_desc.train,
+        8,
+    )
+    .map_err(|e| e.to_string())?;
+    let mut arena = vec![0f64; plan.ram_bytes as usize / 8];
+    let views: Vec<FloatParams<'_, f64>> = params
+        .iter()
+        .map(|(w, b)| FloatParams { weight: w, bias: b })
+        .collect();
+    let mut twin = Twin::new(&train_desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
+    let n = scaled.len();
+    let mut history = Vec::new();
+    for epoch in 1..=cfg.epochs() {
+        let (mut loss, mut metric) = (0f64, 0f64);
+        for i in epoch_order(n, epoch, seed) {
+            let x = &scaled.x[i];
+            let out = match &scaled.target {
+                Targets::Values { y, .. } => twin.step(x, FloatTarget::Values(&y[i])),
+                Targets::Classes { labels, .. } => twin.step(x, FloatTarget::Class(labels[i])),
+            }
+            .map_err(|e| format!("{}: row {}: {e}", data.source.display(), i + 1))?;
+            loss += out.loss;
+            metric += match (&scaled.target, out.predicted) {
+                (Targets::Classes { labels, .. }, Some(p)) => (p == labels[i]) as u8 as f64,
+                _ => 0.0,
+            };
+        }
+        twin.flush();
+        let loss = loss / n.max(1) as f64;
+        let metric = match &scaled.target {
+            Targets::Classes { .. } => 100.0 * metric / n.max(1) as f64,
+            Targets::Values { y, .. } => {
+                let mut se = 0.0;
+                let mut count = 0usize;
+                for (i, row) in scaled.x.iter().enumerate() {
+                    let out = twin.predict(row).map_err(|e| e.to_string())?;
+                    for (o, t) in out.iter().zip(y[i].iter()) {
+                        se += (o - t).abs();
+                        count += 1;
+                    }
+                }
+                se / count.max(1) as f64
+            }
+        };
+        history.push(EpochRecord {
+            epoch,
+            loss,
+            metric,
+        });
+        progress(epoch, cfg.epochs(), loss);
+    }
+    let layers = desc
+        .layers
+        .iter()
+        .enumerate()
+        .map(|(k, l)| {
+            let p = twin.params(k);
+            FloatLayer {
+                kind: l.kind,
+                mode: l.mode,
+                weights: p.map(|p| p.weight.to_vec()).unwrap_or_default(),
+                bias: p.map(|p| p.bias.to_vec()).unwrap_or_default(),
+            }
+        })
+        .collect();
+    let outputs = match &data.target {
+        Targets::Values { names, .. } | Targets::Classes { names, .. } => names.clone(),
+    };
+    let model = FloatModel {
+        format: FORMAT_NAME.into(),
+        version: FORMAT_VERSION,
+        input: desc.input,
+        loss: desc.loss,
+        layers,
+        scaling,
+        features: data.features.clone(),
+        outputs,
+        history,
+    };
+    model.check()?;
+    Ok(model)
+}
