@@ -1,5 +1,742 @@
-//! The `hone` command.
+//! The `hone` command: a thin layer that turns arguments into library calls.
+//!
+//! Exit status: 0 success, 1 a check failed (drift over a threshold, a plan that does not fit),
+//! 2 bad usage or bad input.
 
-fn main() {
-    println!("hone {}", env!("CARGO_PKG_VERSION"));
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+use anyhow::{anyhow, Context, Result};
+use clap::{Args, Parser, Subcommand};
+use hone_core::model::TrainMode;
+use hone_core::num::{Rounding, Word};
+use hone_host::config::Config;
+use hone_host::drift::{DriftReport, Thresholds};
+use hone_host::model::FloatModel;
+use hone_host::pipeline::Base;
+use hone_host::sim::{run_side_by_side, RunOptions};
+use indicatif::{ProgressBar, ProgressStyle};
+
+#[derive(Parser)]
+#[command(name = "hone", version, about = "Fine-tune sensor models in fixed point: train, quantize, measure drift, plan memory", long_about = None)]
+struct Cli {
+    #[command(subcommand)]
+    command: Option<Command>,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Run the whole job on the bundled demo data and write a report folder (the default).
+    Demo {
+        /// Folder for the report and exports.
+        #[arg(long, default_value = "hone-demo")]
+        out: PathBuf,
+        /// Chip to plan training memory for (see `hone chips`).
+        #[arg(long, default_value = hone_host::demo::DEFAULT_CHIP)]
+        chip: String,
+    },
+    /// Train the float base model on factory data.
+    Train {
+        #[command(flatten)]
+        cfg: ConfigArg,
+        /// Training data (CSV with a header).
+        #[arg(long)]
+        data: PathBuf,
+        /// Where to write the float model (JSON).
+        #[arg(long)]
+        out: PathBuf,
+    },
+    /// Choose Q-formats, report quantization error, export the device blob and Rust source.
+    Quantize {
+        #[command(flatten)]
+        model: ModelArgs,
+        /// Calibration data for activation ranges and the metric check.
+        #[arg(long)]
+        data: PathBuf,
+        /// Write the model blob here.
+        #[arg(long)]
+        blob: Option<PathBuf>,
+        /// Write a Rust source file a firmware can `include!` here.
+        #[arg(long)]
+        rust: Option<PathBuf>,
+        /// Print JSON instead of tables.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Train in fixed point beside the float twin and report the drift.
+    Drift(DriftArgs),
+    /// Memory plan of training on a chip, with advice when it does not fit.
+    Plan(PlanArgs),
+    /// List the built-in microcontrollers.
+    Chips {
+        /// Print JSON.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Run a grid of formats, rounding, learning rates and train modes; show the Pareto front.
+    Sweep(SweepArgs),
+    /// Validate and describe a model blob or checkpoint.
+    Inspect {
+        /// The blob file.
+        file: PathBuf,
+        /// Print JSON.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Read or write the checkpoint area of a device's flash (an image file).
+    #[command(subcommand)]
+    Checkpoint(CheckpointCmd),
+    /// Write the invented demo data again from its seeded generator.
+    DemoData {
+        /// Folder to write the CSV files into.
+        #[arg(long, default_value = "demo-data")]
+        out: PathBuf,
+        /// Generator seed.
+        #[arg(long, default_value_t = hone_host::scenario::DEMO_SEED)]
+        seed: u64,
+    },
+}
+
+#[derive(Args)]
+struct ConfigArg {
+    /// Model and training description (TOML).
+    #[arg(long)]
+    config: PathBuf,
+}
+
+#[derive(Args)]
+struct ModelArgs {
+    #[command(flatten)]
+    cfg: ConfigArg,
+    /// Float model from `hone train`.
+    #[arg(long)]
+    model: PathBuf,
+}
+
+#[derive(Args)]
+struct DriftArgs {
+    #[command(flatten)]
+    model: ModelArgs,
+    /// Samples to train on (for a unit's calibration: its reference samples).
+    #[arg(long)]
+    train: PathBuf,
+    /// Samples to evaluate on after each epoch.
+    #[arg(long)]
+    eval: PathBuf,
+    /// Passes over the training samples (default: the config's epochs).
+    #[arg(long)]
+    epochs: Option<u32>,
+    /// Record every step, not only every epoch.
+    #[arg(long)]
+    per_step: bool,
+    /// Training samples used to measure gradient SQNR after each epoch.
+    #[arg(long, default_value_t = 32)]
+    probe: usize,
+    /// Keep the file order instead of shuffling each epoch.
+    #[arg(long)]
+    no_shuffle: bool,
+    /// Print JSON instead of tables.
+    #[arg(long)]
+    json: bool,
+    /// Write an HTML and Markdown report with plots into this folder.
+    #[arg(long)]
+    report: Option<PathBuf>,
+    #[command(flatten)]
+    limits: Limits,
+}
+
+#[derive(Args)]
+struct Limits {
+    /// Largest evaluation-loss gap, % of the float loss.
+    #[arg(long, default_value_t = Thresholds::default().max_loss_gap_pct)]
+    max_loss_gap: f64,
+    /// Largest metric gap: accuracy points, or % of the float RMSE.
+    #[arg(long, default_value_t = Thresholds::default().max_metric_gap)]
+    max_metric_gap: f64,
+    /// Largest RMS weight divergence, steps of the weight format.
+    #[arg(long, default_value_t = Thresholds::default().max_weight_rms_steps)]
+    max_weight_rms: f64,
+    /// Smallest gradient SQNR, dB.
+    #[arg(long, default_value_t = Thresholds::default().min_grad_sqnr_db)]
+    min_grad_sqnr: f64,
+    /// Largest saturation rate, parts per million.
+    #[arg(long, default_value_t = Thresholds::default().max_saturation_ppm)]
+    max_saturation_ppm: f64,
+    /// Largest share of updates lost to rounding, %.
+    #[arg(long, default_value_t = Thresholds::default().max_lost_updates_pct)]
+    max_lost_updates: f64,
+}
+
+#[derive(Args)]
+struct PlanArgs {
+    #[command(flatten)]
+    cfg: ConfigArg,
+    /// Chip from the built-in table (see `hone chips`).
+    #[arg(long, conflicts_with_all = ["ram", "flash"])]
+    chip: Option<String>,
+    /// RAM of a custom target, e.g. 20k.
+    #[arg(long, requires = "flash")]
+    ram: Option<String>,
+    /// Flash of a custom target, e.g. 64k.
+    #[arg(long, requires = "ram")]
+    flash: Option<String>,
+    /// RAM the rest of the firmware already uses.
+    #[arg(long, default_value = "0")]
+    reserve_ram: String,
+    /// Flash the rest of the firmware already uses.
+    #[arg(long, default_value = "0")]
+    reserve_flash: String,
+    /// Print JSON.
+    #[arg(long)]
+    json: bool,
+}
+
+#[derive(Args)]
+struct SweepArgs {
+    #[command(flatten)]
+    model: ModelArgs,
+    /// Samples to train on.
+    #[arg(long)]
+    train: PathBuf,
+    /// Samples to evaluate on.
+    #[arg(long)]
+    eval: PathBuf,
+    /// Weight words to try, in bits: 8, 16, 32.
+    #[arg(long, value_delimiter = ',')]
+    weights: Vec<u32>,
+    /// Activation words to try, in bits.
+    #[arg(long, value_delimiter = ',')]
+    activations: Vec<u32>,
+    /// Fraction bits added to the quantizer's choice for weights (e.g. 0,-1,-2).
+    #[arg(long, value_delimiter = ',', allow_hyphen_values = true)]
+    frac_delta: Vec<i8>,
+    /// Roundings of gradients and updates: nearest-even, toward-zero, stochastic.
+    #[arg(long, value_delimiter = ',')]
+    rounding: Vec<String>,
+    /// Learning rates.
+    #[arg(long, value_delimiter = ',')]
+    lr: Vec<f64>,
+    /// Train modes for the trainable layers: full, bias-only, weights-only.
+    #[arg(long, value_delimiter = ',')]
+    mode: Vec<String>,
+    /// Passes over the training samples (default: the config's epochs).
+    #[arg(long)]
+    epochs: Option<u32>,
+    /// Worker threads (default: every core).
+    #[arg(long)]
+    jobs: Option<usize>,
+    /// Print JSON.
+    #[arg(long)]
+    json: bool,
+    /// Write the table, the plot and the JSON into this folder.
+    #[arg(long)]
+    out: Option<PathBuf>,
+}
+
+#[derive(Args)]
+struct GeometryArgs {
+    /// Erase sector size of the flash, bytes.
+    #[arg(long, default_value_t = 4096)]
+    erase: u32,
+    /// Write (program) unit, bytes.
+    #[arg(long, default_value_t = 4)]
+    write: u32,
+    /// Read unit, bytes.
+    #[arg(long, default_value_t = 1)]
+    read: u32,
+}
+
+#[derive(Subcommand)]
+enum CheckpointCmd {
+    /// Read the newest valid checkpoint from a flash image, validate it, and write the blob.
+    Read {
+        /// Image of the checkpoint area.
+        image: PathBuf,
+        #[command(flatten)]
+        geometry: GeometryArgs,
+        /// Write the blob here.
+        #[arg(long)]
+        out: Option<PathBuf>,
+        /// Print JSON.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Commit a blob into a flash image: a fresh erased image, or an existing one.
+    Write {
+        /// The blob (model or checkpoint).
+        blob: PathBuf,
+        /// The image to write.
+        #[arg(long)]
+        out: PathBuf,
+        /// Commit into this existing image instead of a fresh one.
+        #[arg(long)]
+        into: Option<PathBuf>,
+        /// Size of a fresh image (the checkpoint area), e.g. 16k.
+        #[arg(long, default_value = "16k")]
+        region: String,
+        #[command(flatten)]
+        geometry: GeometryArgs,
+    },
+}
+
+/// A failed check: printed, then exit status 1.
+struct CheckFailed;
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    match run(cli.command.unwrap_or(Command::Demo {
+        out: PathBuf::from("hone-demo"),
+        chip: hone_host::demo::DEFAULT_CHIP.into(),
+    })) {
+        Ok(None) => ExitCode::SUCCESS,
+        Ok(Some(CheckFailed)) => ExitCode::from(1),
+        Err(e) => {
+            eprintln!("error: {e:#}");
+            ExitCode::from(2)
+        }
+    }
+}
+
+fn bar(len: u64, what: &str) -> ProgressBar {
+    let b = ProgressBar::new(len);
+    b.set_style(
+        ProgressStyle::with_template("{msg:>12} [{bar:40}] {pos}/{len} ({eta})")
+            .unwrap_or_else(|_| ProgressStyle::default_bar())
+            .progress_chars("=> "),
+    );
+    b.set_message(what.to_string());
+    b
+}
+
+fn load_config(c: &ConfigArg) -> Result<Config> {
+    Config::load(&c.config).map_err(|e| anyhow!("{e}"))
+}
+
+fn load_base(m: &ModelArgs, calib: &Path) -> Result<Base> {
+    let config = load_config(&m.cfg)?;
+    let float = FloatModel::load(&m.model).map_err(|e| anyhow!("{e}"))?;
+    Base::from_float(config, float, calib).map_err(|e| anyhow!("{e}"))
+}
+
+fn print_json<T: serde::Serialize>(v: &T) -> Result<()> {
+    println!("{}", serde_json::to_string_pretty(v)?);
+    Ok(())
+}
+
+fn run(cmd: Command) -> Result<Option<CheckFailed>> {
+    match cmd {
+        Command::Demo { out, chip } => {
+            let o = hone_host::demo::run(&out, &chip, &mut |m| eprintln!("{m}"))
+                .map_err(|e| anyhow!("demo: {e}"))?;
+            println!("{}", o.summary);
+            Ok((!o.drift_pass || !o.fits).then_some(CheckFailed))
+        }
+        Command::Train { cfg, data, out } => {
+            let config = load_config(&cfg)?;
+            let dataset = config.load_data(&data, None).map_err(|e| anyhow!("{e}"))?;
+            let b = bar(config.epochs() as u64, "epochs");
+            let model = hone_host::train::train_float(&config, &dataset, &mut |e, _, loss| {
+                b.set_position(e as u64);
+                b.set_message(format!("loss {loss:.5}"));
+            })
+            .map_err(|e| anyhow!("{e}"))?;
+            b.finish_and_clear();
+            model.save(&out).map_err(|e| anyhow!("{e}"))?;
+            let last = model
+                .history
+                .last()
+                .map(|h| (h.loss, h.metric))
+                .unwrap_or_default();
+            println!(
+                "trained {} epochs on {} rows: final loss {:.6}, {} {:.4}; written to {}",
+                config.epochs(),
+                dataset.len(),
+                last.0,
+                if dataset.classes().is_some() {
+                    "accuracy %"
+                } else {
+                    "MAE"
+                },
+                last.1,
+                out.display()
+            );
+            Ok(None)
+        }
+        Command::Quantize {
+            model,
+            data,
+            blob,
+            rust,
+            json,
+        } => {
+            let base = load_base(&model, &data)?;
+            let q = &base.quant;
+            if let Some(p) = &blob {
+                let bytes = hone_host::export::model_blob(&q.desc, &q.params, &base.float.scaling)
+                    .map_err(|e| anyhow!("{e}"))?;
+                hone_host::fsutil::write_atomic(p, &bytes)
+                    .with_context(|| p.display().to_string())?;
+            }
+            if let Some(p) = &rust {
+                let origin = format!(
+                    "{} quantized with {}",
+                    model.model.display(),
+                    model.cfg.config.display()
+                );
+                let src = hone_host::export::rust_source(
+                    &q.desc,
+                    &q.params,
+                    &base.float.scaling,
+                    &origin,
+                )
+                .map_err(|e| anyhow!("{e}"))?;
+                hone_host::fsutil::write_atomic(p, src.as_bytes())
+                    .with_context(|| p.display().to_string())?;
+            }
+            if json {
+                print_json(&q.report)?;
+            } else {
+                print!("{}", hone_host::quant::render(&q.report));
+                for p in blob.iter().chain(rust.iter()) {
+                    println!("written: {}", p.display());
+                }
+            }
+            Ok(None)
+        }
+        Command::Drift(a) => drift(a),
+        Command::Plan(a) => plan(a),
+        Command::Chips { json } => {
+            let chips = hone_host::chips::all();
+            if json {
+                let rows: Vec<serde_json::Value> = chips
+                    .iter()
+                    .map(|c| serde_json::json!({ "id": c.id, "name": c.name, "vendor": c.vendor, "core": c.core.to_string(), "fpu": c.fpu.to_string(), "ram_bytes": c.ram_bytes, "flash_bytes": c.flash_bytes, "qemu_machine": c.qemu_machine, "note": c.note, "source": c.source }))
+                    .collect();
+                print_json(&rows)?;
+            } else {
+                println!(
+                    "{:<14} {:<28} {:<12} {:<7} {:>10} {:>10}  source",
+                    "id", "name", "core", "FPU", "RAM", "flash"
+                );
+                for c in chips {
+                    println!(
+                        "{:<14} {:<28} {:<12} {:<7} {:>10} {:>10}  {}",
+                        c.id,
+                        c.name,
+                        c.core.to_string(),
+                        c.fpu.to_string(),
+                        c.ram_bytes,
+                        c.flash_bytes,
+                        c.source
+                    );
+                }
+            }
+            Ok(None)
+        }
+        Command::Sweep(a) => sweep(a),
+        Command::Inspect { file, json } => {
+            let r = hone_host::inspect::inspect_file(&file).map_err(|e| anyhow!("{e}"))?;
+            if json {
+                print_json(&r)?;
+            } else {
+                print!("{}", hone_host::inspect::render(&r));
+            }
+            Ok(None)
+        }
+        Command::Checkpoint(c) => checkpoint(c),
+        Command::DemoData { out, seed } => {
+            let files = hone_host::scenario::write_all(&out, seed)
+                .with_context(|| out.display().to_string())?;
+            for f in files {
+                println!("written: {}", f.display());
+            }
+            Ok(None)
+        }
+    }
+}
+
+fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
+    let base = load_base(&a.model, &a.train)?;
+    let train = base.prepare(&a.train).map_err(|e| anyhow!("{e}"))?;
+    let eval = base.prepare(&a.eval).map_err(|e| anyhow!("{e}"))?;
+    let epochs = a.epochs.unwrap_or(base.config.epochs());
+    let opts = RunOptions {
+        epochs,
+        order_seed: base.config.train().seed,
+        per_step: a.per_step,
+        probe: a.probe,
+        shuffle: !a.no_shuffle,
+    };
+    let q = &base.quant;
+    let b = bar(epochs as u64 * train.len() as u64, "steps");
+    let run = run_side_by_side(
+        &q.desc,
+        &q.params,
+        &q.float_params,
+        &train,
+        &eval,
+        &opts,
+        &mut |p| b.set_position(p.done),
+    )
+    .map_err(|e| anyhow!("{e}"))?;
+    b.finish_and_clear();
+    let setup = vec![
+        (
+            "config".to_string(),
+            a.model.cfg.config.display().to_string(),
+        ),
+        ("model".into(), a.model.model.display().to_string()),
+        (
+            "train".into(),
+            format!(
+                "{} ({} samples, {epochs} epochs)",
+                a.train.display(),
+                train.len()
+            ),
+        ),
+        (
+            "eval".into(),
+            format!("{} ({} samples)", a.eval.display(), eval.len()),
+        ),
+        ("seed".into(), base.config.train().seed.to_string()),
+    ];
+    let t = Thresholds {
+        max_loss_gap_pct: a.limits.max_loss_gap,
+        max_metric_gap: a.limits.max_metric_gap,
+        max_weight_rms_steps: a.limits.max_weight_rms,
+        min_grad_sqnr_db: a.limits.min_grad_sqnr,
+        max_saturation_ppm: a.limits.max_saturation_ppm,
+        max_lost_updates_pct: a.limits.max_lost_updates,
+    };
+    let report = DriftReport::from_run(&run, train.is_classification(), setup, t);
+    if a.json {
+        print_json(&report)?;
+    } else {
+        print!("{}", report.render_text());
+    }
+    if let Some(dir) = &a.report {
+        let files = report
+            .document("hone drift report")
+            .write(dir, "drift")
+            .with_context(|| dir.display().to_string())?;
+        let json = dir.join("drift.json");
+        hone_host::fsutil::write_atomic(&json, serde_json::to_string_pretty(&report)?.as_bytes())
+            .with_context(|| json.display().to_string())?;
+        for f in files.iter().chain(std::iter::once(&json)) {
+            eprintln!("written: {}", f.display());
+        }
+    }
+    Ok((!report.verdict.pass).then_some(CheckFailed))
+}
+
+fn size(s: &str, what: &str) -> Result<u32> {
+    hone_host::memplan::parse_size(s).map_err(|e| anyhow!("--{what}: {e}"))
+}
+
+fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
+    use hone_host::memplan::{plan_report, render_table, AdviceOptions, Budget, Reserve};
+    let config = load_config(&a.cfg)?;
+    // Memory depends on word sizes only, so `auto` formats may take any fraction bits here.
+    let desc = config
+        .model_desc_with(hone_host::train::provisional_frac)
+        .map_err(|e| anyhow!("{e}"))?;
+    let budget = match (&a.chip, &a.ram, &a.flash) {
+        (Some(id), _, _) => Budget::chip(hone_host::chips::find(id).ok_or_else(|| anyhow!("--chip: unknown chip `{id}`; `hone chips` lists the built-in ones, or give --ram and --flash"))?),
+        (None, Some(r), Some(f)) => Budget::custom(size(r, "ram")?, size(f, "flash")?),
+        _ => return Err(anyhow!("give a target: --chip ID, or --ram SIZE and --flash SIZE")),
+    };
+    let reserve = Reserve {
+        ram_bytes: size(&a.reserve_ram, "reserve-ram")?,
+        flash_bytes: size(&a.reserve_flash, "reserve-flash")?,
+    };
+    let report = plan_report(
+        &desc,
+        &budget,
+        reserve,
+        None,
+        &AdviceOptions::default(),
+        None,
+    )
+    .map_err(|e| anyhow!("{}: {e}", a.cfg.config.display()))?;
+    if a.json {
+        print_json(&report)?;
+    } else {
+        print!("{}", render_table(&report));
+    }
+    Ok((!report.fits).then_some(CheckFailed))
+}
+
+fn parse_rounding(s: &str) -> Result<Rounding> {
+    match s {
+        "nearest-even" => Ok(Rounding::NearestEven),
+        "toward-zero" => Ok(Rounding::TowardZero),
+        "stochastic" => Ok(Rounding::Stochastic),
+        _ => Err(anyhow!(
+            "--rounding: `{s}` is not nearest-even, toward-zero or stochastic"
+        )),
+    }
+}
+
+fn parse_mode(s: &str) -> Result<TrainMode> {
+    match s {
+        "full" => Ok(TrainMode::Full),
+        "bias-only" => Ok(TrainMode::BiasOnly),
+        "weights-only" => Ok(TrainMode::WeightsOnly),
+        _ => Err(anyhow!(
+            "--mode: `{s}` is not full, bias-only or weights-only"
+        )),
+    }
+}
+
+fn parse_word(bits: u32, what: &str) -> Result<Word> {
+    Word::from_bits(bits)
+        .ok_or_else(|| anyhow!("--{what}: {bits} bits is not a word size; use 8, 16 or 32"))
+}
+
+fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
+    use hone_host::sweep::{plot, run, table, Grid};
+    let base = load_base(&a.model, &a.train)?;
+    let train = base.prepare(&a.train).map_err(|e| anyhow!("{e}"))?;
+    let eval = base.prepare(&a.eval).map_err(|e| anyhow!("{e}"))?;
+    let grid = Grid {
+        weight_words: a
+            .weights
+            .iter()
+            .map(|&b| parse_word(b, "weights"))
+            .collect::<Result<_>>()?,
+        activation_words: a
+            .activations
+            .iter()
+            .map(|&b| parse_word(b, "activations"))
+            .collect::<Result<_>>()?,
+        frac_deltas: a.frac_delta.clone(),
+        roundings: a
+            .rounding
+            .iter()
+            .map(|s| parse_rounding(s))
+            .collect::<Result<_>>()?,
+        learning_rates: a.lr.clone(),
+        modes: a
+            .mode
+            .iter()
+            .map(|s| parse_mode(s))
+            .collect::<Result<_>>()?,
+    };
+    let opts = RunOptions {
+        epochs: a.epochs.unwrap_or(base.config.epochs()),
+        order_seed: base.config.train().seed,
+        per_step: false,
+        probe: 0,
+        shuffle: true,
+    };
+    let threads = a.jobs.unwrap_or_else(|| {
+        std::thread::available_parallelism()
+            .map(|n| n.get())
+            .unwrap_or(1)
+    });
+    let b = bar(0, "grid points");
+    let points = run(
+        &base.quant.desc,
+        &base.quant.float_params,
+        &grid,
+        &train,
+        &eval,
+        &opts,
+        threads,
+        &|done, total| {
+            b.set_length(total as u64);
+            b.set_position(done as u64);
+        },
+    );
+    b.finish_and_clear();
+    let classification = train.is_classification();
+    let t = table(&points, classification);
+    if a.json {
+        print_json(&points)?;
+    } else {
+        print!("{}", hone_host::report::render_text_table(&t));
+        println!("● on the Pareto front of training RAM against drift (|fixed − float| evaluation loss, % of float)");
+    }
+    if let Some(dir) = &a.out {
+        std::fs::create_dir_all(dir).with_context(|| dir.display().to_string())?;
+        for (name, bytes) in [
+            (
+                "sweep.json",
+                serde_json::to_string_pretty(&points)?.into_bytes(),
+            ),
+            ("sweep.svg", plot(&points).into_bytes()),
+            (
+                "sweep.txt",
+                hone_host::report::render_text_table(&t).into_bytes(),
+            ),
+        ] {
+            let p = dir.join(name);
+            hone_host::fsutil::write_atomic(&p, &bytes).with_context(|| p.display().to_string())?;
+            eprintln!("written: {}", p.display());
+        }
+    }
+    Ok(None)
+}
+
+fn geometry(g: &GeometryArgs) -> hone_host::checkpoint::Geometry {
+    hone_host::checkpoint::Geometry {
+        erase: g.erase,
+        write: g.write,
+        read: g.read,
+    }
+}
+
+fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
+    match c {
+        CheckpointCmd::Read {
+            image,
+            geometry: g,
+            out,
+            json,
+        } => {
+            let (info, blob) = hone_host::checkpoint::read_latest_file(&image, geometry(&g))
+                .map_err(|e| anyhow!("{e}"))?;
+            if let Some(p) = &out {
+                hone_host::fsutil::write_atomic(p, &blob)
+                    .with_context(|| p.display().to_string())?;
+            }
+            let report = hone_host::inspect::inspect(&image.display().to_string(), &blob)
+                .map_err(|e| anyhow!("{e}"))?;
+            if json {
+                print_json(&serde_json::json!({ "checkpoint": info, "blob": report }))?;
+            } else {
+                println!(
+                    "checkpoint seq {} in slot {} ({} bytes); other slot {}: {}",
+                    info.seq, info.slot, info.len, info.other_slot.slot, info.other_slot.state
+                );
+                print!("{}", hone_host::inspect::render(&report));
+            }
+            Ok(None)
+        }
+        CheckpointCmd::Write {
+            blob,
+            out,
+            into,
+            region,
+            geometry: g,
+        } => {
+            let image = match &into {
+                Some(existing) => {
+                    hone_host::checkpoint::append_file(existing, geometry(&g), &blob)
+                        .map_err(|e| anyhow!("{e}"))?
+                        .1
+                }
+                None => hone_host::checkpoint::write_image_file(
+                    &blob,
+                    geometry(&g),
+                    size(&region, "region")?,
+                )
+                .map_err(|e| anyhow!("{e}"))?,
+            };
+            hone_host::fsutil::write_atomic(&out, &image)
+                .with_context(|| out.display().to_string())?;
+            println!("written: {} ({} bytes)", out.display(), image.len());
+            Ok(None)
+        }
+    }
 }

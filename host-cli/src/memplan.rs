@@ -1577,6 +1577,94 @@ pub fn render_table(r: &PlanReport) -> String {
     o
 }
 
+// ---------------------------------------------------------------------------------------
+// Measured engine overheads (boards/README.md, "Memory prediction").
+//
+// Written from the figures `cargo test -p hone --test device_sessions` prints, and checked by
+// that test on every run: for each board, the RAM the firmware measures while it trains must
+// be at most the prediction built from this table and the memory plan, and the prediction at
+// most 5 % above it. The engine's code size is checked the same way.
+// ---------------------------------------------------------------------------------------
+
+/// Overheads of the training engine and of the board firmware around it, measured once on a
+/// QEMU board by its calibration session.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct MeasuredOverhead {
+    /// Board the figures were measured on (its folder under `boards/`).
+    pub board: &'static str,
+    /// Rust target the firmware was built for: the figures hold for every core that runs
+    /// code built for it.
+    pub target: &'static str,
+    /// Model config of the board's session (the engine's stack and code depend a little on
+    /// which layer kinds and training options the model uses).
+    pub config: &'static str,
+    /// `size_of::<Trainer>()`, bytes.
+    pub trainer_bytes: u32,
+    /// Stack of a guarded calibration beyond the arena and the trainer object: the model
+    /// description, the decoded last good blob, and the frames of the engine's functions,
+    /// bytes.
+    pub engine_stack_bytes: u32,
+    /// `.text` and `.rodata` of the fixed-point engine's symbols, bytes.
+    pub engine_code_bytes: u32,
+    /// Static RAM of the board firmware (`.data`, `.bss`, `.uninit`), bytes.
+    pub firmware_static_bytes: u32,
+    /// Stack depth at which the board firmware calls the engine, bytes.
+    pub firmware_stack_bytes: u32,
+}
+
+/// Where the figures of [`MEASURED_OVERHEADS`] come from.
+pub const MEASURED_SOURCE: &str =
+    "measured under QEMU by each board's calibration session (cargo test -p hone --test \
+     device_sessions; method in boards/README.md)";
+
+/// The measured overheads, one row per QEMU board.
+pub const MEASURED_OVERHEADS: [MeasuredOverhead; 0] = [];
+
+/// The Rust target whose measured figures apply to `chip`'s core, if one was measured.
+fn measured_target(chip: &Chip) -> Option<&'static str> {
+    use crate::chips::{CoreKind, Fpu};
+    match (chip.core, chip.fpu) {
+        (CoreKind::CortexM0 | CoreKind::CortexM0Plus, _) => Some("thumbv6m-none-eabi"),
+        (CoreKind::CortexM3, _) => Some("thumbv7m-none-eabi"),
+        (CoreKind::CortexM4, Fpu::Single) => Some("thumbv7em-none-eabihf"),
+        (CoreKind::Rv32imc | CoreKind::Rv32imac, _) => Some("riscv32imc-unknown-none-elf"),
+        _ => None,
+    }
+}
+
+/// The measured row for `chip`'s core, if there is one.
+pub fn measured_row(chip: &Chip) -> Option<&'static MeasuredOverhead> {
+    let target = measured_target(chip)?;
+    MEASURED_OVERHEADS.iter().find(|m| m.target == target)
+}
+
+/// The engine overhead measured for `chip`'s core (trainer object, engine stack, engine
+/// code), with its source, for [`plan_report`]; `None` when no board with that core was
+/// measured.
+pub fn measured_overhead(chip: &Chip) -> Option<EngineOverhead> {
+    let m = measured_row(chip)?;
+    Some(EngineOverhead {
+        code_flash: m.engine_code_bytes,
+        state_ram: m.trainer_bytes,
+        stack: m.engine_stack_bytes,
+        source: format!(
+            "{MEASURED_SOURCE}: board {} ({}), model {}",
+            m.board, m.target, m.config
+        ),
+    })
+}
+
+/// The RAM of hone's own board firmware around the engine (its statics and the stack depth
+/// where it calls the engine), as a [`Reserve`]; `None` when no board with `chip`'s core was
+/// measured. Flash is not counted here.
+pub fn measured_firmware_reserve(chip: &Chip) -> Option<Reserve> {
+    let m = measured_row(chip)?;
+    Some(Reserve {
+        ram_bytes: m.firmware_static_bytes + m.firmware_stack_bytes,
+        flash_bytes: 0,
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

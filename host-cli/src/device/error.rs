@@ -114,6 +114,31 @@ pub enum DeviceError {
         /// Exit code, failed checks and the last log lines.
         detail: String,
     },
+    /// A board's calibration session could not be generated or simulated, or its committed
+    /// files are out of date.
+    #[error("calibration session of {board}: {detail}")]
+    Session {
+        /// Board.
+        board: &'static str,
+        /// What went wrong.
+        detail: String,
+    },
+    /// The device's result differs from the host's.
+    #[error("the {board} firmware did not end where the host did:\n{detail}")]
+    Mismatch {
+        /// Board.
+        board: &'static str,
+        /// Every difference, one a line.
+        detail: String,
+    },
+    /// A memory prediction disagrees with the measurement.
+    #[error("memory prediction for {board}: {detail}")]
+    Prediction {
+        /// Board.
+        board: &'static str,
+        /// The figures.
+        detail: String,
+    },
     /// A board name that the runner does not know.
     #[error("unknown board `{name}`; known boards: {known}")]
     UnknownBoard {

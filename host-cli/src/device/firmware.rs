@@ -28,7 +28,12 @@ const CLEARED_ENV: &[&str] = &[
     "CARGO_PROFILE_RELEASE_LTO",
     "CARGO_PROFILE_RELEASE_DEBUG",
     "CARGO_PROFILE_RELEASE_CODEGEN_UNITS",
+    SESSION_DIR_VAR,
 ];
+
+/// Environment variable the boards' build scripts read: the folder holding the session files
+/// (`model.rs`, `samples.rs`) to build with instead of the board's committed `session/`.
+pub const SESSION_DIR_VAR: &str = "HONE_SESSION_DIR";
 
 /// Builds the release firmware of `board` (`cargo build --release` in `boards_dir/<board>`) and
 /// returns the path of its ELF image.
@@ -36,9 +41,31 @@ const CLEARED_ENV: &[&str] = &[
 /// # Errors
 /// As [`build_bin`].
 pub fn build_firmware(board: QemuBoard, boards_dir: &Path) -> Result<PathBuf, DeviceError> {
-    build_bin(
+    build_firmware_with(board, boards_dir, None)
+}
+
+/// Builds the release firmware of `board` as [`build_firmware`] does, with the session files
+/// from `session_dir` (absolute, or relative to the current directory) instead of the board's
+/// committed `session/` folder when given.
+///
+/// # Errors
+/// As [`build_bin`].
+pub fn build_firmware_with(
+    board: QemuBoard,
+    boards_dir: &Path,
+    session_dir: Option<&Path>,
+) -> Result<PathBuf, DeviceError> {
+    let session_dir = match session_dir {
+        Some(d) => Some(std::path::absolute(d).map_err(|source| DeviceError::Io {
+            path: d.to_owned(),
+            source,
+        })?),
+        None => None,
+    };
+    build_in(
         &boards_dir.join(board.name()),
         &format!("hone-{}", board.name()),
+        session_dir.as_deref(),
     )
 }
 
@@ -50,6 +77,10 @@ pub fn build_firmware(board: QemuBoard, boards_dir: &Path) -> Result<PathBuf, De
 /// fails (with the end of the compiler's output), [`DeviceError::NoArtifact`] when cargo names
 /// no executable.
 pub fn build_bin(folder: &Path, bin: &str) -> Result<PathBuf, DeviceError> {
+    build_in(folder, bin, None)
+}
+
+fn build_in(folder: &Path, bin: &str, session_dir: Option<&Path>) -> Result<PathBuf, DeviceError> {
     let what = format!(
         "`{bin}` in {}",
         folder
@@ -72,6 +103,9 @@ pub fn build_bin(folder: &Path, bin: &str) -> Result<PathBuf, DeviceError> {
     .stderr(Stdio::piped());
     for var in CLEARED_ENV {
         cmd.env_remove(var);
+    }
+    if let Some(dir) = session_dir {
+        cmd.env(SESSION_DIR_VAR, dir);
     }
     let mut child = cmd.spawn().map_err(|source| DeviceError::Spawn {
         program: cargo.to_string_lossy().into_owned(),

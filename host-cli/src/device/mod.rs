@@ -9,6 +9,9 @@
 //! 4. parses the `hone:` records into typed results and reassembles byte payloads ([`report`]),
 //! 5. reads the ELF's section sizes ([`elf`]).
 //!
+//! [`session`] generates what a board's calibration session trains and simulates it on the
+//! host; [`verify`] runs it on the board and compares the result bit for bit.
+//!
 //! [`run_board`] does all of it; [`DeviceRun::ensure_success`] turns a failed run into an error
 //! that names what went wrong.
 
@@ -21,6 +24,8 @@ pub mod qemu;
 pub mod record;
 pub mod reference;
 pub mod report;
+pub mod session;
+pub mod verify;
 
 use std::path::{Path, PathBuf};
 use std::time::Duration;
@@ -29,7 +34,7 @@ pub use board::QemuBoard;
 pub use decode::LogLine;
 pub use elf::SectionSizes;
 pub use error::DeviceError;
-pub use firmware::{build_bin, build_firmware, default_boards_dir};
+pub use firmware::{build_bin, build_firmware, build_firmware_with, default_boards_dir};
 pub use qemu::{run_qemu, QemuOutput};
 pub use report::Report;
 

@@ -1,0 +1,747 @@
+//! The on-device calibration session: what each board's firmware trains, the two Rust files
+//! it is built from, and the same session simulated on the host with the same core code.
+//!
+//! A session starts from the demo scenario (see `demo-data/README.md`): a float base model is
+//! trained on the factory data and quantized ([`Base::train`]), then exported as `model.rs`
+//! ([`crate::export::rust_source`]). `samples.rs` holds the new unit's ten calibration
+//! samples, the same inputs with mislabelled targets (each reference value moved one row down,
+//! as a logger that fell one row behind would write them), the forty hold-out samples, the
+//! number of passes, the guard's thresholds, the float twin's start and one
+//! `hone_fw::train::Session` value that ties them together.
+//!
+//! Everything is deterministic: the same repository gives the same files, byte for byte, and
+//! [`simulate`] gives the results the device must reproduce bit for bit.
+//!
+//! The files are committed under `boards/<board>/session/`; [`generate`] rewrites them, and
+//! the device tests check that they are current.
+
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+
+use hone_core::blob::{self, BlobBody, ChannelScale, TrainState};
+use hone_core::float::{FloatParams, FloatTarget, Twin};
+use hone_core::guard::{self, GuardConfig, SessionReport};
+use hone_core::layer::loss::Target;
+use hone_core::layer::Tensor;
+use hone_core::model::{ModelDesc, MAX_LAYERS};
+use hone_core::num::{QFormat, Raw, Word};
+use hone_core::plan::Plan;
+use hone_core::train::Trainer;
+
+use crate::chips::{self, Chip};
+use crate::config::Config;
+use crate::memplan::{self, AdviceOptions, Budget, PlanReport};
+use crate::pipeline::Base;
+use crate::sim::{OwnedRaw, Prepared, PreparedTargets, QuantParams};
+
+/// The factory data the base model is trained on, relative to the repository.
+pub const FACTORY_CSV: &str = "demo-data/soil_factory.csv";
+/// The new unit's calibration samples, relative to the repository.
+pub const CALIBRATION_CSV: &str = "demo-data/soil_unit_calibration.csv";
+/// The new unit's hold-out samples, relative to the repository.
+pub const HOLDOUT_CSV: &str = "demo-data/soil_unit_holdout.csv";
+/// Passes over the calibration samples, in stored order.
+pub const PASSES: u16 = 3;
+/// The guard's thresholds.
+pub const GUARD: GuardConfig = GuardConfig::DEFAULT;
+
+/// What one board trains.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct BoardSession {
+    /// Board folder under `boards/`.
+    pub board: &'static str,
+    /// Chip of the built-in table whose RAM and flash the plan is checked against.
+    pub chip: &'static str,
+    /// Model config, relative to the repository.
+    pub config: &'static str,
+}
+
+/// The boards with a calibration session. The 8-bit setup (bias-only first layer, `i8`
+/// weights with `i32` master copies, stochastic rounding of updates, dynamic fixed point) runs
+/// on the RISC-V board, so every engine path the 16-bit setup leaves out is also checked on a
+/// device.
+pub const BOARD_SESSIONS: [BoardSession; 5] = [
+    BoardSession {
+        board: "lm3s6965evb",
+        chip: "lm3s6965",
+        config: "examples/soil-moisture.toml",
+    },
+    BoardSession {
+        board: "microbit",
+        chip: "nrf51822",
+        config: "examples/soil-moisture.toml",
+    },
+    BoardSession {
+        board: "mps2-an386",
+        chip: "mps2-an386",
+        config: "examples/soil-moisture.toml",
+    },
+    BoardSession {
+        board: "sifive-e",
+        chip: "fe310",
+        config: "examples/soil-moisture-8bit.toml",
+    },
+    BoardSession {
+        board: "pico",
+        chip: "rp2040",
+        config: "examples/soil-moisture.toml",
+    },
+];
+
+/// The session of `board`, if it has one.
+#[must_use]
+pub fn board_session(board: &str) -> Option<&'static BoardSession> {
+    BOARD_SESSIONS.iter().find(|b| b.board == board)
+}
+
+/// The repository this library was built from (the parent of `host-cli`).
+#[must_use]
+pub fn default_repo_dir() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join("..")
+}
+
+/// Where the committed session files of `board` live: `boards/<board>/session`.
+#[must_use]
+pub fn committed_dir(boards_dir: &Path, board: &str) -> PathBuf {
+    boards_dir.join(board).join("session")
+}
+
+/// The file names of a session, in the order they are written.
+pub const FILES: [&str; 2] = ["model.rs", "samples.rs"];
+
+/// A board's calibration session, in memory.
+#[derive(Clone, Debug)]
+pub struct Session {
+    /// Which board and setup.
+    pub spec: BoardSession,
+    /// The chip the plan was checked against.
+    pub chip: &'static Chip,
+    /// The quantized model description.
+    pub desc: ModelDesc,
+    /// Its factory parameters.
+    pub params: QuantParams,
+    /// Input scaling.
+    pub scaling: Vec<ChannelScale>,
+    /// The factory model blob (the guard's last good weights).
+    pub blob: Vec<u8>,
+    /// Calibration samples.
+    pub calibration: Prepared,
+    /// The calibration inputs with mislabelled targets.
+    pub faulty: Prepared,
+    /// Hold-out samples.
+    pub holdout: Prepared,
+    /// The float twin's start: the factory parameters in `f32`, per layer.
+    pub float_params: Vec<(Vec<f32>, Vec<f32>)>,
+    /// Calibration inputs in `f32` (the quantized inputs, exactly), flattened.
+    pub float_x: Vec<f32>,
+    /// Calibration targets in `f32` (the quantized targets, exactly), flattened; empty for
+    /// classification.
+    pub float_y: Vec<f32>,
+    /// The memory plan report against the chip.
+    pub plan_report: PlanReport,
+    /// Upper bound of a checkpoint blob's length, bytes.
+    pub checkpoint_capacity: usize,
+    /// `model.rs`.
+    pub model_rs: String,
+    /// `samples.rs`.
+    pub samples_rs: String,
+}
+
+impl Session {
+    /// Builds the session of `board` from the repository at `repo`: trains and quantizes the
+    /// base model, prepares the samples, checks the memory plan against the board's chip and
+    /// renders both files.
+    ///
+    /// # Errors
+    /// A message for an unknown board, unreadable config or data, or a model that does not
+    /// fit the chip by the memory plan (with the measured engine overhead where the table has
+    /// one for the chip's core).
+    pub fn build(repo: &Path, board: &str) -> Result<Session, String> {
+        let spec = *board_session(board).ok_or_else(|| {
+            format!(
+                "no calibration session for board `{board}`; boards with one: {}",
+                BOARD_SESSIONS.map(|b| b.board).join(", ")
+            )
+        })?;
+        let chip = chips::find(spec.chip)
+            .ok_or_else(|| format!("chip `{}` is not in the built-in table", spec.chip))?;
+        let config = Config::load(&repo.join(spec.config)).map_err(|e| e.to_string())?;
+        let base = Base::train(config, &repo.join(FACTORY_CSV), &mut |_, _, _| {})?;
+        let desc = base.quant.desc.clone();
+        let params = base.quant.params.clone();
+        let scaling = base.float.scaling.clone();
+        let blob = crate::export::model_blob(&desc, &params, &scaling)?;
+        let calibration = base.prepare(&repo.join(CALIBRATION_CSV))?;
+        let holdout = base.prepare(&repo.join(HOLDOUT_CSV))?;
+        let faulty = mislabel(&calibration);
+
+        // The plan against the chip. The engine overhead is the measured one where the table
+        // has it; the firmware's own RAM is the reserve.
+        let overhead = memplan::measured_overhead(chip);
+        let reserve = memplan::measured_firmware_reserve(chip).unwrap_or_default();
+        let plan_report = memplan::plan_report(
+            &desc,
+            &Budget::chip(chip),
+            reserve,
+            overhead.as_ref(),
+            &AdviceOptions::default(),
+            None,
+        )
+        .map_err(|e| e.to_string())?;
+        if !plan_report.fits {
+            return Err(format!(
+                "the model of {} does not fit {}: {}",
+                spec.config, chip.name, plan_report.verdict
+            ));
+        }
+
+        let float_params = params
+            .layers
+            .iter()
+            .zip(desc.layers.iter())
+            .map(|((w, b), l)| (to_f32(w, l.weight.value), to_f32(b, l.bias.value)))
+            .collect();
+        let float_x = calibration
+            .xq
+            .iter()
+            .flat_map(|x| to_f32(x, desc.input_format))
+            .collect();
+        let float_y = match &calibration.target {
+            PreparedTargets::Values { yq, format, .. } => {
+                yq.iter().flat_map(|y| to_f32(y, *format)).collect()
+            }
+            PreparedTargets::Classes(_) => Vec::new(),
+        };
+        let checkpoint_capacity = checkpoint_capacity(&desc, &params, &scaling)?;
+        let origin = format!(
+            "board `{}`, {} trained on {FACTORY_CSV} by hone_host::device::session",
+            spec.board, spec.config
+        );
+        let model_rs = crate::export::rust_source(&desc, &params, &scaling, &origin)?;
+        let mut s = Session {
+            spec,
+            chip,
+            desc,
+            params,
+            scaling,
+            blob,
+            calibration,
+            faulty,
+            holdout,
+            float_params,
+            float_x,
+            float_y,
+            plan_report,
+            checkpoint_capacity,
+            model_rs,
+            samples_rs: String::new(),
+        };
+        s.samples_rs = render_samples(&s);
+        Ok(s)
+    }
+
+    /// The two files as `(name, text)`.
+    #[must_use]
+    pub fn files(&self) -> [(&'static str, &str); 2] {
+        [
+            (FILES[0], self.model_rs.as_str()),
+            (FILES[1], self.samples_rs.as_str()),
+        ]
+    }
+
+    /// Writes both files into `dir` (created if missing). A file whose contents are already
+    /// equal is left alone, so cargo sees no change. Returns the paths written.
+    ///
+    /// # Errors
+    /// A message naming the file that could not be written.
+    pub fn write(&self, dir: &Path) -> Result<Vec<PathBuf>, String> {
+        std::fs::create_dir_all(dir).map_err(|e| format!("{}: {e}", dir.display()))?;
+        let mut written = Vec::new();
+        for (name, text) in self.files() {
+            let path = dir.join(name);
+            if std::fs::read(&path).ok().as_deref() == Some(text.as_bytes()) {
+                continue;
+            }
+            crate::fsutil::write_atomic(&path, text.as_bytes())
+                .map_err(|e| format!("{}: {e}", path.display()))?;
+            written.push(path);
+        }
+        Ok(written)
+    }
+
+    /// Checks that `dir` holds exactly this session's files.
+    ///
+    /// # Errors
+    /// A message naming the first file that is missing or differs, and the command that
+    /// regenerates it.
+    pub fn check_current(&self, dir: &Path) -> Result<(), String> {
+        for (name, text) in self.files() {
+            let path = dir.join(name);
+            let on_disk =
+                std::fs::read_to_string(&path).map_err(|e| format!("{}: {e}", path.display()))?;
+            if on_disk != text {
+                let line = on_disk
+                    .lines()
+                    .zip(text.lines())
+                    .position(|(a, b)| a != b)
+                    .map_or_else(
+                        || on_disk.lines().count().min(text.lines().count()) + 1,
+                        |i| i + 1,
+                    );
+                return Err(format!(
+                    "{} is not what the generator writes now (first difference at line {line}); \
+                     regenerate the board's session files with \
+                     `hone_host::device::session::generate` (see boards/README.md, \
+                     \"Session files\")",
+                    path.display()
+                ));
+            }
+        }
+        Ok(())
+    }
+}
+
+/// Writes the session files of `board` into `dir`, built from this source tree (see
+/// [`Session::build`] and [`Session::write`]). Returns the paths that changed.
+///
+/// # Errors
+/// As [`Session::build`] and [`Session::write`].
+pub fn generate(dir: &Path, board: &str) -> Result<Vec<PathBuf>, String> {
+    Session::build(&default_repo_dir(), board)?.write(dir)
+}
+
+/// The same samples with each target moved one row down (the last to the top).
+fn mislabel(p: &Prepared) -> Prepared {
+    let mut f = p.clone();
+    match &mut f.target {
+        PreparedTargets::Values { y, yq, .. } => {
+            y.rotate_right(1);
+            yq.rotate_right(1);
+        }
+        PreparedTargets::Classes(l) => l.rotate_right(1),
+    }
+    f
+}
+
+/// The real values of `raw` in `fmt`, as `f32` (exact for `i8` and `i16`; nearest for `i32`).
+fn to_f32(raw: &OwnedRaw, fmt: QFormat) -> Vec<f32> {
+    let r = raw.raw();
+    (0..r.len()).map(|i| fmt.to_f32(r.at(i))).collect()
+}
+
+/// The length of a checkpoint of this model with the largest training state: every counter at
+/// its maximum, so the postcard varints take their longest form.
+fn checkpoint_capacity(
+    desc: &ModelDesc,
+    params: &QuantParams,
+    scaling: &[ChannelScale],
+) -> Result<usize, String> {
+    let plan = Plan::of(desc).map_err(|e| e.to_string())?;
+    let mut arena = vec![0u32; plan.ram_words()];
+    let views = params.views();
+    let t = Trainer::new(desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
+    let body = t.checkpoint_body(scaling).map_err(|e| e.to_string())?;
+    let worst = BlobBody {
+        state: Some(TrainState {
+            steps: u32::MAX,
+            updates: u32::MAX,
+            rng: [u32::MAX; 4],
+            fracs: [[u8::MAX; 4]; MAX_LAYERS],
+        }),
+        ..body
+    };
+    blob::encoded_len(&worst).map_err(|e| e.to_string())
+}
+
+fn word_type(w: Word) -> &'static str {
+    match w {
+        Word::I8 => "i8",
+        Word::I16 => "i16",
+        Word::I32 => "i32",
+    }
+}
+
+fn raw_variant(w: Word) -> &'static str {
+    match w {
+        Word::I8 => "I8",
+        Word::I16 => "I16",
+        Word::I32 => "I32",
+    }
+}
+
+fn qf(f: QFormat) -> String {
+    format!(
+        "hone_core::num::QFormat::new_unchecked(hone_core::num::Word::{}, {})",
+        raw_variant(f.word),
+        f.frac
+    )
+}
+
+/// `pub static NAME: [ty; n] = [...];` with 16 values a line.
+fn array<T: std::fmt::Debug>(out: &mut String, name: &str, ty: &str, values: &[T]) {
+    let _ = write!(out, "pub static {name}: [{ty}; {}] = [", values.len());
+    for (i, v) in values.iter().enumerate() {
+        if i % 16 == 0 {
+            out.push_str("\n    ");
+        } else {
+            out.push(' ');
+        }
+        let _ = write!(out, "{v:?},");
+    }
+    out.push_str("\n];\n");
+}
+
+/// The quantized values of every sample, flattened, as `i32`.
+fn flat(rows: &[OwnedRaw]) -> (Word, Vec<i32>) {
+    let word = rows.first().map_or(Word::I16, |r| r.raw().word());
+    let values = rows
+        .iter()
+        .flat_map(|r| {
+            let raw = r.raw();
+            (0..raw.len()).map(move |i| raw.at(i))
+        })
+        .collect();
+    (word, values)
+}
+
+fn int_array(out: &mut String, name: &str, word: Word, values: &[i32]) {
+    array(out, name, word_type(word), values);
+}
+
+/// Writes the arrays of one sample set and returns the `SampleSet` expression.
+fn sample_set(out: &mut String, prefix: &str, p: &Prepared, x_name: Option<&str>) -> String {
+    let x = match x_name {
+        Some(name) => name.to_owned(),
+        None => {
+            let (word, values) = flat(&p.xq);
+            let name = format!("{prefix}_X");
+            int_array(out, &name, word, &values);
+            name
+        }
+    };
+    let x_word = p.xq.first().map_or(Word::I16, |r| r.raw().word());
+    let y = match &p.target {
+        PreparedTargets::Values { yq, format, .. } => {
+            let (word, values) = flat(yq);
+            let name = format!("{prefix}_Y");
+            int_array(out, &name, word, &values);
+            format!(
+                "hone_fw::train::Targets::Values(hone_core::layer::Tensor {{ raw: hone_core::num::Raw::{}(&{name}), fmt: {} }})",
+                raw_variant(word),
+                qf(*format)
+            )
+        }
+        PreparedTargets::Classes(labels) => {
+            let name = format!("{prefix}_LABELS");
+            array(out, &name, "u16", labels);
+            format!("hone_fw::train::Targets::Classes(&{name})")
+        }
+    };
+    format!(
+        "hone_fw::train::SampleSet {{\n        count: {},\n        x: hone_core::num::Raw::{}(&{x}),\n        y: {y},\n    }}",
+        p.len(),
+        raw_variant(x_word)
+    )
+}
+
+/// `samples.rs`: everything of the session besides the model.
+fn render_samples(s: &Session) -> String {
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "// Generated by hone_host::device::session for board `{}`: the calibration session of\n\
+         // {} ({} calibration samples from {CALIBRATION_CSV}, the same with\n\
+         // mislabelled targets, {} hold-out samples from {HOLDOUT_CSV}).\n\
+         // Regenerate rather than edit (see boards/README.md). Included after `model.rs`.\n",
+        s.spec.board,
+        s.spec.config,
+        s.calibration.len(),
+        s.holdout.len()
+    );
+    let _ = writeln!(out, "/// Passes over the calibration samples.");
+    let _ = writeln!(out, "pub const PASSES: u16 = {PASSES};\n");
+
+    let calib = sample_set(&mut out, "CALIB", &s.calibration, None);
+    let faulty = sample_set(&mut out, "FAULTY", &s.faulty, Some("CALIB_X"));
+    let holdout = sample_set(&mut out, "HOLDOUT", &s.holdout, None);
+
+    let _ = writeln!(
+        out,
+        "\n// The float twin: the quantized inputs, targets and factory parameters as `f32`."
+    );
+    array(&mut out, "CALIB_XF", "f32", &s.float_x);
+    let float_y = if s.calibration.is_classification() {
+        "hone_fw::train::FloatTargets::Classes(&CALIB_LABELS)".to_owned()
+    } else {
+        array(&mut out, "CALIB_YF", "f32", &s.float_y);
+        "hone_fw::train::FloatTargets::Values(&CALIB_YF)".to_owned()
+    };
+    let mut entries = Vec::new();
+    for (k, (l, (w, b))) in s.desc.layers.iter().zip(&s.float_params).enumerate() {
+        if !l.kind.has_params() {
+            entries.push("hone_core::float::FloatParams::NONE".to_owned());
+            continue;
+        }
+        array(&mut out, &format!("FW{k}"), "f32", w);
+        array(&mut out, &format!("FB{k}"), "f32", b);
+        entries.push(format!(
+            "hone_core::float::FloatParams {{ weight: &FW{k}, bias: &FB{k} }}"
+        ));
+    }
+    let _ = writeln!(
+        out,
+        "pub static FLOAT_PARAMS: [hone_core::float::FloatParams<'static, f32>; {}] = [",
+        entries.len()
+    );
+    for e in &entries {
+        let _ = writeln!(out, "    {e},");
+    }
+    let _ = writeln!(out, "];");
+    let _ = writeln!(
+        out,
+        "pub const FLOAT_PLAN: hone_core::plan::Plan =\n    match hone_core::plan::Plan::new_float(INPUT, &LAYERS, LOSS, &TRAIN, 4) {{\n        Ok(p) => p,\n        Err(_) => panic!(\"the exported model has no float plan\"),\n    }};"
+    );
+    let _ = writeln!(
+        out,
+        "pub const FLOAT_ARENA_WORDS: usize = FLOAT_PLAN.ram_words();"
+    );
+    let _ = writeln!(
+        out,
+        "\n/// Bytes of the buffer a checkpoint is written into (the longest checkpoint of this model).\npub const CHECKPOINT_BYTES: usize = {};",
+        s.checkpoint_capacity
+    );
+    let g = GUARD;
+    let _ = writeln!(
+        out,
+        "\npub static SESSION: hone_fw::train::Session<'static> = hone_fw::train::Session {{\n    \
+         input: INPUT,\n    input_format: INPUT_FORMAT,\n    layers: &LAYERS,\n    loss: LOSS,\n    \
+         train: TRAIN,\n    plan: &PLAN,\n    params: &PARAMS,\n    model_blob: &MODEL_BLOB,\n    \
+         scaling: &SCALING,\n    calibration: {calib},\n    faulty: {faulty},\n    holdout: {holdout},\n    \
+         passes: PASSES,\n    guard: hone_core::guard::GuardConfig {{\n        max_loss_rise_permille: {},\n        \
+         loss_floor: hone_core::layer::loss::LossValue({}),\n        max_saturation_ppm: {},\n    }},\n    \
+         float_plan: &FLOAT_PLAN,\n    float_params: &FLOAT_PARAMS,\n    \
+         float_calibration: hone_fw::train::FloatSet {{\n        count: {},\n        x: &CALIB_XF,\n        y: {float_y},\n    }},\n}};",
+        g.max_loss_rise_permille,
+        g.loss_floor.0,
+        g.max_saturation_ppm,
+        s.calibration.len()
+    );
+    out
+}
+
+/// Where one trained tensor sits in a weights payload.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct TensorSpan {
+    /// Layer index.
+    pub layer: usize,
+    /// `weight` or `bias`.
+    pub tensor: &'static str,
+    /// Storage word (`None` for the float twin's `f32`).
+    pub word: Option<Word>,
+    /// Number of values.
+    pub elems: usize,
+    /// Offset in the payload, bytes.
+    pub offset: usize,
+}
+
+impl TensorSpan {
+    /// Bytes per value.
+    #[must_use]
+    pub fn value_bytes(&self) -> usize {
+        self.word.map_or(4, Word::bytes)
+    }
+}
+
+/// The trained tensors of `plan` in payload order (per layer: weight, then bias), with their
+/// offsets; `float` lays them out as `f32`.
+#[must_use]
+pub fn payload_layout(desc: &ModelDesc, plan: &Plan, float: bool) -> Vec<TensorSpan> {
+    let mut out = Vec::new();
+    let mut offset = 0;
+    for (k, l) in desc.layers.iter().enumerate() {
+        let s = plan.layers[k];
+        for (tensor, slot, word) in [
+            ("weight", s.weight, l.weight.value.word),
+            ("bias", s.bias, l.bias.value.word),
+        ] {
+            if !slot.is_some() {
+                continue;
+            }
+            let word = (!float).then_some(word);
+            let span = TensorSpan {
+                layer: k,
+                tensor,
+                word,
+                elems: slot.elems as usize,
+                offset,
+            };
+            offset += span.elems * span.value_bytes();
+            out.push(span);
+        }
+    }
+    out
+}
+
+/// Multiply-accumulates of one training sample, `(forward, backward)`: the forward pass, plus
+/// for every layer with parameters from the first trained one on, its weight gradient (when
+/// its weights train) and its input gradient (when a trained layer lies below it).
+#[must_use]
+pub fn training_macs(desc: &ModelDesc, plan: &Plan) -> (u64, u64) {
+    let forward: u64 = plan.shapes.layers[..plan.count()]
+        .iter()
+        .map(|g| u64::from(g.macs))
+        .sum();
+    let mut backward = 0u64;
+    for (k, l) in desc.layers.iter().enumerate().skip(plan.first_trainable) {
+        if !l.kind.has_params() {
+            continue;
+        }
+        let macs = u64::from(plan.shapes.layers[k].macs);
+        if l.mode.trains_weight() {
+            backward += macs;
+        }
+        if k > plan.first_trainable {
+            backward += macs;
+        }
+    }
+    (forward, backward)
+}
+
+/// One guarded set, simulated.
+#[derive(Clone, Debug)]
+pub struct GuardedOutcome {
+    /// What the core's `guard::calibrate` reported.
+    pub report: SessionReport,
+    /// The trained tensors at the end, in payload order.
+    pub weights: Vec<u8>,
+    /// The checkpoint blob at the end.
+    pub checkpoint: Vec<u8>,
+    /// The trainer's step count at the end.
+    pub steps: u32,
+    /// The trainer's update count at the end.
+    pub updates: u32,
+}
+
+/// The whole session, simulated on the host.
+#[derive(Clone, Debug)]
+pub struct HostOutcome {
+    /// The calibration samples.
+    pub calibration: GuardedOutcome,
+    /// The mislabelled samples.
+    pub faulty: GuardedOutcome,
+    /// The float twin's trained tensors, `f32` little-endian, in payload order.
+    pub float_weights: Vec<u8>,
+    /// The fixed-point plan.
+    pub plan: Plan,
+    /// The float twin's plan.
+    pub float_plan: Plan,
+}
+
+/// Runs the session on the host, as the firmware does: for each guarded set a fresh trainer
+/// from the factory parameters, the core's [`guard::calibrate`] with the calibration (or
+/// mislabelled) samples repeated [`PASSES`] times in stored order, the hold-out samples and
+/// the factory blob as the last good model; then the float twin in `f32` on the calibration
+/// samples.
+///
+/// # Errors
+/// A message for any error of the core.
+pub fn simulate(s: &Session) -> Result<HostOutcome, String> {
+    let desc = &s.desc;
+    let plan = Plan::of(desc).map_err(|e| e.to_string())?;
+    let calibration = guarded(s, &plan, &s.calibration)?;
+    let faulty = guarded(s, &plan, &s.faulty)?;
+
+    let float_plan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 4)
+        .map_err(|e| e.to_string())?;
+    let mut arena = vec![0f32; float_plan.ram_words()];
+    let views: Vec<FloatParams<'_, f32>> = s
+        .float_params
+        .iter()
+        .map(|(w, b)| FloatParams { weight: w, bias: b })
+        .collect();
+    let mut twin =
+        Twin::new(desc, &float_plan, &mut arena, &views).map_err(|e| format!("twin: {e}"))?;
+    let n_in = desc.input.size() as usize;
+    let n_out = plan.shapes.output.size() as usize;
+    for _ in 0..PASSES {
+        for i in 0..s.calibration.len() {
+            let x = &s.float_x[i * n_in..(i + 1) * n_in];
+            let t = match &s.calibration.target {
+                PreparedTargets::Values { .. } => {
+                    FloatTarget::Values(&s.float_y[i * n_out..(i + 1) * n_out])
+                }
+                PreparedTargets::Classes(l) => FloatTarget::Class(l[i]),
+            };
+            twin.step(x, t)
+                .map_err(|e| format!("twin sample {}: {e}", i + 1))?;
+        }
+    }
+    twin.flush();
+    let mut float_weights = Vec::new();
+    for k in 0..desc.layers.len() {
+        let Some(p) = twin.params(k) else { continue };
+        let slots = float_plan.layers[k];
+        for (values, trained) in [
+            (p.weight, slots.weight.is_some()),
+            (p.bias, slots.bias.is_some()),
+        ] {
+            if trained {
+                for v in values {
+                    float_weights.extend_from_slice(&v.to_le_bytes());
+                }
+            }
+        }
+    }
+    Ok(HostOutcome {
+        calibration,
+        faulty,
+        float_weights,
+        plan,
+        float_plan,
+    })
+}
+
+fn guarded(s: &Session, plan: &Plan, set: &Prepared) -> Result<GuardedOutcome, String> {
+    let desc = &s.desc;
+    let mut arena = vec![0u32; plan.ram_words()];
+    let views = s.params.views();
+    let mut t = Trainer::new(desc, plan, &mut arena, &views).map_err(|e| e.to_string())?;
+    let last_good = blob::decode(&s.blob).map_err(|e| e.to_string())?;
+    let fmt = desc.input_format;
+    let train: Vec<(Tensor<'_>, Target<'_>)> = (0..PASSES)
+        .flat_map(|_| (0..set.len()).map(|i| set.fixed(i, fmt)))
+        .collect();
+    let holdout: Vec<(Tensor<'_>, Target<'_>)> = (0..s.holdout.len())
+        .map(|i| s.holdout.fixed(i, fmt))
+        .collect();
+    let report =
+        guard::calibrate(&mut t, train, holdout, &GUARD, &last_good).map_err(|e| e.to_string())?;
+    let mut weights = Vec::new();
+    for span in payload_layout(desc, plan, false) {
+        let raw = t
+            .params(span.layer)
+            .map(|p| {
+                if span.tensor == "weight" {
+                    p.weight
+                } else {
+                    p.bias
+                }
+            })
+            .unwrap_or(Raw::EMPTY);
+        let mut bytes = vec![0u8; raw.len() * raw.word().bytes()];
+        raw.write_le(&mut bytes);
+        weights.extend_from_slice(&bytes);
+    }
+    let mut checkpoint = vec![0u8; s.checkpoint_capacity];
+    let n = t
+        .write_checkpoint(&s.scaling, &mut checkpoint)
+        .map_err(|e| e.to_string())?;
+    checkpoint.truncate(n);
+    Ok(GuardedOutcome {
+        report,
+        weights,
+        checkpoint,
+        steps: t.steps(),
+        updates: t.updates(),
+    })
+}
