@@ -434,6 +434,26 @@ impl Plan {
         total
     }
 
+    /// Multiply-accumulates of one training step: the forward pass, plus for each layer from
+    /// the first trainable one on, the weight-gradient products of a layer that trains its
+    /// weights and the input-gradient products of a layer that passes a gradient back (each
+    /// as many as the layer's forward products).
+    pub const fn training_macs(&self) -> u64 {
+        let mut total = self.forward_macs();
+        let mut k = self.first_trainable;
+        while k < self.shapes.count {
+            let macs = self.shapes.layers[k].macs as u64;
+            if self.layers[k].accum_weight.is_some() {
+                total += macs;
+            }
+            if k > self.first_trainable {
+                total += macs;
+            }
+            k += 1;
+        }
+        total
+    }
+
     /// Bytes of the arena by category, for reports.
     pub fn ram_by_category(&self) -> RamBreakdown {
         let mut b = RamBreakdown::default();
@@ -594,6 +614,10 @@ mod tests {
         assert_eq!(end, p.ram_bytes);
         // Flash: 16 + 20 + (15 i8 -> 16) + (3 i32 -> 12).
         assert_eq!(p.flash_bytes, 16 + 20 + 16 + 12);
+        // Forward 15 + 15 MACs; layer 0 adds its weight gradient (15); layer 2 adds its
+        // weight gradient and its input gradient (15 + 15).
+        assert_eq!(p.forward_macs(), 30);
+        assert_eq!(p.training_macs(), 30 + 15 + 30);
     }
 
     #[test]

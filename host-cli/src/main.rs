@@ -279,6 +279,30 @@ enum CheckpointCmd {
     },
 }
 
+/// Writes to standard output. When the reader has gone away (`hone chips | head -1`), the
+/// rest of the output has nowhere to go: the command stops quietly with status 0 instead of
+/// panicking like `print!` does.
+fn emit(args: std::fmt::Arguments<'_>) {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    if let Err(e) = out.write_fmt(args).and_then(|_| out.flush()) {
+        if e.kind() == std::io::ErrorKind::BrokenPipe {
+            std::process::exit(0);
+        }
+        eprintln!("error: cannot write to standard output: {e}");
+        std::process::exit(2);
+    }
+}
+
+macro_rules! out {
+    ($($t:tt)*) => { emit(format_args!($($t)*)) };
+}
+
+macro_rules! outln {
+    () => { emit(format_args!("\n")) };
+    ($($t:tt)*) => {{ emit(format_args!($($t)*)); emit(format_args!("\n")) }};
+}
+
 /// A failed check: printed, then exit status 1.
 struct CheckFailed;
 
@@ -315,20 +339,33 @@ fn load_config(c: &ConfigArg) -> Result<Config> {
 fn load_base(m: &ModelArgs, calib: &Path) -> Result<Base> {
     let config = load_config(&m.cfg)?;
     let float = FloatModel::load(&m.model).map_err(|e| anyhow!("{e}"))?;
-    Base::from_float(config, float, calib).map_err(|e| anyhow!("{e}"))
+    Base::from_float(config, float, calib)
+        .map_err(|e| anyhow!("{e}"))
+        .with_context(|| {
+            format!(
+                "model {} with config {}",
+                m.model.display(),
+                m.cfg.config.display()
+            )
+        })
 }
 
 fn print_json<T: serde::Serialize>(v: &T) -> Result<()> {
-    println!("{}", serde_json::to_string_pretty(v)?);
+    outln!("{}", serde_json::to_string_pretty(v)?);
     Ok(())
 }
 
 fn run(cmd: Command) -> Result<Option<CheckFailed>> {
     match cmd {
         Command::Demo { out, chip } => {
+            if hone_host::chips::find(&chip).is_none() {
+                return Err(anyhow!(
+                    "--chip: unknown chip `{chip}`; `hone chips` lists the built-in ones"
+                ));
+            }
             let o = hone_host::demo::run(&out, &chip, &mut |m| eprintln!("{m}"))
                 .map_err(|e| anyhow!("demo: {e}"))?;
-            println!("{}", o.summary);
+            outln!("{}", o.summary);
             Ok((!o.drift_pass || !o.fits).then_some(CheckFailed))
         }
         Command::Train { cfg, data, out } => {
@@ -347,7 +384,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                 .last()
                 .map(|h| (h.loss, h.metric))
                 .unwrap_or_default();
-            println!(
+            outln!(
                 "trained {} epochs on {} rows: final loss {:.6}, {} {:.4}; written to {}",
                 config.epochs(),
                 dataset.len(),
@@ -396,9 +433,9 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             if json {
                 print_json(&q.report)?;
             } else {
-                print!("{}", hone_host::quant::render(&q.report));
+                out!("{}", hone_host::quant::render(&q.report));
                 for p in blob.iter().chain(rust.iter()) {
-                    println!("written: {}", p.display());
+                    outln!("written: {}", p.display());
                 }
             }
             Ok(None)
@@ -414,12 +451,17 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                     .collect();
                 print_json(&rows)?;
             } else {
-                println!(
+                outln!(
                     "{:<14} {:<28} {:<12} {:<7} {:>10} {:>10}  source",
-                    "id", "name", "core", "FPU", "RAM", "flash"
+                    "id",
+                    "name",
+                    "core",
+                    "FPU",
+                    "RAM",
+                    "flash"
                 );
                 for c in chips {
-                    println!(
+                    outln!(
                         "{:<14} {:<28} {:<12} {:<7} {:>10} {:>10}  {}",
                         c.id,
                         c.name,
@@ -439,7 +481,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             if json {
                 print_json(&r)?;
             } else {
-                print!("{}", hone_host::inspect::render(&r));
+                out!("{}", hone_host::inspect::render(&r));
             }
             Ok(None)
         }
@@ -448,7 +490,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             let files = hone_host::scenario::write_all(&out, seed)
                 .with_context(|| out.display().to_string())?;
             for f in files {
-                println!("written: {}", f.display());
+                outln!("written: {}", f.display());
             }
             Ok(None)
         }
@@ -512,7 +554,7 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
     if a.json {
         print_json(&report)?;
     } else {
-        print!("{}", report.render_text());
+        out!("{}", report.render_text());
     }
     if let Some(dir) = &a.report {
         let files = report
@@ -561,7 +603,7 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
     if a.json {
         print_json(&report)?;
     } else {
-        print!("{}", render_table(&report));
+        out!("{}", render_table(&report));
     }
     Ok((!report.fits).then_some(CheckFailed))
 }
@@ -654,8 +696,8 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
     if a.json {
         print_json(&points)?;
     } else {
-        print!("{}", hone_host::report::render_text_table(&t));
-        println!("● on the Pareto front of training RAM against drift (|fixed − float| evaluation loss, % of float)");
+        out!("{}", hone_host::report::render_text_table(&t));
+        outln!("● on the Pareto front of training RAM against drift (|fixed − float| evaluation loss, % of float)");
     }
     if let Some(dir) = &a.out {
         std::fs::create_dir_all(dir).with_context(|| dir.display().to_string())?;
@@ -705,11 +747,15 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
             if json {
                 print_json(&serde_json::json!({ "checkpoint": info, "blob": report }))?;
             } else {
-                println!(
+                outln!(
                     "checkpoint seq {} in slot {} ({} bytes); other slot {}: {}",
-                    info.seq, info.slot, info.len, info.other_slot.slot, info.other_slot.state
+                    info.seq,
+                    info.slot,
+                    info.len,
+                    info.other_slot.slot,
+                    info.other_slot.state
                 );
-                print!("{}", hone_host::inspect::render(&report));
+                out!("{}", hone_host::inspect::render(&report));
             }
             Ok(None)
         }
@@ -726,16 +772,23 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
                         .map_err(|e| anyhow!("{e}"))?
                         .1
                 }
-                None => hone_host::checkpoint::write_image_file(
-                    &blob,
-                    geometry(&g),
-                    size(&region, "region")?,
-                )
-                .map_err(|e| anyhow!("{e}"))?,
+                None => {
+                    let region_len = size(&region, "region")?;
+                    if g.erase == 0 || !region_len.is_multiple_of(g.erase) {
+                        return Err(anyhow!(
+                            "--region: {region_len} B is not a whole number of {} B erase \
+                             sectors; give the size of the device's checkpoint area, a multiple \
+                             of --erase",
+                            g.erase
+                        ));
+                    }
+                    hone_host::checkpoint::write_image_file(&blob, geometry(&g), region_len)
+                        .map_err(|e| anyhow!("{e}"))?
+                }
             };
             hone_host::fsutil::write_atomic(&out, &image)
                 .with_context(|| out.display().to_string())?;
-            println!("written: {} ({} bytes)", out.display(), image.len());
+            outln!("written: {} ({} bytes)", out.display(), image.len());
             Ok(None)
         }
     }

@@ -20,6 +20,9 @@ use serde::Serialize;
 
 use crate::data::{Dataset, Targets};
 
+/// Float parameters of a whole model: per layer, weights and bias.
+pub type FloatLayers = Vec<(Vec<f64>, Vec<f64>)>;
+
 /// Owned raw values of one word size.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub enum OwnedRaw {
@@ -610,7 +613,7 @@ pub fn run_side_by_side(
                     weight_max_steps: max,
                 });
             }
-            if done % 64 == 0 {
+            if done.is_multiple_of(64) {
                 progress(Progress { done, total });
             }
         }

@@ -164,6 +164,7 @@ pub fn mark_pareto(points: &mut [PointResult]) {
 
 /// Runs the whole grid on `threads` workers. `progress(done, total)` is called as points
 /// finish.
+#[allow(clippy::too_many_arguments)]
 pub fn run(
     base: &ModelDesc,
     float: &[(Vec<f64>, Vec<f64>)],

@@ -18,7 +18,7 @@ use crate::sim::epoch_order;
 /// Initial weights: uniform in ±√(6 / (fan_in + fan_out)) (Glorot and Bengio, "Understanding
 /// the difficulty of training deep feedforward neural networks", AISTATS 2010, eq. 16), biases
 /// zero. Seeded, so a config and a seed give one start.
-pub fn glorot_init(desc: &ModelDesc, seed: u64) -> Result<Vec<(Vec<f64>, Vec<f64>)>, String> {
+pub fn glorot_init(desc: &ModelDesc, seed: u64) -> Result<crate::sim::FloatLayers, String> {
     let shapes =
         hone_core::model::shapes(desc.input, &desc.layers, desc.loss).map_err(|e| e.to_string())?;
     let mut rng = Rng::new(seed ^ 0x9E37_79B9);

@@ -1,32 +1,38 @@
-//! Builds the firmware of every QEMU board, boots it, and checks what it reports: clean exit,
-//! calibrated counter, dot products equal to the host's, memory figures equal to the ELF's, and
-//! the 4 KiB test pattern recovered bit for bit through defmt.
+//! Builds the firmware of every QEMU board, boots it, and checks what it reports.
+//!
+//! Phase 1: clean exit, calibrated counter, dot products equal to the host's, memory figures
+//! equal to the ELF's, and the 4 KiB test pattern recovered bit for bit through defmt.
+//!
+//! The calibration session: the board fine-tunes the exported model on the chip, guards the
+//! result, and ends with exactly the weights, checkpoint and float-twin weights the host
+//! computes with the same core code; the mislabelled set is rejected and rolled back to the
+//! factory weights; the RAM measured while training agrees with the memory plan plus the
+//! measured-overhead table (never below, at most 5 % above), and so does the engine's code.
 //!
 //! Needs `qemu-system-arm` and `qemu-system-riscv32` (Debian packages `qemu-system-arm` and
 //! `qemu-system-misc`) and the rustup targets of the boards; a missing emulator fails the test
 //! with a message saying what to install.
 
-use std::time::Duration;
+use std::time::{Duration, Instant};
 
 use hone_host::device::report::TickUnit;
+use hone_host::device::session::{self, Session, BOARD_SESSIONS};
+use hone_host::device::verify::{verify_board, SessionCheck, VerifyOptions};
 use hone_host::device::{
     build_bin, build_firmware, decode, default_boards_dir, reference, run_elf, run_qemu,
-    DeviceError, DeviceRun, QemuBoard, DEFAULT_TIMEOUT,
+    DeviceError, QemuBoard, DEFAULT_TIMEOUT,
 };
 
 /// Must match `boards/fw/src/workload.rs`.
 const PATTERN_LEN: usize = 4096;
 
-fn run(board: QemuBoard) -> DeviceRun {
-    let elf = build_firmware(board, &default_boards_dir()).unwrap_or_else(|e| panic!("{e}"));
-    let run = run_elf(board, &elf, DEFAULT_TIMEOUT).unwrap_or_else(|e| panic!("{e}"));
-    run.ensure_success()
-        .unwrap_or_else(|e| panic!("{e}\nfull log:\n{}", run.log_text()));
-    run
+fn verify(board: QemuBoard) -> SessionCheck {
+    verify_board(board, &VerifyOptions::default()).unwrap_or_else(|e| panic!("{e}"))
 }
 
-fn check(board: QemuBoard) {
-    let run = run(board);
+/// The Phase-1 checks on the run of the board's firmware.
+fn check_phase1(check: &SessionCheck) {
+    let (board, run) = (check.board, &check.run);
     let r = &run.report;
 
     // The payload channel: the 4 KiB counter pattern, bit for bit.
@@ -75,7 +81,8 @@ fn check(board: QemuBoard) {
         );
     }
 
-    // The memory figures the firmware read from linker symbols equal the ELF's sections.
+    // The memory figures the firmware read from linker symbols equal the ELF's sections, and
+    // the deepest stack of the whole run stayed inside the stack region.
     let mem = r.memory.expect("mem record");
     let s = &run.sections;
     assert_eq!(
@@ -90,42 +97,110 @@ fn check(board: QemuBoard) {
         mem.stack_peak,
         mem.stack_size
     );
+    for st in &check.stacks {
+        assert!(
+            st.entry < st.peak && st.peak < mem.stack_size,
+            "{board}: phase {} stack {} .. {} of {}",
+            st.phase,
+            st.entry,
+            st.peak,
+            mem.stack_size
+        );
+    }
+}
 
-    let i8_mac = r.span("dot_i8").and_then(|s| s.units_per_work());
-    let i16_mac = r.span("dot_i16").and_then(|s| s.units_per_work());
+/// The calibration session's checks.
+fn check_session(check: &SessionCheck) {
+    let board = check.board;
+    check
+        .ensure_bit_exact()
+        .unwrap_or_else(|e| panic!("{e}\n{}", check.render()));
+
+    // Both guard paths ran on the device: the good calibration is accepted and moved the
+    // weights; the mislabelled one is rejected and the factory weights are back.
+    let verdict = |set: &str| {
+        check
+            .guards
+            .iter()
+            .find(|g| g.set == set)
+            .map(|g| g.verdict.clone())
+            .unwrap_or_default()
+    };
+    let factory = check
+        .session
+        .factory_weights()
+        .unwrap_or_else(|e| panic!("{board}: {e}"));
+    assert_eq!(verdict("calib"), "accept", "{board}");
+    assert!(
+        check.host.calibration.weights != factory,
+        "{board}: the accepted calibration left the weights unchanged"
+    );
+    assert!(verdict("faulty").starts_with("reject"), "{board}");
+    assert!(
+        check.host.faulty.weights == factory,
+        "{board}: the rollback did not restore the factory weights"
+    );
+
+    // Instructions: the training spans count the plan's multiply-accumulates and cost more
+    // per MAC than the bare dot product of the same core.
+    let m = &check.measures;
+    assert!(
+        m.fixed.per_mac() > m.dot_i16.per_mac() && m.float.per_mac() > 0.0,
+        "{board}: fixed {} insn/MAC, floor {}",
+        m.fixed.per_mac(),
+        m.dot_i16.per_mac()
+    );
+
+    // RAM and flash against the memory plan and the measured-overhead table.
+    check
+        .ensure_prediction()
+        .unwrap_or_else(|e| panic!("{e}\n{}", check.render()));
+}
+
+fn check(board: QemuBoard) {
+    let start = Instant::now();
+    let check = verify(board);
+    println!("{}", check.render());
+    check_phase1(&check);
+    check_session(&check);
     println!(
-        "{board}: insn/tick {:.3} (boot {num}/{den}); insn/MAC i8 {:.3}, i16 {:.3}; \
-         stack peak {} of {}; static RAM {}; .text {}; .rodata {}; QEMU {:.2} s",
-        cal.instructions_per_tick(),
-        i8_mac.unwrap_or(f64::NAN),
-        i16_mac.unwrap_or(f64::NAN),
-        mem.stack_peak,
-        mem.stack_size,
-        mem.static_ram,
-        s.text,
-        s.rodata,
-        run.wall.as_secs_f64()
+        "{board}: QEMU {:.2} s, whole check {:.1} s",
+        check.run.wall.as_secs_f64(),
+        start.elapsed().as_secs_f64()
     );
 }
 
 #[test]
-fn lm3s6965evb_runs_and_reports() {
+fn lm3s6965evb_calibrates_bit_exact() {
     check(QemuBoard::Lm3s6965evb);
 }
 
 #[test]
-fn microbit_runs_and_reports() {
+fn microbit_calibrates_bit_exact_in_16_kib() {
     check(QemuBoard::Microbit);
 }
 
 #[test]
-fn mps2_an386_runs_and_reports() {
+fn mps2_an386_calibrates_bit_exact() {
     check(QemuBoard::Mps2An386);
 }
 
 #[test]
-fn sifive_e_runs_and_reports() {
+fn sifive_e_calibrates_bit_exact() {
     check(QemuBoard::SifiveE);
+}
+
+/// The committed session files of every board (the Pico's too, which only builds) are what
+/// the generator writes from this source tree.
+#[test]
+fn committed_session_files_are_current() {
+    let boards = default_boards_dir();
+    for spec in BOARD_SESSIONS {
+        let s = Session::build(&session::default_repo_dir(), spec.board)
+            .unwrap_or_else(|e| panic!("{}: {e}", spec.board));
+        s.check_current(&session::committed_dir(&boards, spec.board))
+            .unwrap_or_else(|e| panic!("{e}"));
+    }
 }
 
 /// A firmware that does not exit in time is killed and reported as a timeout.
@@ -159,11 +234,11 @@ fn damaged_output_is_rejected() {
     let err = decode::decode_stream(&table, cut).expect_err("truncated stream");
     assert!(matches!(err, DeviceError::Decode { .. }), "{err}");
 
-    // Flip one bit in every byte of the middle of the stream (inside the pattern payload):
-    // whatever still decodes must fail the payload checks.
+    // Flip one bit in every byte of a stretch inside the pattern payload: whatever still
+    // decodes must fail the payload checks.
     let mut damaged = out.stdout.clone();
-    let mid = damaged.len() / 2;
-    for b in &mut damaged[mid..mid + 8] {
+    let at = damaged.len() / 8;
+    for b in &mut damaged[at..at + 8] {
         if *b != 0 && *b != 1 {
             *b ^= 0x01;
         }

@@ -80,10 +80,7 @@ pub fn backward(
         let f = gy.frac() + x.frac();
         for j in 0..n_out {
             let gj = gy.at(j) as i64;
-            let row = j * n_in;
-            for i in 0..n_in {
-                r.accumulate(acc, row + i, gj * x.at(i) as i64, f, false, &mut t.acc_w);
-            }
+            r.accumulate_outer(acc, j * n_in, gj, x.raw, n_in, f, &mut t.acc_w);
         }
     }
     if let Some(acc) = out.acc_b {

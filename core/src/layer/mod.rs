@@ -18,7 +18,7 @@ pub mod pool;
 use crate::kernel::Tally;
 use crate::model::{LayerGeometry, LayerKind};
 use crate::num::round::{requantize, requantize_div};
-use crate::num::{QFormat, Raw, RawMut, Rng, Rounding};
+use crate::num::{QFormat, Raw, RawMut, Rng, Rounding, Sample};
 
 /// A read-only tensor: raw values and their format.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
@@ -100,6 +100,47 @@ impl Rounder<'_> {
         tally.note(sat || sat_before);
     }
 
+    /// Adds the outer-product row `g · x[0..n]` into `acc[start..start + n]`, each product
+    /// rounded to the accumulator's format and each sum saturated, as [`Rounder::accumulate`]
+    /// does for one value, with the word dispatch done once per row. A zero `g` adds exact
+    /// zeros; unless the rounding is stochastic (whose draws must not depend on the data),
+    /// such a row is only counted.
+    #[allow(clippy::too_many_arguments)]
+    pub fn accumulate_outer(
+        &mut self,
+        acc: &mut TensorMut<'_>,
+        start: usize,
+        g: i64,
+        x: Raw<'_>,
+        n: usize,
+        from_frac: u32,
+        tally: &mut Tally,
+    ) {
+        if g == 0 && self.mode != Rounding::Stochastic {
+            tally.values = tally.values.saturating_add(n as u32);
+            return;
+        }
+        let to = acc.frac();
+        let (mode, rng) = (self.mode, &mut *self.rng);
+        macro_rules! row {
+            ($a:expr) => {{
+                let Some(a) = $a.get_mut(start..start + n) else {
+                    return;
+                };
+                match x {
+                    Raw::I8(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
+                    Raw::I16(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
+                    Raw::I32(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
+                }
+            }};
+        }
+        match &mut acc.raw {
+            RawMut::I8(a) => row!(a),
+            RawMut::I16(a) => row!(a),
+            RawMut::I32(a) => row!(a),
+        }
+    }
+
     /// Like [`Rounder::store`] for a 128-bit value (the rare case of a bias aligned to a very
     /// fine scale).
     #[inline(never)]
@@ -154,6 +195,32 @@ impl Rounder<'_> {
         acc.raw.put(i, q);
         tally.note(sat_before || sat_shift || sat_add || sat_word);
     }
+}
+
+/// One row of an outer-product accumulation, typed: `acc[start + i] += round(g · x[i])` for
+/// `i < n`, the product rescaled from `from_frac` to the accumulator's fraction bits.
+#[allow(clippy::too_many_arguments)]
+fn outer_row<A: Sample, X: Sample>(
+    acc: &mut [A],
+    x: &[X],
+    g: i64,
+    from_frac: u32,
+    to_frac: u32,
+    mode: Rounding,
+    rng: &mut Rng,
+    tally: &mut Tally,
+) {
+    let mut sats = 0u32;
+    for (a, xi) in acc.iter_mut().zip(x.iter()) {
+        let (add, s1) =
+            crate::num::round::rescale(g * xi.to_i32() as i64, from_frac, to_frac, mode, rng);
+        let (sum, s2) = crate::kernel::add_sat(a.to_i32() as i64, add);
+        let (q, s3) = A::WORD.saturate(sum);
+        *a = A::from_i32_in_range(q);
+        sats += (s1 || s2 || s3) as u32;
+    }
+    tally.values = tally.values.saturating_add(acc.len().min(x.len()) as u32);
+    tally.saturations = tally.saturations.saturating_add(sats);
 }
 
 /// The parameters of a layer as read by forward and backward.

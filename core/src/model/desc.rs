@@ -177,9 +177,9 @@ pub struct LayerDesc {
     pub kind: LayerKind,
     /// What training may change. Must be [`TrainMode::Frozen`] for layers without parameters.
     pub mode: TrainMode,
-    /// Weight formats (ignored for layers without parameters).
+    /// Weight formats (unused for layers without parameters, but checked like the others).
     pub weight: ParamFormats,
-    /// Bias formats (ignored for layers without parameters).
+    /// Bias formats (unused for layers without parameters, but checked like the others).
     pub bias: ParamFormats,
     /// Format of the layer's output activations.
     pub out: QFormat,
@@ -430,11 +430,12 @@ pub const fn layer_geometry(
     if !layer.out.is_valid() || !layer.grad.is_valid() {
         return Err(lf(index, LayerFault::Format));
     }
-    if layer.kind.has_params() {
-        if !layer.weight.is_valid() || !layer.bias.is_valid() {
-            return Err(lf(index, LayerFault::Format));
-        }
-    } else if !matches!(layer.mode, TrainMode::Frozen) {
+    // The parameter formats of a layer without parameters are unused, but the trainer carries
+    // their accumulator fraction bits in its checkpoint state, so they must be valid too.
+    if !layer.weight.is_valid() || !layer.bias.is_valid() {
+        return Err(lf(index, LayerFault::Format));
+    }
+    if !layer.kind.has_params() && !matches!(layer.mode, TrainMode::Frozen) {
         return Err(lf(index, LayerFault::ModeWithoutParams));
     }
     if input.channels == 0 || input.len == 0 {
@@ -473,14 +474,16 @@ pub const fn layer_geometry(
                 return Err(lf(index, LayerFault::WindowTooLong));
             }
             let out_len = (input.len - kernel) / stride + 1;
-            let weights = filters as u32 * input.channels as u32 * kernel as u32;
+            // Three u16 factors can overflow u32 but not u64: bound the count before narrowing.
+            let weights = filters as u64 * input.channels as u64 * kernel as u64;
+            if weights > (u32::MAX / 8) as u64 {
+                return Err(lf(index, LayerFault::TooLarge));
+            }
+            let weights = weights as u32;
             let macs = match (weights as u64 * out_len as u64) < (u32::MAX / 8) as u64 {
                 true => weights * out_len as u32,
                 false => return Err(lf(index, LayerFault::TooLarge)),
             };
-            if weights > u32::MAX / 8 {
-                return Err(lf(index, LayerFault::TooLarge));
-            }
             Ok(LayerGeometry {
                 input,
                 output: Shape {
@@ -712,6 +715,89 @@ mod tests {
             })
         );
     }
+
+    /// Found by the `blob_body` fuzz target: filters × channels × kernel overflowed `u32`
+    /// (a panic with overflow checks, a wrapped and wrong count without).
+    #[test]
+    fn conv_weight_count_overflowing_u32_is_too_large() {
+        let conv = LayerDesc {
+            kind: LayerKind::Conv1d {
+                filters: 1 << 14,
+                kernel: 1 << 9,
+                stride: 1,
+            },
+            ..dense(1)
+        };
+        // 2^14 · 2^10 · 2^9 = 2^33 weights: wraps to 0 in u32.
+        let input = Shape {
+            channels: 1 << 10,
+            len: 1 << 9,
+        };
+        assert_eq!(
+            layer_geometry(0, input, &conv).err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::TooLarge
+            })
+        );
+        let input = Shape {
+            channels: u16::MAX,
+            len: u16::MAX,
+        };
+        let conv = LayerDesc {
+            kind: LayerKind::Conv1d {
+                filters: u16::MAX,
+                kernel: u16::MAX,
+                stride: 1,
+            },
+            ..dense(1)
+        };
+        assert_eq!(
+            layer_geometry(0, input, &conv).err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::TooLarge
+            })
+        );
+    }
+
+    /// Found by the `trainer_restore` fuzz target: an average-pooling layer whose unused
+    /// weight accumulator format had 32 fraction bits passed the check; a trainer for the
+    /// model then wrote checkpoints whose state carried that 32, and the blob decoder
+    /// rejected them (`StateMismatch`): checkpoints it could write but never read back.
+    #[test]
+    fn unused_formats_of_layers_without_parameters_are_checked() {
+        let act = q(Word::I16, 10);
+        let mut pool = LayerDesc::simple(
+            LayerKind::AvgPool1d {
+                window: 1,
+                stride: 1,
+            },
+            act,
+            act,
+        );
+        pool.weight.accum = QFormat::new_unchecked(Word::I32, MAX_FRAC_PLUS_ONE);
+        let e = shapes(Shape::vector(4), &[dense(2), pool], Loss::SquaredError);
+        assert_eq!(
+            e.err(),
+            Some(Error::Layer {
+                layer: 1,
+                fault: LayerFault::Format
+            })
+        );
+        let mut relu = LayerDesc::simple(LayerKind::Relu, act, act);
+        relu.bias.master = Some(QFormat::new_unchecked(Word::I16, MAX_FRAC_PLUS_ONE));
+        let e = shapes(Shape::vector(4), &[relu, dense(2)], Loss::SquaredError);
+        assert_eq!(
+            e.err(),
+            Some(Error::Layer {
+                layer: 0,
+                fault: LayerFault::Format
+            })
+        );
+    }
+
+    const MAX_FRAC_PLUS_ONE: u8 = crate::num::MAX_FRAC + 1;
 
     #[test]
     fn training_checks() {

@@ -120,6 +120,7 @@ pub fn shift_left_saturating(v: i64, shift: u32) -> (i64, bool) {
 /// `num / den` rounded by `mode`, for `den ≥ 1`. Returns `num` unchanged for `den ≤ 1`.
 ///
 /// The stochastic case draws one uniform integer in `0..den` per call.
+#[inline]
 pub fn div_round(num: i64, den: i64, mode: Rounding, rng: &mut Rng) -> i64 {
     if den <= 1 {
         return num;

@@ -25,6 +25,7 @@ pub mod record;
 pub mod reference;
 pub mod report;
 pub mod session;
+pub mod sha256;
 pub mod verify;
 
 use std::path::{Path, PathBuf};

@@ -24,6 +24,7 @@ use object::{Object, ObjectSection, ObjectSymbol, SectionKind};
 
 use super::report::crc32;
 use super::session::{self, payload_layout, training_macs, HostOutcome, Session, TensorSpan};
+use super::sha256::sha256_hex;
 use super::{build_firmware_with, default_boards_dir, run_elf, DeviceError, DeviceRun, QemuBoard};
 use crate::memplan::{self, MeasuredOverhead};
 
@@ -118,6 +119,10 @@ pub struct PayloadCheck {
     pub device_crc: u32,
     /// CRC-32 of the host's bytes.
     pub host_crc: u32,
+    /// SHA-256 of the device's bytes, hexadecimal.
+    pub device_sha256: String,
+    /// SHA-256 of the host's bytes, hexadecimal.
+    pub host_sha256: String,
     /// Readable differences (at most [`MAX_DIFFS`]); empty when equal.
     pub diffs: Vec<String>,
 }
@@ -506,6 +511,8 @@ fn compare(name: &str, device: &[u8], host: &[u8], layout: Option<&[TensorSpan]>
         host_len: host.len(),
         device_crc: crc32(device),
         host_crc: crc32(host),
+        device_sha256: sha256_hex(device),
+        host_sha256: sha256_hex(host),
         diffs,
     }
 }
@@ -758,8 +765,8 @@ impl SessionCheck {
         for p in self.payloads.iter().filter(|p| !p.equal()) {
             let _ = writeln!(
                 detail,
-                "payload `{}`: device {} bytes CRC-32 {:#010x}, host {} bytes CRC-32 {:#010x}",
-                p.name, p.device_len, p.device_crc, p.host_len, p.host_crc
+                "payload `{}`: device {} bytes SHA-256 {}, host {} bytes SHA-256 {}",
+                p.name, p.device_len, p.device_sha256, p.host_len, p.host_sha256
             );
             for d in &p.diffs {
                 let _ = writeln!(detail, "  {d}");
@@ -843,12 +850,16 @@ impl SessionCheck {
         for p in &self.payloads {
             let _ = writeln!(
                 s,
-                "  {:<18} device CRC-32 {:#010x}, host CRC-32 {:#010x}, {} bytes: {}",
+                "  {:<17} {:>4} B  device SHA-256 {}  {}",
                 p.name,
-                p.device_crc,
-                p.host_crc,
                 p.device_len,
+                p.device_sha256,
                 if p.equal() { "equal" } else { "DIFFERENT" }
+            );
+            let _ = writeln!(
+                s,
+                "  {:<17} {:>4} B  host   SHA-256 {}",
+                "", p.host_len, p.host_sha256
             );
             for d in &p.diffs {
                 let _ = writeln!(s, "      {d}");
