@@ -32,7 +32,7 @@ impl Default for Thresholds {
             max_loss_gap_pct: 10.0,
             max_metric_gap: 2.0,
             max_weight_rms_steps: 32.0,
-            min_grad_sqnr_db: 20.0,
+            min_grad_sqnr_db: 15.0,
             max_saturation_ppm: 1000.0,
             max_lost_updates_pct: 50.0,
         }

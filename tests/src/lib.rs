@@ -420,3 +420,94 @@ pub fn iris_split(seed: u64) -> (Samples, Samples) {
     };
     (make(&train_idx), make(&test_idx))
 }
+
+impl Owned {
+    /// An owned copy of a borrowed tensor.
+    pub fn copy_of(raw: Raw<'_>) -> Owned {
+        match raw {
+            Raw::I8(s) => Owned::I8(s.to_vec()),
+            Raw::I16(s) => Owned::I16(s.to_vec()),
+            Raw::I32(s) => Owned::I32(s.to_vec()),
+        }
+    }
+}
+
+/// Float parameters (as from [`init_params`]) quantized into each layer's value formats.
+pub fn quantize_params(
+    desc: &hone_core::model::ModelDesc,
+    params: &[(Vec<f64>, Vec<f64>)],
+) -> Vec<(Owned, Owned)> {
+    desc.layers
+        .iter()
+        .zip(params)
+        .map(|(l, (w, b))| {
+            (
+                Owned::quantize(w, l.weight.value),
+                Owned::quantize(b, l.bias.value),
+            )
+        })
+        .collect()
+}
+
+/// Borrowed initial parameters for [`hone_core::train::Trainer::new`].
+pub fn layer_params(owned: &[(Owned, Owned)]) -> Vec<hone_core::train::LayerParams<'_>> {
+    owned
+        .iter()
+        .map(|(w, b)| hone_core::train::LayerParams {
+            weight: w.raw(),
+            bias: b.raw(),
+        })
+        .collect()
+}
+
+/// A copy of every layer's current parameters (`None` for layers without any), for
+/// bit-exact comparisons.
+pub fn params_snapshot(t: &hone_core::train::Trainer<'_>) -> Vec<Option<(Owned, Owned)>> {
+    (0..t.desc().layers.len())
+        .map(|k| {
+            t.params(k)
+                .map(|p| (Owned::copy_of(p.weight), Owned::copy_of(p.bias)))
+        })
+        .collect()
+}
+
+/// The trainer's current parameters as an encoded factory-model blob: kind `Model`, no
+/// training state, the weight and bias values of every layer with parameters.
+pub fn model_blob(
+    t: &hone_core::train::Trainer<'_>,
+    scaling: &[hone_core::blob::ChannelScale],
+) -> Vec<u8> {
+    use hone_core::blob::{self, BlobBody, BlobKind, TensorBlob, TensorRole};
+    let desc = t.desc();
+    let mut bytes: Vec<(u8, TensorRole, QFormat, u32, Vec<u8>)> = Vec::new();
+    for (k, l) in desc.layers.iter().enumerate() {
+        let Some(p) = t.params(k) else { continue };
+        for (role, raw, fmt) in [
+            (TensorRole::Weight, p.weight, l.weight.value),
+            (TensorRole::Bias, p.bias, l.bias.value),
+        ] {
+            let mut b = vec![0u8; raw.len() * fmt.word.bytes()];
+            raw.write_le(&mut b).expect("buffer sized to the tensor");
+            bytes.push((k as u8, role, fmt, raw.len() as u32, b));
+        }
+    }
+    let body = BlobBody {
+        kind: BlobKind::Model,
+        desc: desc.clone(),
+        scaling: scaling.iter().copied().collect(),
+        state: None,
+        tensors: bytes
+            .iter()
+            .map(|(layer, role, format, elems, data)| TensorBlob {
+                layer: *layer,
+                role: *role,
+                format: *format,
+                elems: *elems,
+                data,
+            })
+            .collect(),
+    };
+    let mut out = vec![0u8; blob::encoded_len(&body).expect("model body length")];
+    blob::encode(&body, &mut out).expect("model body encodes");
+    out
+}

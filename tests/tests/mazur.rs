@@ -242,8 +242,10 @@ fn bounds(f: &Formats) -> Bounds {
             .plus(w2[2 + i].times(g_z2[1]))
             .round(f.grad_h)
     });
-    let g_z1: [Interval; 2] = std::array::from_fn(|j| sig_deriv(h[j]).times(g_h[j]).round(f.grad_z));
-    let acc_w0: [Interval; 4] = std::array::from_fn(|k| g_z1[k / 2].times(xq[k % 2]).round(f.accum));
+    let g_z1: [Interval; 2] =
+        std::array::from_fn(|j| sig_deriv(h[j]).times(g_h[j]).round(f.grad_z));
+    let acc_w0: [Interval; 4] =
+        std::array::from_fn(|k| g_z1[k / 2].times(xq[k % 2]).round(f.accum));
     let lr = Interval::point(0.5);
     let w2_new: [Interval; 4] =
         std::array::from_fn(|k| w2[k].minus(lr.times(acc_w2[k]).round(f.weight)));

@@ -120,6 +120,46 @@ pub(crate) fn stack_bounds() -> (usize, usize) {
     )
 }
 
+/// The current stack pointer.
+#[inline(always)]
+pub(crate) fn stack_pointer() -> usize {
+    let sp: usize;
+    // SAFETY: reads the stack pointer into a register; no memory access, no side effect.
+    unsafe {
+        asm!("mov {}, sp", out(reg) sp, options(nomem, nostack, preserves_flags));
+    }
+    sp
+}
+
+/// Writes `word` to every word from `bottom` (4-byte aligned) up to the stack pointer.
+///
+/// The stack pointer is read inside the same assembly block as the loop, which uses registers
+/// only, so no frame of this code lies below it while it paints.
+#[inline(always)]
+pub(crate) fn paint_below_sp(bottom: usize, word: u32) {
+    // SAFETY: the words below the stack pointer hold no live data (Arm code never stores below
+    // it; an interrupt taken meanwhile pushes its frame there and may overwrite some painted
+    // words, which can only make the next scan report more stack). `bottom` is the lowest
+    // stack address from the linker script, inside RAM and 4-byte aligned. Thumb-1 encodings,
+    // so the same code assembles for Armv6-M and Armv7-M.
+    unsafe {
+        asm!(
+            "mov {end}, sp",
+            "2:",
+            "cmp {p}, {end}",
+            "bhs 3f",
+            "str {v}, [{p}]",
+            "adds {p}, #4",
+            "b 2b",
+            "3:",
+            p = inout(reg) bottom => _,
+            end = out(reg) _,
+            v = in(reg) word,
+            options(nostack),
+        );
+    }
+}
+
 #[exception]
 unsafe fn HardFault(frame: &ExceptionFrame) -> ! {
     record::fault(frame.pc());

@@ -10,8 +10,11 @@
 //! 4. logs static memory figures and the stack high-water mark ([`memory`]),
 //! 5. exits with a status code the host sees ([`exit_code`]).
 //!
-//! Phase 1 ships one session, the integer dot-product workload in [`workload`]. A training
-//! session is a second closure of the same type, `FnOnce(&mut Ctx<P>) -> Result<(), SessionError>`.
+//! Two sessions ship: the integer dot-product workload in [`workload`] (Phase 1, the floor of
+//! instructions per multiply-accumulate), and the calibration session in [`train`], which
+//! fine-tunes the model hone exported with the core's trainer, guards the result and sends the
+//! weights to the host. Both are closures of the type
+//! `FnOnce(&mut Ctx<P>) -> Result<(), SessionError>`; [`include_session!`] builds a board's.
 //!
 //! All output goes through `defmt` in fixed record shapes documented in [`record`]; the host
 //! decoder in `host-cli` parses them by field name.
@@ -28,6 +31,7 @@ pub mod memory;
 pub mod platform;
 pub mod record;
 pub mod session;
+pub mod train;
 pub mod workload;
 
 #[cfg(feature = "cortex-m")]
@@ -37,6 +41,7 @@ pub mod riscv;
 
 mod panic;
 
+pub use hone_core;
 pub use platform::{Platform, TickUnit};
 pub use session::{run, Ctx, SessionError};
 

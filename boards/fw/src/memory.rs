@@ -5,9 +5,9 @@
 //! The stack bounds differ per runtime and come from the architecture module.
 
 #[cfg(feature = "cortex-m")]
-use crate::cortex_m::stack_bounds;
+use crate::cortex_m::{paint_below_sp, stack_bounds, stack_pointer};
 #[cfg(feature = "riscv")]
-use crate::riscv::stack_bounds;
+use crate::riscv::{paint_below_sp, stack_bounds, stack_pointer};
 
 /// Word the runtime paints the free stack with at reset.
 pub const STACK_PAINT: u32 = 0xCCCC_CCCC;
@@ -97,4 +97,20 @@ pub fn stack_usage() -> StackUsage {
         size: top.saturating_sub(bottom) as u32,
         peak: top.saturating_sub(p as usize) as u32,
     }
+}
+
+/// Bytes from the stack top down to the stack pointer of the caller.
+#[inline(always)]
+#[must_use]
+pub fn stack_depth() -> u32 {
+    let (_, top) = stack_bounds();
+    top.saturating_sub(stack_pointer()) as u32
+}
+
+/// Paints the free stack, from its lowest address up to the current stack pointer, with
+/// [`STACK_PAINT`] again, so that the next [`stack_usage`] shows the deepest point reached after
+/// this call rather than since reset. Used to measure the stack of one phase of a session.
+pub fn repaint_free_stack() {
+    let (bottom, _) = stack_bounds();
+    paint_below_sp(bottom, STACK_PAINT);
 }

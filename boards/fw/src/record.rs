@@ -12,6 +12,9 @@
 //! | `span` | `name` str, `work` u32, `ticks` u64, `units` u64, `milli_per_work` u64 |
 //! | `dot` | `name` str, `len` u32, `reps` u32, `seed` u32, `total` i64 |
 //! | `sensor` | `name` str, `samples` u32, `min` u32, `max` u32, `mean` u32 (raw converter counts) |
+//! | `engine` | `arena` u32, `trainer` u32, `float_arena` u32, `twin` u32, `blob` u32 (bytes: fixed-point arena, `Trainer`, `f32` arena, `Twin<f32>`, decoded blob), `fwd_macs` u32, `bwd_macs` u32 (per training sample) |
+//! | `guard` | `set` str, `verdict` str (`accept`, `reject-loss`, `reject-saturation`), `before` i64, `after` i64 (mean hold-out loss, 24 fraction bits), `before_sat` u32, `after_sat` u32, `trained` u32, `steps` u32, `updates` u32 |
+//! | `stack` | `phase` str, `entry` u32 (stack depth where the phase starts), `peak` u32 (deepest point during the phase), bytes from the stack top |
 //! | `mem` | `text` u32, `rodata` u32, `data` u32, `bss` u32, `uninit` u32, `static_ram` u32, `stack_size` u32, `stack_peak` u32 |
 //! | `blob-begin` | `id` u16, `name` str, `len` u32 |
 //! | `blob` | `id` u16, `off` u32, `data` `[u8]` |
@@ -85,6 +88,89 @@ pub fn sensor(name: &str, samples: u32, min: u32, max: u32, mean: u32) {
         min,
         max,
         mean
+    );
+}
+
+/// Sizes the training engine reports about itself.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct EngineSizes {
+    /// Bytes of the fixed-point arena (the memory plan's figure).
+    pub arena: u32,
+    /// `size_of::<Trainer>()`.
+    pub trainer: u32,
+    /// Bytes of the `f32` twin's arena.
+    pub float_arena: u32,
+    /// `size_of::<Twin<f32>>()`.
+    pub twin: u32,
+    /// `size_of::<CheckedBlob>()`: a decoded blob, as the guard keeps the last good one.
+    pub blob: u32,
+    /// Multiply-accumulates of one forward pass.
+    pub forward_macs: u32,
+    /// Multiply-accumulates of one backward pass over the trained layers.
+    pub backward_macs: u32,
+}
+
+/// Logs the engine's sizes.
+pub fn engine(e: &EngineSizes) {
+    defmt::info!(
+        "hone:engine arena={=u32} trainer={=u32} float_arena={=u32} twin={=u32} blob={=u32} fwd_macs={=u32} bwd_macs={=u32}",
+        e.arena,
+        e.trainer,
+        e.float_arena,
+        e.twin,
+        e.blob,
+        e.forward_macs,
+        e.backward_macs
+    );
+}
+
+/// What one guarded calibration did.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct GuardRecord<'a> {
+    /// Sample set: `calib` or `faulty`.
+    pub set: &'a str,
+    /// `accept`, `reject-loss` or `reject-saturation`.
+    pub verdict: &'a str,
+    /// Mean hold-out loss before training, raw with 24 fraction bits.
+    pub before: i64,
+    /// Mean hold-out loss after training, raw with 24 fraction bits.
+    pub after: i64,
+    /// Saturated activations on the hold-out samples before training.
+    pub before_saturations: u32,
+    /// Saturated activations on the hold-out samples after training.
+    pub after_saturations: u32,
+    /// Samples trained on.
+    pub trained: u32,
+    /// The trainer's step count at the end (after a rollback, as the factory blob left it).
+    pub steps: u32,
+    /// The trainer's update count at the end.
+    pub updates: u32,
+}
+
+/// Logs the outcome of a guarded calibration.
+pub fn guard(g: &GuardRecord<'_>) {
+    defmt::info!(
+        "hone:guard set={=str} verdict={=str} before={=i64} after={=i64} before_sat={=u32} after_sat={=u32} trained={=u32} steps={=u32} updates={=u32}",
+        g.set,
+        g.verdict,
+        g.before,
+        g.after,
+        g.before_saturations,
+        g.after_saturations,
+        g.trained,
+        g.steps,
+        g.updates
+    );
+}
+
+/// Logs the stack of one phase: the depth where it started and the deepest point it reached,
+/// both in bytes from the stack top.
+pub fn stack(phase: &str, entry: u32, peak: u32) {
+    defmt::info!(
+        "hone:stack phase={=str} entry={=u32} peak={=u32}",
+        phase,
+        entry,
+        peak
     );
 }
 

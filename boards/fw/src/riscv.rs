@@ -92,6 +92,43 @@ pub(crate) fn stack_bounds() -> (usize, usize) {
     )
 }
 
+/// The current stack pointer.
+#[inline(always)]
+pub(crate) fn stack_pointer() -> usize {
+    let sp: usize;
+    // SAFETY: copies the stack pointer into a register; no memory access, no side effect.
+    unsafe {
+        asm!("mv {}, sp", out(reg) sp, options(nomem, nostack, preserves_flags));
+    }
+    sp
+}
+
+/// Writes `word` to every word from `bottom` (4-byte aligned) up to the stack pointer.
+///
+/// The stack pointer is read inside the same assembly block as the loop, which uses registers
+/// only, so no frame of this code lies below it while it paints.
+#[inline(always)]
+pub(crate) fn paint_below_sp(bottom: usize, word: u32) {
+    // SAFETY: the words below the stack pointer hold no live data (RISC-V code here never
+    // stores below it, and traps end the run). `bottom` is the lowest stack address from the
+    // linker script, inside RAM and 4-byte aligned.
+    unsafe {
+        asm!(
+            "mv {end}, sp",
+            "2:",
+            "bgeu {p}, {end}, 3f",
+            "sw {v}, 0({p})",
+            "addi {p}, {p}, 4",
+            "j 2b",
+            "3:",
+            p = inout(reg) bottom => _,
+            end = out(reg) _,
+            v = in(reg) word,
+            options(nostack),
+        );
+    }
+}
+
 /// Trap handler for every exception: report the faulting address and stop.
 #[export_name = "ExceptionHandler"]
 fn exception_handler(_frame: &riscv_rt::TrapFrame) -> ! {

@@ -27,6 +27,8 @@ pub enum SessionError {
     TooManyBlobs,
     /// A self-check of the session failed; the text names it.
     Check(&'static str),
+    /// The training engine returned an error.
+    Engine(hone_core::Error),
 }
 
 impl SessionError {
@@ -38,6 +40,7 @@ impl SessionError {
             Self::BlobShort { .. } => "blob-short",
             Self::TooManyBlobs => "too-many-blobs",
             Self::Check(what) => what,
+            Self::Engine(_) => "engine",
         }
     }
 }
@@ -55,15 +58,23 @@ impl<'p, P: Platform> Ctx<'p, P> {
         self.platform
     }
 
-    /// Runs `f`, logs a `span` record named `name` for `work` units of work, and returns the
-    /// result of `f` with the measured span.
-    pub fn measure<R>(&mut self, name: &str, work: u32, f: impl FnOnce() -> R) -> (R, Span) {
+    /// Runs `f` and returns its result with the measured span for `work` units of work, without
+    /// logging anything (log it later with [`crate::record::span`], for example once a stack
+    /// measurement is done).
+    pub fn time<R>(&self, work: u32, f: impl FnOnce() -> R) -> (R, Span) {
         let (r, ticks) = measure::time(self.platform, f);
         let span = Span {
             work,
             ticks,
             units: self.platform.tick_unit().to_units(ticks),
         };
+        (r, span)
+    }
+
+    /// Runs `f`, logs a `span` record named `name` for `work` units of work, and returns the
+    /// result of `f` with the measured span.
+    pub fn measure<R>(&mut self, name: &str, work: u32, f: impl FnOnce() -> R) -> (R, Span) {
+        let (r, span) = self.time(work, f);
         record::span(name, &span);
         (r, span)
     }

@@ -91,8 +91,11 @@ pub const fn pattern_byte(i: u32) -> u8 {
 
 /// The Phase-1 session: measure both dot products and send the 4 KiB test pattern.
 ///
+/// Kept out of line so its operand buffers take stack only while it runs.
+///
 /// # Errors
 /// Whatever the payload channel reports ([`SessionError`]).
+#[inline(never)]
 pub fn phase1<P: Platform>(ctx: &mut Ctx<'_, P>) -> Result<(), SessionError> {
     let macs = DOT_LEN as u32 * DOT_REPS;
 

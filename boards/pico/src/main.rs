@@ -1,14 +1,20 @@
 //! hone firmware for the Raspberry Pi Pico (RP2040, Cortex-M0+ at 125 MHz).
 //!
-//! It samples the analog input on GPIO26 (ADC channel 0) and sends the readings to the host, then
-//! runs the Phase-1 workload. The tick counter is SysTick on the core clock, so spans are reported
-//! in cycles. Logs go out over RTT; the run ends with a semihosting exit, which a probe-based
-//! runner turns into its exit code.
+//! It samples the analog input on GPIO26 (ADC channel 0) and sends the readings to the host, runs
+//! the Phase-1 workload, then the calibration session with live readings: the soil probe's output
+//! on GPIO26 gives the `raw_counts` input of each calibration sample, paired with the soil
+//! temperature and the reference water content stored for that sample (a reference instrument's
+//! readings; on a bench they would come from the technician). The hold-out samples stay those
+//! stored in flash. The tick counter is SysTick on the core clock, so spans are reported in
+//! cycles. Logs go out over RTT; the run ends with a semihosting exit, which a probe-based runner
+//! turns into its exit code.
 #![no_std]
 #![no_main]
 
 use defmt_rtt as _;
 use hone_fw::cortex_m::SysTickPlatform;
+use hone_fw::hone_core::num::Raw;
+use hone_fw::train::{quantize_reading, SampleSet, Session};
 use hone_fw::{exit_code, record, semihosting_exit, Ctx, Platform, SessionError, TickUnit};
 use rp2040_hal::adc::{Adc, AdcChannel};
 use rp2040_hal::clocks::{init_clocks_and_plls, Clock};
@@ -19,6 +25,8 @@ use rp2040_hal::{entry, gpio, pac, Sio, Watchdog};
 #[used]
 #[no_mangle]
 pub static BOOT2_FIRMWARE: [u8; 256] = rp2040_boot2::BOOT_LOADER_W25Q080;
+
+hone_fw::include_session!();
 
 /// Frequency of the Pico's crystal.
 const XOSC_HZ: u32 = 12_000_000;
@@ -69,8 +77,49 @@ fn main() -> ! {
     let platform = SysTickPlatform::new(core.SYST, "pico", TickUnit::CoreCycles { hz });
     hone_fw::run(platform, move |ctx| {
         sample(ctx, &mut adc, &mut gpio26)?;
-        hone_fw::workload::phase1(ctx)
+        hone_fw::workload::phase1(ctx)?;
+        calibrate(ctx, &mut adc, &mut gpio26)
     })
+}
+
+/// The calibration session with the probe's live readings as the `raw_counts` input (channel 0
+/// of the soil model): one conversion per calibration sample, scaled and quantized as the host
+/// scales its data.
+fn calibrate<P: Platform>(
+    ctx: &mut Ctx<'_, P>,
+    adc: &mut Adc,
+    channel: &mut impl AdcChannel,
+) -> Result<(), SessionError> {
+    let stored = &session::SESSION;
+    let inputs = stored.input.size() as usize;
+    let scale = session::SCALING
+        .first()
+        .copied()
+        .ok_or(SessionError::Check("no-input-scaling"))?;
+    // The soil model's inputs are Q3.12 (`i16`); another model fails to compile here.
+    let mut x: [i16; session::CALIB_X.len()] = session::CALIB_X;
+    for row in x.chunks_mut(inputs) {
+        let raw: u16 = adc
+            .read(channel)
+            .map_err(|_| SessionError::Check("adc-read"))?;
+        if let Some(v) = row.first_mut() {
+            // Saturated to the i16 range by `quantize_reading`, so the cast is exact.
+            *v = quantize_reading(f32::from(raw), scale, stored.input_format) as i16;
+        }
+    }
+    let live = Session {
+        calibration: SampleSet {
+            x: Raw::I16(&x),
+            ..stored.calibration
+        },
+        ..*stored
+    };
+    hone_fw::train::run::<
+        P,
+        { session::ARENA_WORDS },
+        { session::FLOAT_ARENA_WORDS },
+        { session::CHECKPOINT_BYTES },
+    >(ctx, &live)
 }
 
 /// Reads [`ADC_SAMPLES`] conversions from `channel`, measures them, logs a `sensor` summary and
