@@ -186,6 +186,19 @@ struct PlanArgs {
     /// Flash the rest of the firmware already uses.
     #[arg(long, default_value = "0")]
     reserve_flash: String,
+    /// Float model from `hone train`: formats are then chosen from data, and with --train and
+    /// --eval every alternative of the advice also gets a drift cost.
+    #[arg(long)]
+    model: Option<PathBuf>,
+    /// Calibration samples for the drift cost of each alternative.
+    #[arg(long, requires_all = ["model", "eval"])]
+    train: Option<PathBuf>,
+    /// Evaluation samples for the drift cost.
+    #[arg(long, requires_all = ["model", "train"])]
+    eval: Option<PathBuf>,
+    /// Passes over the calibration samples for each drift cost.
+    #[arg(long, default_value_t = 10)]
+    epochs: u32,
     /// Print JSON.
     #[arg(long)]
     json: bool,
@@ -578,10 +591,55 @@ fn size(s: &str, what: &str) -> Result<u32> {
 fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
     use hone_host::memplan::{plan_report, render_table, AdviceOptions, Budget, Reserve};
     let config = load_config(&a.cfg)?;
-    // Memory depends on word sizes only, so `auto` formats may take any fraction bits here.
-    let desc = config
-        .model_desc_with(hone_host::train::provisional_frac)
-        .map_err(|e| anyhow!("{e}"))?;
+    let base = match (&a.model, &a.train) {
+        (Some(model), Some(train)) => Some(load_base(&ModelArgs { cfg: ConfigArg { config: a.cfg.config.clone() }, model: model.clone() }, train)?),
+        (Some(_), None) => return Err(anyhow!("--model without --train and --eval: give calibration and evaluation samples, or leave out --model")),
+        _ => None,
+    };
+    // Memory depends on word sizes only, so without a model `auto` formats may take any
+    // fraction bits here.
+    let desc = match &base {
+        Some(b) => b.quant.desc.clone(),
+        None => config
+            .model_desc_with(hone_host::train::provisional_frac)
+            .map_err(|e| anyhow!("{e}"))?,
+    };
+    let data = match (&base, &a.train, &a.eval) {
+        (Some(b), Some(t), Some(e)) => Some((
+            b.prepare(t).map_err(|e| anyhow!("{e}"))?,
+            b.prepare(e).map_err(|e| anyhow!("{e}"))?,
+        )),
+        _ => None,
+    };
+    let drift_cost = |d: &hone_core::model::ModelDesc| -> Option<hone_host::memplan::DriftCost> {
+        let (b, (train, eval)) = (base.as_ref()?, data.as_ref()?);
+        let (q, _) = hone_host::sim::QuantParams::quantize(d, &b.quant.float_params).ok()?;
+        let opts = RunOptions {
+            epochs: a.epochs,
+            order_seed: b.config.train().seed,
+            per_step: false,
+            probe: 0,
+            shuffle: true,
+        };
+        let run = run_side_by_side(
+            d,
+            &q,
+            &b.quant.float_params,
+            train,
+            eval,
+            &opts,
+            &mut |_| {},
+        )
+        .ok()?;
+        let last = run.epochs.last()?;
+        let gap = 100.0 * (last.fixed_eval_loss - last.float_eval_loss).abs()
+            / last.float_eval_loss.abs().max(f64::MIN_POSITIVE);
+        Some(hone_host::memplan::DriftCost {
+            what: format!("eval loss gap after {} calibration passes", a.epochs),
+            value: gap,
+            unit: "% of float".into(),
+        })
+    };
     let budget = match (&a.chip, &a.ram, &a.flash) {
         (Some(id), _, _) => Budget::chip(hone_host::chips::find(id).ok_or_else(|| anyhow!("--chip: unknown chip `{id}`; `hone chips` lists the built-in ones, or give --ram and --flash"))?),
         (None, Some(r), Some(f)) => Budget::custom(size(r, "ram")?, size(f, "flash")?),
@@ -597,7 +655,10 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
         reserve,
         None,
         &AdviceOptions::default(),
-        None,
+        data.as_ref().map(|_| {
+            &drift_cost
+                as &dyn Fn(&hone_core::model::ModelDesc) -> Option<hone_host::memplan::DriftCost>
+        }),
     )
     .map_err(|e| anyhow!("{}: {e}", a.cfg.config.display()))?;
     if a.json {
