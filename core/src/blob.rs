@@ -194,6 +194,11 @@ pub struct TrainState {
     /// Current fraction bits per layer: output, gradient, weight accumulator, bias
     /// accumulator.
     pub fracs: [[u8; 4]; MAX_LAYERS],
+    /// Dynamic fixed point: values written and values saturated since the last adjustment,
+    /// per layer, for output, gradient, weight accumulator and bias accumulator (in that
+    /// order, values then saturations), so a restored trainer adjusts at the same moment and
+    /// in the same way as the one that wrote the checkpoint.
+    pub window: [[u32; 8]; MAX_LAYERS],
 }
 
 /// One tensor as carried in a blob.
@@ -298,8 +303,16 @@ fn expected_word(desc: &ModelDesc, layer: usize, role: TensorRole) -> Option<(Wo
     Some(match role {
         TensorRole::Weight => (l.weight.value.word, true),
         TensorRole::Bias => (l.bias.value.word, true),
-        TensorRole::MasterWeight => (l.weight.master?.word, l.mode.trains_weight()),
-        TensorRole::MasterBias => (l.bias.master?.word, l.mode.trains_bias()),
+        // A master tensor where the description has no master copy is a tensor the layer
+        // cannot take: a shape error, not a missing layer.
+        TensorRole::MasterWeight => match l.weight.master {
+            Some(m) => (m.word, l.mode.trains_weight()),
+            None => (l.weight.value.word, false),
+        },
+        TensorRole::MasterBias => match l.bias.master {
+            Some(m) => (m.word, l.mode.trains_bias()),
+            None => (l.bias.value.word, false),
+        },
         TensorRole::MomentumWeight => (l.weight.accum.word, l.mode.trains_weight()),
         TensorRole::MomentumBias => (l.bias.accum.word, l.mode.trains_bias()),
     })
@@ -328,9 +341,10 @@ pub fn decode(bytes: &[u8]) -> Result<CheckedBlob<'_>, Error> {
     if stored != computed {
         return Err(BlobError::CrcMismatch.into());
     }
-    let body: BlobBody<'_> = match postcard::from_bytes(body_bytes) {
-        Ok(b) => b,
-        Err(_) => return Err(BlobError::Malformed.into()),
+    // The body must use every byte: trailing bytes would be data nobody validated.
+    let body: BlobBody<'_> = match postcard::take_from_bytes(body_bytes) {
+        Ok((b, [])) => b,
+        _ => return Err(BlobError::Malformed.into()),
     };
     check_body(&body)?;
     Ok(CheckedBlob { body })
