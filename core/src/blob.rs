@@ -233,48 +233,105 @@ pub struct BlobBody<'a> {
 }
 
 /// A blob that passed every check of [`decode`].
+///
+/// It keeps the description, scaling and state, and borrows the tensor list from the blob's
+/// bytes: tensors are read one at a time when asked for ([`CheckedBlob::tensors`]), so a
+/// device decoding a blob holds one tensor header at a time, not the whole list.
 #[derive(Clone, Debug, PartialEq)]
 pub struct CheckedBlob<'a> {
-    body: BlobBody<'a>,
+    kind: BlobKind,
+    desc: ModelDesc,
+    scaling: Vec<ChannelScale, MAX_SCALED_CHANNELS>,
+    state: Option<TrainState>,
+    /// Postcard bytes of the tensors, after the count; validated by [`decode`].
+    tensor_bytes: &'a [u8],
+    count: usize,
+}
+
+/// The tensors of a [`CheckedBlob`], read one at a time from the validated bytes.
+#[derive(Clone, Debug)]
+pub struct Tensors<'a> {
+    rest: &'a [u8],
+    left: usize,
+}
+
+impl<'a> Iterator for Tensors<'a> {
+    type Item = TensorBlob<'a>;
+
+    fn next(&mut self) -> Option<TensorBlob<'a>> {
+        if self.left == 0 {
+            return None;
+        }
+        // The bytes were validated by `decode`, so this parse succeeds; should it not, the
+        // iteration simply ends.
+        let (t, rest) = postcard::take_from_bytes::<TensorBlob<'a>>(self.rest).ok()?;
+        self.rest = rest;
+        self.left -= 1;
+        Some(t)
+    }
+
+    fn size_hint(&self) -> (usize, Option<usize>) {
+        (0, Some(self.left))
+    }
 }
 
 impl<'a> CheckedBlob<'a> {
     /// Model or checkpoint.
     pub fn kind(&self) -> BlobKind {
-        self.body.kind
+        self.kind
     }
 
     /// The model description.
     pub fn desc(&self) -> &ModelDesc {
-        &self.body.desc
+        &self.desc
     }
 
     /// Input scaling.
     pub fn scaling(&self) -> &[ChannelScale] {
-        &self.body.scaling
+        &self.scaling
     }
 
     /// Training state of a checkpoint.
     pub fn state(&self) -> Option<&TrainState> {
-        self.body.state.as_ref()
+        self.state.as_ref()
     }
 
-    /// All tensors.
-    pub fn tensors(&self) -> &[TensorBlob<'a>] {
-        &self.body.tensors
+    /// The tensors, in blob order.
+    pub fn tensors(&self) -> Tensors<'a> {
+        Tensors {
+            rest: self.tensor_bytes,
+            left: self.count,
+        }
+    }
+
+    /// Number of tensors.
+    pub fn tensor_count(&self) -> usize {
+        self.count
     }
 
     /// The tensor of a layer and role, if the blob carries it.
-    pub fn tensor(&self, layer: usize, role: TensorRole) -> Option<&TensorBlob<'a>> {
-        self.body
-            .tensors
-            .iter()
+    pub fn tensor(&self, layer: usize, role: TensorRole) -> Option<TensorBlob<'a>> {
+        self.tensors()
             .find(|t| t.layer as usize == layer && t.role == role)
     }
 
-    /// The whole validated body.
-    pub fn body(&self) -> &BlobBody<'a> {
-        &self.body
+    /// The whole body, tensors gathered into a list (for re-encoding and comparisons).
+    ///
+    /// # Errors
+    /// [`BlobError::TooManyTensors`] cannot happen for a decoded blob, whose count was
+    /// checked; it is the error of a list that does not fit.
+    pub fn to_body(&self) -> Result<BlobBody<'a>, Error> {
+        let mut tensors = Vec::new();
+        for t in self.tensors() {
+            tensors.push(t).map_err(|_| BlobError::TooManyTensors)?;
+        }
+        Ok(BlobBody {
+            kind: self.kind,
+            desc: self.desc.clone(),
+            scaling: self.scaling.clone(),
+            state: self.state,
+            tensors,
+        })
     }
 }
 
@@ -341,28 +398,47 @@ pub fn decode(bytes: &[u8]) -> Result<CheckedBlob<'_>, Error> {
     if stored != computed {
         return Err(BlobError::CrcMismatch.into());
     }
-    // The body must use every byte: trailing bytes would be data nobody validated.
-    let body: BlobBody<'_> = match postcard::take_from_bytes(body_bytes) {
-        Ok((b, [])) => b,
-        _ => return Err(BlobError::Malformed.into()),
+    // The body is read field by field in the order postcard wrote `BlobBody`, so the tensor
+    // list never has to be held whole.
+    fn take<'b, T: Deserialize<'b>>(b: &'b [u8]) -> Result<(T, &'b [u8]), Error> {
+        postcard::take_from_bytes(b).map_err(|_| BlobError::Malformed.into())
+    }
+    let (kind, rest): (BlobKind, _) = take(body_bytes)?;
+    let (desc, rest): (ModelDesc, _) = take(rest)?;
+    let (scaling, rest): (Vec<ChannelScale, MAX_SCALED_CHANNELS>, _) = take(rest)?;
+    let (state, rest): (Option<TrainState>, _) = take(rest)?;
+    let (count, tensor_bytes): (u64, _) = take(rest)?;
+    if count > MAX_TENSORS as u64 {
+        return Err(BlobError::TooManyTensors.into());
+    }
+    let blob = CheckedBlob {
+        kind,
+        desc,
+        scaling,
+        state,
+        tensor_bytes,
+        count: count as usize,
     };
-    check_body(&body)?;
-    Ok(CheckedBlob { body })
+    check(&blob)?;
+    Ok(blob)
 }
 
-fn check_body(body: &BlobBody<'_>) -> Result<(), Error> {
-    let desc = &body.desc;
+/// Checks a parsed blob: description, scaling, state, every tensor, required tensors, and
+/// that the tensor list ends exactly at the end of the body.
+fn check(b: &CheckedBlob<'_>) -> Result<(), Error> {
+    let desc = &b.desc;
     desc.check()?;
     let shapes = crate::model::shapes(desc.input, &desc.layers, desc.loss)?;
-    if !body.scaling.is_empty() && body.scaling.len() != desc.input.channels as usize {
+    if !b.scaling.is_empty() && b.scaling.len() != desc.input.channels as usize {
         return Err(BlobError::Scaling.into());
     }
-    for s in &body.scaling {
-        if !s.offset.is_finite() || !s.gain.is_finite() {
-            return Err(BlobError::Scaling.into());
-        }
+    if b.scaling
+        .iter()
+        .any(|s| !s.offset.is_finite() || !s.gain.is_finite())
+    {
+        return Err(BlobError::Scaling.into());
     }
-    match (body.kind, body.state.as_ref()) {
+    match (b.kind, b.state.as_ref()) {
         (BlobKind::Model, None) => {}
         (BlobKind::Checkpoint, Some(st)) => {
             if crate::num::Rng::from_state(st.rng).is_none()
@@ -373,7 +449,13 @@ fn check_body(body: &BlobBody<'_>) -> Result<(), Error> {
         }
         _ => return Err(BlobError::StateMismatch.into()),
     }
-    for (i, t) in body.tensors.iter().enumerate() {
+    // One bit per (layer, role): what the blob carries.
+    let mut seen = [0u8; MAX_LAYERS];
+    let mut rest = b.tensor_bytes;
+    for _ in 0..b.count {
+        let (t, r): (TensorBlob<'_>, _) =
+            postcard::take_from_bytes(rest).map_err(|_| BlobError::Malformed)?;
+        rest = r;
         let layer = t.layer as usize;
         let Some((word, allowed)) = expected_word(desc, layer, t.role) else {
             return Err(BlobError::NoSuchLayer { layer: t.layer }.into());
@@ -395,49 +477,51 @@ fn check_body(body: &BlobBody<'_>) -> Result<(), Error> {
             }
             .into());
         }
-        if body.tensors[..i]
-            .iter()
-            .any(|u| u.layer == t.layer && u.role == t.role)
-        {
+        let bit = 1u8 << role_index(t.role);
+        if seen[layer] & bit != 0 {
             return Err(BlobError::Duplicate {
                 layer: t.layer,
                 role: t.role,
             }
             .into());
         }
+        seen[layer] |= bit;
+    }
+    // The body must use every byte: trailing bytes would be data nobody validated.
+    if !rest.is_empty() {
+        return Err(BlobError::Malformed.into());
     }
     // Required tensors: a model carries every value tensor; a checkpoint carries the value
     // of every trained tensor and, where the description has them, its master and momentum.
+    let with_momentum = !desc.train.momentum.is_zero();
     for (k, l) in desc.layers.iter().enumerate() {
         if !l.kind.has_params() {
             continue;
         }
-        let with_momentum = !desc.train.momentum.is_zero();
-        let mut required: [(TensorRole, bool); 6] = [
-            (TensorRole::Weight, true),
-            (TensorRole::Bias, true),
-            (TensorRole::MasterWeight, false),
-            (TensorRole::MasterBias, false),
-            (TensorRole::MomentumWeight, false),
-            (TensorRole::MomentumBias, false),
+        let (tw, tb) = match b.kind {
+            BlobKind::Model => (true, true),
+            BlobKind::Checkpoint => (l.mode.trains_weight(), l.mode.trains_bias()),
+        };
+        let checkpoint = b.kind == BlobKind::Checkpoint;
+        let required = [
+            (TensorRole::Weight, tw),
+            (TensorRole::Bias, tb),
+            (
+                TensorRole::MasterWeight,
+                checkpoint && tw && l.weight.master.is_some(),
+            ),
+            (
+                TensorRole::MasterBias,
+                checkpoint && tb && l.bias.master.is_some(),
+            ),
+            (
+                TensorRole::MomentumWeight,
+                checkpoint && tw && with_momentum,
+            ),
+            (TensorRole::MomentumBias, checkpoint && tb && with_momentum),
         ];
-        if body.kind == BlobKind::Checkpoint {
-            let (tw, tb) = (l.mode.trains_weight(), l.mode.trains_bias());
-            required = [
-                (TensorRole::Weight, tw),
-                (TensorRole::Bias, tb),
-                (TensorRole::MasterWeight, tw && l.weight.master.is_some()),
-                (TensorRole::MasterBias, tb && l.bias.master.is_some()),
-                (TensorRole::MomentumWeight, tw && with_momentum),
-                (TensorRole::MomentumBias, tb && with_momentum),
-            ];
-        }
         for (role, needed) in required {
-            let present = body
-                .tensors
-                .iter()
-                .any(|t| t.layer as usize == k && t.role == role);
-            if needed && !present {
+            if needed && seen[k] & (1 << role_index(role)) == 0 {
                 return Err(BlobError::Missing {
                     layer: k as u8,
                     role,
@@ -447,6 +531,17 @@ fn check_body(body: &BlobBody<'_>) -> Result<(), Error> {
         }
     }
     Ok(())
+}
+
+const fn role_index(role: TensorRole) -> u8 {
+    match role {
+        TensorRole::Weight => 0,
+        TensorRole::Bias => 1,
+        TensorRole::MasterWeight => 2,
+        TensorRole::MasterBias => 3,
+        TensorRole::MomentumWeight => 4,
+        TensorRole::MomentumBias => 5,
+    }
 }
 
 /// Encodes a body into `out`: magic, version, postcard body, CRC. Returns the bytes written.

@@ -151,6 +151,9 @@ pub struct Plan {
     pub flash_bytes: u32,
     /// For a float-twin plan, the bytes of one float (4 or 8); 0 for the fixed-point plan.
     pub float_bytes: u32,
+    /// FNV-1a hash of every field of the description the plan was made from: lets a trainer
+    /// check that a plan belongs to its description without building a second plan.
+    pub fingerprint: u32,
 }
 
 const fn pad4(bytes: u64) -> u64 {
@@ -295,6 +298,7 @@ impl Plan {
             ram_bytes: 0,
             flash_bytes: 0,
             float_bytes: fb,
+            fingerprint: fingerprint(input, layers, loss, train),
         };
         let mut bump = Bump {
             next: 0,
@@ -501,14 +505,126 @@ const fn widest(cur: (u32, Word), elems: u32, word: Word) -> (u32, Word) {
     }
 }
 
+/// FNV-1a (Fowler, Noll, Vo) over 32-bit words.
+struct Fnv(u32);
+
+impl Fnv {
+    const fn word(mut self, v: u32) -> Fnv {
+        let b = v.to_le_bytes();
+        let mut i = 0;
+        while i < 4 {
+            self.0 ^= b[i] as u32;
+            self.0 = self.0.wrapping_mul(0x0100_0193);
+            i += 1;
+        }
+        self
+    }
+
+    const fn format(self, f: crate::num::QFormat) -> Fnv {
+        self.word(f.word.bits()).word(f.frac as u32)
+    }
+
+    const fn scalar(self, s: crate::num::QScalar) -> Fnv {
+        self.word(s.raw as u32).word(s.frac as u32)
+    }
+
+    const fn params(self, p: &crate::model::ParamFormats) -> Fnv {
+        let h = self.format(p.value).format(p.accum);
+        match p.master {
+            Some(m) => h.word(1).format(m),
+            None => h.word(0),
+        }
+    }
+}
+
+const fn rounding_code(r: crate::num::Rounding) -> u32 {
+    match r {
+        crate::num::Rounding::NearestEven => 0,
+        crate::num::Rounding::TowardZero => 1,
+        crate::num::Rounding::Stochastic => 2,
+    }
+}
+
+/// A hash of every field of a model description (see [`Plan::fingerprint`]).
+pub const fn fingerprint(
+    input: crate::model::Shape,
+    layers: &[LayerDesc],
+    loss: Loss,
+    train: &TrainDesc,
+) -> u32 {
+    let mut h = Fnv(0x811C_9DC5)
+        .word(input.channels as u32)
+        .word(input.len as u32)
+        .word(matches!(loss, Loss::SoftmaxCrossEntropy) as u32)
+        .word(layers.len() as u32);
+    let mut k = 0;
+    while k < layers.len() {
+        let l = &layers[k];
+        let (code, a, b, c) = match l.kind {
+            LayerKind::Dense { units } => (0, units as u32, 0, 0),
+            LayerKind::Conv1d {
+                filters,
+                kernel,
+                stride,
+            } => (1, filters as u32, kernel as u32, stride as u32),
+            LayerKind::Relu => (2, 0, 0, 0),
+            LayerKind::LeakyRelu { shift } => (3, shift as u32, 0, 0),
+            LayerKind::HardTanh => (4, 0, 0, 0),
+            LayerKind::ClippedRelu { ceiling } => (5, ceiling as u32, 0, 0),
+            LayerKind::Sigmoid => (6, 0, 0, 0),
+            LayerKind::Tanh => (7, 0, 0, 0),
+            LayerKind::AvgPool1d { window, stride } => (8, window as u32, stride as u32, 0),
+            LayerKind::MaxPool1d { window, stride } => (9, window as u32, stride as u32, 0),
+        };
+        let mode = match l.mode {
+            crate::model::TrainMode::Frozen => 0,
+            crate::model::TrainMode::BiasOnly => 1,
+            crate::model::TrainMode::WeightsOnly => 2,
+            crate::model::TrainMode::Full => 3,
+        };
+        h = h
+            .word(code)
+            .word(a)
+            .word(b)
+            .word(c)
+            .word(mode)
+            .params(&l.weight)
+            .params(&l.bias)
+            .format(l.out)
+            .format(l.grad);
+        k += 1;
+    }
+    let r = &train.rounding;
+    h = h
+        .word(train.batch as u32)
+        .scalar(train.lr)
+        .scalar(train.momentum)
+        .scalar(train.weight_decay)
+        .scalar(train.clip);
+    h = h
+        .word(rounding_code(r.activations))
+        .word(rounding_code(r.gradients))
+        .word(rounding_code(r.updates));
+    h = match train.dynamic {
+        Some(d) => h.word(1).word(d.max_rate_ppm).word(d.interval as u32),
+        None => h.word(0),
+    };
+    h.word(train.seed as u32).word((train.seed >> 32) as u32).0
+}
+
 /// Cuts disjoint mutable pieces out of `arena`, one per `(start, len)` range, in whatever
 /// order the ranges come. Empty ranges, and ranges that overlap an earlier one or run past the
-/// end, give empty pieces (a checked plan has none of those). Safe code only: the pieces come
-/// from successive `split_at_mut`.
+/// end, give clipped or empty pieces (a checked plan has none of those). Safe code only.
 pub fn split_disjoint<T, const N: usize>(
     arena: &mut [T],
     ranges: [(usize, usize); N],
 ) -> [&mut [T]; N] {
+    split_checked(arena, ranges)
+}
+
+/// [`split_disjoint`]: the ranges in address order, each clipped to the arena and to what the
+/// ranges before it left, cut off one after the other with `split_at_mut`.
+fn split_checked<T, const N: usize>(arena: &mut [T], ranges: [(usize, usize); N]) -> [&mut [T]; N] {
     let mut order: [usize; N] = core::array::from_fn(|i| i);
     order.sort_unstable_by_key(|&i| ranges.get(i).map_or(0, |r| r.0));
     let mut out: [&mut [T]; N] = core::array::from_fn(|_| <&mut [T]>::default());
@@ -618,6 +734,68 @@ mod tests {
         // weight gradient and its input gradient (15 + 15).
         assert_eq!(p.forward_macs(), 30);
         assert_eq!(p.training_macs(), 30 + 15 + 30);
+    }
+
+    #[test]
+    fn fingerprint_sees_every_kind_of_field() {
+        let layers = [
+            dense(5, TrainMode::Full),
+            LayerDesc::simple(LayerKind::Relu, ACT, ACT),
+            dense(3, TrainMode::Full),
+        ];
+        let base = fingerprint(Shape::vector(3), &layers, Loss::SquaredError, &sgd());
+        let mut t = sgd();
+        t.seed = 1 << 40;
+        assert_ne!(
+            fingerprint(Shape::vector(3), &layers, Loss::SquaredError, &t),
+            base
+        );
+        t = sgd();
+        t.lr.raw += 1;
+        assert_ne!(
+            fingerprint(Shape::vector(3), &layers, Loss::SquaredError, &t),
+            base
+        );
+        let mut l2 = layers;
+        l2[0].out.frac += 1;
+        assert_ne!(
+            fingerprint(Shape::vector(3), &l2, Loss::SquaredError, &sgd()),
+            base
+        );
+        l2 = layers;
+        l2[2].mode = TrainMode::BiasOnly;
+        assert_ne!(
+            fingerprint(Shape::vector(3), &l2, Loss::SquaredError, &sgd()),
+            base
+        );
+        l2 = layers;
+        l2[0].weight.master = Some(QFormat::new_unchecked(Word::I16, 12));
+        assert_ne!(
+            fingerprint(Shape::vector(3), &l2, Loss::SquaredError, &sgd()),
+            base
+        );
+        assert_ne!(
+            fingerprint(Shape::vector(4), &layers, Loss::SquaredError, &sgd()),
+            base
+        );
+        assert_eq!(
+            fingerprint(Shape::vector(3), &layers, Loss::SquaredError, &sgd()),
+            base
+        );
+        // A trainer refuses a plan made for another description.
+        let desc =
+            crate::model::ModelDesc::new(Shape::vector(3), ACT, &layers, Loss::SquaredError, sgd())
+                .unwrap();
+        let other = Plan::new(Shape::vector(3), &l2[..], Loss::SquaredError, &sgd())
+            .unwrap_or_else(|_| {
+                Plan::new(Shape::vector(4), &layers, Loss::SquaredError, &sgd()).unwrap()
+            });
+        let mut arena = std::vec![0u32; 4096];
+        let init = [crate::train::LayerParams::NONE; 3];
+        assert_eq!(
+            crate::train::Trainer::new(&desc, &other, &mut arena, &init).err(),
+            Some(Error::PlanMismatch)
+        );
     }
 
     #[test]

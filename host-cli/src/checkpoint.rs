@@ -747,16 +747,16 @@ mod tests {
         // Write and read units whose least common multiple is 32 (header padded to 32 B),
         // and 8 (padded to 24 B).
         for (w, r) in [(32usize, 8usize), (8, 1)] {
-            let mut sim32 = SimFlash::<4096, 256, 32, 8>::new();
-            let mut sim8 = SimFlash::<4096, 256, 8, 1>::new();
+            let mut sim32 = SimFlash::<8192, 256, 32, 8>::new();
+            let mut sim8 = SimFlash::<8192, 256, 8, 1>::new();
             let expected = if w == 32 {
-                Store::open(&mut sim32, 0, 4096)
+                Store::open(&mut sim32, 0, 8192)
                     .unwrap()
                     .commit(&blob)
                     .unwrap();
                 sim32.bytes().to_vec()
             } else {
-                Store::open(&mut sim8, 0, 4096)
+                Store::open(&mut sim8, 0, 8192)
                     .unwrap()
                     .commit(&blob)
                     .unwrap();
@@ -767,7 +767,7 @@ mod tests {
                 write: w as u32,
                 read: r as u32,
             };
-            assert_eq!(write_image(&blob, g, 4096).unwrap(), expected, "{g:?}");
+            assert_eq!(write_image(&blob, g, 8192).unwrap(), expected, "{g:?}");
             assert_eq!(read_latest(&expected, g).unwrap().1, blob);
         }
     }

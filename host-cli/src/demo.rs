@@ -113,7 +113,7 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
         &q.desc,
         &Budget::chip(chip_info),
         Reserve::default(),
-        None,
+        memplan::measured_overhead(chip_info).as_ref(),
         &AdviceOptions::default(),
         None,
     )

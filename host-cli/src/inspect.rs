@@ -558,7 +558,7 @@ fn describe(file: &str, bytes: &[u8], b: &CheckedBlob<'_>, shapes: &Shapes) -> I
             })
             .collect(),
         state,
-        tensors: b.tensors().iter().map(tensor_info).collect(),
+        tensors: b.tensors().map(|t| tensor_info(&t)).collect(),
     }
 }
 
@@ -1055,6 +1055,7 @@ pub(crate) mod tests {
                 updates: steps / 4,
                 rng: Rng::new(u64::from(steps)).state(),
                 fracs,
+                window: [[0; 8]; MAX_LAYERS],
             });
         }
         let mut body = BlobBody {

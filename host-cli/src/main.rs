@@ -86,6 +86,9 @@ enum Command {
     /// Read or write the checkpoint area of a device's flash (an image file).
     #[command(subcommand)]
     Checkpoint(CheckpointCmd),
+    /// Run a board's calibration session under QEMU and compare it bit for bit with the host.
+    #[command(subcommand)]
+    Device(DeviceCmd),
     /// Write the invented demo data again from its seeded generator.
     DemoData {
         /// Folder to write the CSV files into.
@@ -316,6 +319,30 @@ macro_rules! outln {
     ($($t:tt)*) => {{ emit(format_args!($($t)*)); emit(format_args!("\n")) }};
 }
 
+#[derive(Subcommand)]
+enum DeviceCmd {
+    /// Build the board's firmware, run it under QEMU, simulate the same session on the host,
+    /// compare the final weights bit for bit, and print the measurements.
+    Verify {
+        /// QEMU board: lm3s6965evb, microbit, mps2-an386 or sifive-e.
+        #[arg(long)]
+        board: String,
+        /// Build from freshly generated session files in this folder instead of the committed
+        /// ones under boards/<board>/session.
+        #[arg(long)]
+        session_dir: Option<PathBuf>,
+    },
+    /// Write a board's session files (the exported model and its calibration samples).
+    Session {
+        /// Board: one of the QEMU boards, or pico.
+        #[arg(long)]
+        board: String,
+        /// Folder to write into (default: the committed boards/<board>/session).
+        #[arg(long)]
+        out: Option<PathBuf>,
+    },
+}
+
 /// A failed check: printed, then exit status 1.
 struct CheckFailed;
 
@@ -499,6 +526,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             Ok(None)
         }
         Command::Checkpoint(c) => checkpoint(c),
+        Command::Device(d) => device(d),
         Command::DemoData { out, seed } => {
             let files = hone_host::scenario::write_all(&out, seed)
                 .with_context(|| out.display().to_string())?;
@@ -649,11 +677,17 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
         ram_bytes: size(&a.reserve_ram, "reserve-ram")?,
         flash_bytes: size(&a.reserve_flash, "reserve-flash")?,
     };
+    // The engine's own code, state and stack, as measured on a board with the chip's core.
+    let overhead = a
+        .chip
+        .as_deref()
+        .and_then(hone_host::chips::find)
+        .and_then(hone_host::memplan::measured_overhead);
     let report = plan_report(
         &desc,
         &budget,
         reserve,
-        None,
+        overhead.as_ref(),
         &AdviceOptions::default(),
         data.as_ref().map(|_| {
             &drift_cost
@@ -779,6 +813,55 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
         }
     }
     Ok(None)
+}
+
+fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
+    use hone_host::device::{self, QemuBoard};
+    let board_named = |name: &str| {
+        QemuBoard::ALL
+            .into_iter()
+            .find(|b| b.name() == name)
+            .ok_or_else(|| {
+                anyhow!(
+                    "--board: `{name}` is not a QEMU board; use one of {}",
+                    QemuBoard::ALL.map(|b| b.name()).join(", ")
+                )
+            })
+    };
+    match d {
+        DeviceCmd::Verify { board, session_dir } => {
+            let b = board_named(&board)?;
+            let opts = device::verify::VerifyOptions {
+                session_dir,
+                ..Default::default()
+            };
+            let check = device::verify::verify_board(b, &opts).map_err(|e| anyhow!("{e}"))?;
+            out!("{}", check.render());
+            let exact = check.ensure_bit_exact();
+            let predicted = check.ensure_prediction();
+            for e in [&exact, &predicted]
+                .into_iter()
+                .filter_map(|r| r.as_ref().err())
+            {
+                eprintln!("check failed: {e}");
+            }
+            Ok((exact.is_err() || predicted.is_err()).then_some(CheckFailed))
+        }
+        DeviceCmd::Session { board, out } => {
+            let dir = match out {
+                Some(d) => d,
+                None => device::session::committed_dir(&device::default_boards_dir(), &board),
+            };
+            let files = device::session::generate(&dir, &board).map_err(|e| anyhow!("{e}"))?;
+            if files.is_empty() {
+                outln!("{}: session files already current", dir.display());
+            }
+            for f in files {
+                outln!("written: {}", f.display());
+            }
+            Ok(None)
+        }
+    }
 }
 
 fn geometry(g: &GeometryArgs) -> hone_host::checkpoint::Geometry {

@@ -234,10 +234,29 @@ fn damaged_output_is_rejected() {
     let err = decode::decode_stream(&table, cut).expect_err("truncated stream");
     assert!(matches!(err, DeviceError::Decode { .. }), "{err}");
 
-    // Flip one bit in every byte of a stretch inside the pattern payload: whatever still
+    // Flip one bit in every byte of a stretch inside one chunk of the pattern payload (frames
+    // end in a zero byte; the chunk is found by decoding the frames one by one): whatever still
     // decodes must fail the payload checks.
+    let mut start = 0;
+    let mut chunk = None;
+    for (i, &b) in out.stdout.iter().enumerate() {
+        if b != 0 {
+            continue;
+        }
+        let frame = &out.stdout[start..=i];
+        let text = decode::decode_stream(&table, frame)
+            .ok()
+            .and_then(|l| l.first().map(|l| l.text.clone()))
+            .unwrap_or_default();
+        if text.starts_with("hone:blob id=0 off=1024 ") {
+            chunk = Some(start..i);
+            break;
+        }
+        start = i + 1;
+    }
+    let chunk = chunk.expect("the pattern chunk at offset 1024");
     let mut damaged = out.stdout.clone();
-    let at = damaged.len() / 8;
+    let at = (chunk.start + chunk.end) / 2;
     for b in &mut damaged[at..at + 8] {
         if *b != 0 && *b != 1 {
             *b ^= 0x01;

@@ -1,8 +1,11 @@
-//! Static memory figures from linker symbols, and the stack high-water mark.
+//! Static memory figures from linker symbols, and the stack high-water mark, for the whole run
+//! and for one phase.
 //!
 //! Both `cortex-m-rt` and `riscv-rt` define the section bounds `__stext`/`__etext`,
 //! `__srodata`/`__erodata`, `__sdata`/`__edata`, `__sbss`/`__ebss` and `__suninit`/`__euninit`.
 //! The stack bounds differ per runtime and come from the architecture module.
+
+use core::sync::atomic::{AtomicU32, Ordering};
 
 #[cfg(feature = "cortex-m")]
 use crate::cortex_m::{paint_below_sp, stack_bounds, stack_pointer};
@@ -78,9 +81,14 @@ pub struct StackUsage {
     pub peak: u32,
 }
 
-/// Scans the painted stack upward from its lowest address for the first overwritten word.
-#[must_use]
-pub fn stack_usage() -> StackUsage {
+/// The deepest stack seen before the last [`repaint_free_stack`], bytes from the top. Only this
+/// module writes it, from the one thread of execution, so a load and a store suffice (Armv6-M has
+/// no atomic read-modify-write).
+static DEEPEST_BEFORE_REPAINT: AtomicU32 = AtomicU32::new(0);
+
+/// Scans the painted stack upward from its lowest address for the first overwritten word: the
+/// deepest point since reset or since the last [`repaint_free_stack`].
+fn scan() -> StackUsage {
     let (bottom, top) = stack_bounds();
     let mut p = bottom as *const u32;
     let end = top as *const u32;
@@ -99,6 +107,23 @@ pub fn stack_usage() -> StackUsage {
     }
 }
 
+/// The stack size and the deepest point the stack reached since reset.
+#[must_use]
+pub fn stack_usage() -> StackUsage {
+    let now = scan();
+    StackUsage {
+        peak: now.peak.max(DEEPEST_BEFORE_REPAINT.load(Ordering::Relaxed)),
+        ..now
+    }
+}
+
+/// The stack size and the deepest point the stack reached since the last
+/// [`repaint_free_stack`]: the stack of one phase.
+#[must_use]
+pub fn stack_usage_since_repaint() -> StackUsage {
+    scan()
+}
+
 /// Bytes from the stack top down to the stack pointer of the caller.
 #[inline(always)]
 #[must_use]
@@ -108,9 +133,12 @@ pub fn stack_depth() -> u32 {
 }
 
 /// Paints the free stack, from its lowest address up to the current stack pointer, with
-/// [`STACK_PAINT`] again, so that the next [`stack_usage`] shows the deepest point reached after
-/// this call rather than since reset. Used to measure the stack of one phase of a session.
+/// [`STACK_PAINT`] again, so that [`stack_usage_since_repaint`] shows the deepest point reached
+/// after this call: the stack of one phase of a session. The deepest point before is kept for
+/// [`stack_usage`].
 pub fn repaint_free_stack() {
+    let before = stack_usage().peak;
+    DEEPEST_BEFORE_REPAINT.store(before, Ordering::Relaxed);
     let (bottom, _) = stack_bounds();
     paint_below_sp(bottom, STACK_PAINT);
 }

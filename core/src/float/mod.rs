@@ -99,7 +99,10 @@ impl<'a, R: Real> Twin<'a, R> {
         init: &[FloatParams<'a, R>],
     ) -> Result<Twin<'a, R>, Error> {
         desc.check()?;
-        if Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, R::BYTES)? != *plan {
+        if plan.float_bytes != R::BYTES
+            || plan.fingerprint
+                != crate::plan::fingerprint(desc.input, &desc.layers, desc.loss, &desc.train)
+        {
             return Err(Error::PlanMismatch);
         }
         let needed = plan.ram_bytes / R::BYTES;

@@ -122,22 +122,22 @@ impl Rounder<'_> {
         }
         let to = acc.frac();
         let (mode, rng) = (self.mode, &mut *self.rng);
-        macro_rules! row {
-            ($a:expr) => {{
-                let Some(a) = $a.get_mut(start..start + n) else {
-                    return;
-                };
-                match x {
-                    Raw::I8(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
-                    Raw::I16(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
-                    Raw::I32(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
-                }
-            }};
+        // The typed loop serves the usual 32-bit accumulators (three copies, one per input
+        // word); narrower accumulators take the general path, value by value, to keep the
+        // engine's code small.
+        if let RawMut::I32(a) = &mut acc.raw {
+            let Some(a) = a.get_mut(start..start + n) else {
+                return;
+            };
+            match x {
+                Raw::I8(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
+                Raw::I16(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
+                Raw::I32(xs) => outer_row(a, xs, g, from_frac, to, mode, rng, tally),
+            }
+            return;
         }
-        match &mut acc.raw {
-            RawMut::I8(a) => row!(a),
-            RawMut::I16(a) => row!(a),
-            RawMut::I32(a) => row!(a),
+        for i in 0..n {
+            self.accumulate(acc, start + i, g * x.at(i) as i64, from_frac, false, tally);
         }
     }
 
@@ -200,6 +200,7 @@ impl Rounder<'_> {
 /// One row of an outer-product accumulation, typed: `acc[start + i] += round(g · x[i])` for
 /// `i < n`, the product rescaled from `from_frac` to the accumulator's fraction bits.
 #[allow(clippy::too_many_arguments)]
+#[inline(never)]
 fn outer_row<A: Sample, X: Sample>(
     acc: &mut [A],
     x: &[X],

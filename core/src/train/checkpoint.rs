@@ -155,7 +155,7 @@ impl Trainer<'_> {
                 TensorRole::MomentumWeight => s.momentum_weight,
                 TensorRole::MomentumBias => s.momentum_bias,
             };
-            self.copy_into(slot, t)?;
+            self.copy_into(slot, &t)?;
         }
         self.steps = state.steps;
         self.updates = state.updates;
@@ -207,7 +207,7 @@ impl Trainer<'_> {
                 _ => continue,
             };
             if slot.is_some() {
-                self.copy_into(slot, t)?;
+                self.copy_into(slot, &t)?;
             }
         }
         self.reinit_from_values();
@@ -337,8 +337,8 @@ mod tests {
         let checked = blob::decode(&buf[..n]).unwrap();
         assert_eq!(checked.kind(), BlobKind::Checkpoint);
         // Frozen layer 0 is not carried; layer 2 carries values, masters and momentum.
-        assert!(checked.tensors().iter().all(|t| t.layer == 2));
-        assert_eq!(checked.tensors().len(), 6);
+        assert!(checked.tensors().all(|t| t.layer == 2));
+        assert_eq!(checked.tensor_count(), 6);
         let mut a2 = vec![0u32; plan.ram_words()];
         let mut b = Trainer::new(&d, &plan, &mut a2, &init).unwrap();
         b.restore(&checked).unwrap();

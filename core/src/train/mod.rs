@@ -138,7 +138,12 @@ impl<'a> Trainer<'a> {
         init: &[LayerParams<'a>],
     ) -> Result<Trainer<'a>, Error> {
         desc.check()?;
-        if Plan::of(desc)? != *plan {
+        // The fingerprint stands for the whole description: no second plan is built (it would
+        // take several kilobytes of stack on a small device).
+        if plan.float_bytes != 0
+            || plan.fingerprint
+                != crate::plan::fingerprint(desc.input, &desc.layers, desc.loss, &desc.train)
+        {
             return Err(Error::PlanMismatch);
         }
         if arena.len() < plan.ram_words() {

@@ -193,6 +193,10 @@ pub struct RamFigures {
     /// The prediction from the plan and the measured-overhead table, when the table has a row
     /// for this board's target.
     pub predicted: Option<u64>,
+    /// Deepest stack of the whole run (every phase, logging included), bytes.
+    pub run_peak: u64,
+    /// The stack region, bytes: with the static RAM, all the RAM the firmware has.
+    pub stack_size: u64,
 }
 
 /// Code sizes from the ELF's symbols.
@@ -638,6 +642,8 @@ fn measure(
         measured: mem.static_ram + fixed_peak,
         measured_float: mem.static_ram + twin.peak,
         predicted,
+        run_peak: mem.stack_peak,
+        stack_size: mem.stack_size,
     };
     let bytes = std::fs::read(&run.elf).map_err(|source| DeviceError::Io {
         path: run.elf.clone(),
@@ -939,6 +945,27 @@ impl SessionCheck {
             "  RAM f32 twin:    measured {} B = static {} + stack {} (arena {}, twin {})",
             r.measured_float, r.static_ram, r.float_peak, r.float_arena, r.twin
         );
+        let _ = writeln!(
+            s,
+            "  RAM whole run:   {} B = static {} + deepest stack {}, of {} B (static + stack region)",
+            r.static_ram + r.run_peak,
+            r.static_ram,
+            r.run_peak,
+            r.static_ram + r.stack_size
+        );
+        let p = &self.session.plan_report.ram;
+        let _ = writeln!(
+            s,
+            "  plan for {}: arena {} + trainer {} + engine stack {} + firmware {} = {} of {} B: {}",
+            self.session.chip.id,
+            p.arena_bytes,
+            p.engine_state_bytes.map_or("?".into(), |b| b.to_string()),
+            p.stack_bytes.map_or("?".into(), |b| b.to_string()),
+            p.reserve_bytes,
+            p.total_bytes,
+            p.budget_bytes,
+            if p.fits { "fits" } else { "does not fit" }
+        );
         let f = &m.flash;
         let _ = writeln!(
             s,
@@ -997,6 +1024,25 @@ mod tests {
     }
 
     #[test]
+    fn chips_take_the_row_of_their_core() {
+        let row = |id: &str| {
+            let chip = crate::chips::find(id).expect("chip in the table");
+            memplan::measured_row(chip).map(|m| m.board)
+        };
+        assert_eq!(row("nrf51822"), Some("microbit"));
+        assert_eq!(row("rp2040"), Some("microbit")); // Cortex-M0+ runs the same thumbv6m code
+        assert_eq!(row("stm32f103c8"), Some("lm3s6965evb"));
+        assert_eq!(row("stm32f411ce"), Some("mps2-an386"));
+        assert_eq!(row("fe310"), Some("sifive-e"));
+        assert_eq!(row("stm32h743zi"), None); // Cortex-M7: not measured
+        let chip = crate::chips::find("nrf51822").expect("chip in the table");
+        let o = memplan::measured_overhead(chip).expect("a row");
+        assert!(o.source.contains("microbit") && o.stack > 0 && o.state_ram > 0);
+        let r = memplan::measured_firmware_reserve(chip).expect("a row");
+        assert!(r.ram_bytes > 0 && r.flash_bytes == 0);
+    }
+
+    #[test]
     fn prediction_window() {
         assert!(within(1000, 1000));
         assert!(within(1000, 1050));
@@ -1032,7 +1078,7 @@ mod tests {
         assert!(!c.equal());
         assert_eq!(c.diffs[0], "layer 0 weight[1]: device -2, host -1");
         assert!(
-            c.diffs[1].starts_with("layer 2 bias[0]: device 2e0"),
+            c.diffs[1].starts_with("layer 2 bias[0]: device 4e0 (0x40800000)"),
             "{}",
             c.diffs[1]
         );
