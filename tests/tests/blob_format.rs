@@ -381,7 +381,7 @@ proptest! {
         let checked = blob::decode(&bytes);
         prop_assert!(checked.is_ok(), "valid body rejected: {:?}", checked.err());
         let checked = checked.unwrap();
-        prop_assert_eq!(checked.to_body().unwrap(), &body);
+        prop_assert_eq!(checked.to_body().unwrap(), body.clone());
         prop_assert_eq!(checked.kind(), owned.kind);
         prop_assert_eq!(checked.desc(), &owned.desc);
         prop_assert_eq!(checked.scaling(), &owned.scaling[..]);
@@ -390,7 +390,7 @@ proptest! {
             let t = checked.tensor(*layer as usize, *role);
             prop_assert_eq!(t.map(|t| t.data), Some(&data[..]));
         }
-        prop_assert_eq!(&encode(checked.to_body().unwrap()), &bytes);
+        prop_assert_eq!(&encode(&checked.to_body().unwrap()), &bytes);
     }
 
     /// Flipping any single bit of a valid blob is rejected, with the error of the field hit:
