@@ -169,8 +169,8 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
             format!(
                 "batch {}, learning rate {}, momentum {}, seed {}",
                 q.desc.train.batch,
-                short(q.desc.train.lr.to_f64()),
-                short(q.desc.train.momentum.to_f64()),
+                crate::report::short_decimal(q.desc.train.lr.to_f64()),
+                crate::report::short_decimal(q.desc.train.momentum.to_f64()),
                 q.desc.train.seed
             ),
         ),
@@ -233,20 +233,6 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
         fits: plan_report.fits,
         summary,
     })
-}
-
-/// A fixed-point hyperparameter for people: six significant digits, trailing zeros dropped.
-fn short(v: f64) -> String {
-    let s = format!(
-        "{:.*}",
-        (5 - v.abs().log10().floor().max(-10.0) as i32).max(0) as usize,
-        v
-    );
-    if s.contains('.') {
-        s.trim_end_matches('0').trim_end_matches('.').to_string()
-    } else {
-        s
-    }
 }
 
 fn format_summary(d: &hone_core::model::ModelDesc) -> String {

@@ -626,8 +626,32 @@ fn md_code(code: &str) -> String {
     format!("{fence}text\n{}\n{fence}\n", code.trim_end())
 }
 
+/// A decimal for people: six significant digits, trailing zeros dropped (a fixed-point
+/// learning rate of 0.050000011920928955 shows as 0.05).
+pub fn short_decimal(v: f64) -> String {
+    if v == 0.0 || !v.is_finite() {
+        return format!("{v}");
+    }
+    let decimals = (5 - v.abs().log10().floor() as i32).clamp(0, 17) as usize;
+    let s = format!("{v:.decimals$}");
+    if s.contains('.') {
+        s.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        s
+    }
+}
+
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn short_decimals() {
+        assert_eq!(super::short_decimal(0.050000011920928955), "0.05");
+        assert_eq!(super::short_decimal(0.8999999761581421), "0.9");
+        assert_eq!(super::short_decimal(1234.5678), "1234.57");
+        assert_eq!(super::short_decimal(0.0), "0");
+        assert_eq!(super::short_decimal(2.0e-7), "0.0000002");
+    }
+
     use super::*;
     use crate::plot::markup_check::check;
     use crate::plot::{LinePlot, Series};

@@ -82,6 +82,25 @@ pub struct PointResult {
     pub error: Option<String>,
 }
 
+/// A rounding mode as the config writes it.
+pub fn rounding_name(r: Rounding) -> &'static str {
+    match r {
+        Rounding::NearestEven => "nearest-even",
+        Rounding::TowardZero => "toward-zero",
+        Rounding::Stochastic => "stochastic",
+    }
+}
+
+/// A train mode as the config writes it.
+pub fn mode_name(m: TrainMode) -> &'static str {
+    match m {
+        TrainMode::Frozen => "frozen",
+        TrainMode::BiasOnly => "bias-only",
+        TrainMode::WeightsOnly => "weights-only",
+        TrainMode::Full => "full",
+    }
+}
+
 fn word_name(w: Word) -> String {
     w.to_string()
 }
@@ -215,9 +234,9 @@ pub fn run(
                     weights: w.map_or("base".into(), word_name),
                     activations: a.map_or("base".into(), word_name),
                     frac_delta: fd,
-                    rounding: r.map_or("base".into(), |r| format!("{r:?}")),
+                    rounding: r.map_or("base".into(), |r| rounding_name(r).into()),
                     learning_rate: lr.unwrap_or_else(|| base.train.lr.to_f64()),
-                    mode: m.map_or("base".into(), |m| format!("{m:?}")),
+                    mode: m.map_or("base".into(), |m| mode_name(m).into()),
                 };
                 let result = point(base, float, (w, a, fd, r, lr, m), train, eval, opts)
                     .unwrap_or_else(|e| PointResult {
@@ -350,7 +369,7 @@ pub fn table(points: &[PointResult], classification: bool) -> crate::report::Tab
                     s.activations.clone(),
                     format!("{:+}", s.frac_delta),
                     s.rounding.clone(),
-                    format!("{}", s.learning_rate),
+                    crate::report::short_decimal(s.learning_rate),
                     s.mode.clone(),
                     if err {
                         "–".into()
