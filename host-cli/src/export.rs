@@ -95,7 +95,8 @@ pub fn model_blob(
     Ok(out)
 }
 
-fn word(w: Word) -> &'static str {
+/// The name of a word's variant (`I8`, `I16`, `I32`), for generated Rust.
+pub(crate) fn word(w: Word) -> &'static str {
     match w {
         Word::I8 => "I8",
         Word::I16 => "I16",
@@ -103,7 +104,8 @@ fn word(w: Word) -> &'static str {
     }
 }
 
-fn qf(f: QFormat) -> String {
+/// A Rust expression for a Q-format, for generated Rust.
+pub(crate) fn qf(f: QFormat) -> String {
     format!(
         "hone_core::num::QFormat::new_unchecked(hone_core::num::Word::{}, {})",
         word(f.word),

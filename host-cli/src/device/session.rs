@@ -384,23 +384,6 @@ fn word_type(w: Word) -> &'static str {
     }
 }
 
-fn raw_variant(w: Word) -> &'static str {
-    match w {
-        Word::I8 => "I8",
-        Word::I16 => "I16",
-        Word::I32 => "I32",
-    }
-}
-
-fn qf(f: QFormat) -> String {
-    format!(
-        "hone_core::num::QFormat::new_unchecked(hone_core::num::Word::{}, {})",
-        raw_variant(f.word),
-        f.frac
-    )
-}
-
-/// `pub static NAME: [ty; n] = [...];` with 16 values a line (8 for `f32`).
 fn array<T: std::fmt::Debug>(out: &mut String, name: &str, ty: &str, values: &[T]) {
     let per_line = if ty == "f32" { 8 } else { 16 };
     let _ = write!(out, "pub static {name}: [{ty}; {}] = [", values.len());
@@ -451,8 +434,8 @@ fn sample_set(out: &mut String, prefix: &str, p: &Prepared, x_name: Option<&str>
             int_array(out, &name, word, &values);
             format!(
                 "hone_fw::train::Targets::Values(hone_core::layer::Tensor {{ raw: hone_core::num::Raw::{}(&{name}), fmt: {} }})",
-                raw_variant(word),
-                qf(*format)
+                crate::export::word(word),
+                crate::export::qf(*format)
             )
         }
         PreparedTargets::Classes(labels) => {
@@ -464,7 +447,7 @@ fn sample_set(out: &mut String, prefix: &str, p: &Prepared, x_name: Option<&str>
     format!(
         "hone_fw::train::SampleSet {{\n        count: {},\n        x: hone_core::num::Raw::{}(&{x}),\n        y: {y},\n    }}",
         p.len(),
-        raw_variant(x_word)
+        crate::export::word(x_word)
     )
 }
 
