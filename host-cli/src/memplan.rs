@@ -1629,7 +1629,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_stack_bytes: 7424,
         engine_code_bytes: 86016,
         firmware_static_bytes: 28,
-        firmware_stack_bytes: 112,
+        firmware_stack_bytes: 128,
     },
     MeasuredOverhead {
         board: "microbit",
@@ -1639,7 +1639,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_stack_bytes: 7680,
         engine_code_bytes: 90112,
         firmware_static_bytes: 28,
-        firmware_stack_bytes: 152,
+        firmware_stack_bytes: 168,
     },
     MeasuredOverhead {
         board: "mps2-an386",
@@ -1649,7 +1649,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_stack_bytes: 7424,
         engine_code_bytes: 86016,
         firmware_static_bytes: 28,
-        firmware_stack_bytes: 112,
+        firmware_stack_bytes: 128,
     },
     MeasuredOverhead {
         board: "sifive-e",
@@ -1659,7 +1659,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_stack_bytes: 7168,
         engine_code_bytes: 90112,
         firmware_static_bytes: 24,
-        firmware_stack_bytes: 96,
+        firmware_stack_bytes: 112,
     },
 ];
 

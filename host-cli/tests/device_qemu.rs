@@ -9,6 +9,11 @@
 //! factory weights; the RAM measured while training agrees with the memory plan plus the
 //! measured-overhead table (never below, at most 5 % above), and so does the engine's code.
 //!
+//! The throughput phase: every QEMU board trains a larger model (64-32-8, or 32-16-4 on the
+//! 16 KiB boards) from values it draws itself, in fixed point and in `f32`, and ends with the
+//! host's weights bit for bit; per multiply-accumulate it costs less than the small model and
+//! more than the bare dot product, and its RAM stays within the prediction it was chosen with.
+//!
 //! Needs `qemu-system-arm` and `qemu-system-riscv32` (Debian packages `qemu-system-arm` and
 //! `qemu-system-misc`) and the rustup targets of the boards; a missing emulator fails the test
 //! with a message saying what to install.
@@ -17,6 +22,7 @@ use std::time::{Duration, Instant};
 
 use hone_host::device::report::TickUnit;
 use hone_host::device::session::{self, Session, BOARD_SESSIONS};
+use hone_host::device::throughput;
 use hone_host::device::verify::{verify_board, SessionCheck, VerifyOptions};
 use hone_host::device::{
     build_bin, build_firmware, decode, default_boards_dir, reference, run_elf, run_qemu,
@@ -157,12 +163,59 @@ fn check_session(check: &SessionCheck) {
         .unwrap_or_else(|e| panic!("{e}\n{}", check.render()));
 }
 
+/// The throughput phase's checks.
+fn check_throughput(check: &SessionCheck) {
+    let board = check.board;
+    let (Some(spec), Some(host), Some(t)) = (
+        check.session.throughput.spec.as_ref(),
+        check.host.throughput.as_ref(),
+        check.measures.throughput.as_ref(),
+    ) else {
+        panic!(
+            "{board}: no throughput phase ({})",
+            check.session.throughput.notes.join("; ")
+        )
+    };
+
+    // Both payloads were compared bit for bit (`ensure_bit_exact` in `check_session`), and
+    // training moved the weights away from the drawn ones.
+    for name in ["tput_weights", "tput_f32_weights"] {
+        assert!(
+            check.payloads.iter().any(|p| p.name == name && p.equal()),
+            "{board}: payload {name}"
+        );
+    }
+    assert_eq!(host.trained, spec.samples(), "{board}");
+    assert!(
+        host.weights != throughput::initial_weights(spec),
+        "{board}: the throughput phase left the weights unchanged"
+    );
+
+    // With many more products per layer the engine costs less per MAC than on the small
+    // model, and still more than the bare dot product of the same core.
+    let m = &check.measures;
+    assert!(
+        t.fixed.per_mac() < m.fixed.per_mac() && t.fixed.per_mac() > m.dot_i16.per_mac(),
+        "{board}: throughput {} insn/MAC, small model {}, floor {}",
+        t.fixed.per_mac(),
+        m.fixed.per_mac(),
+        m.dot_i16.per_mac()
+    );
+    assert!(t.float.per_mac() > 0.0, "{board}");
+    // The RAM check itself is part of `ensure_prediction` in `check_session`.
+    assert!(
+        t.fixed_ram <= t.predicted.fixed && t.float_ram <= t.predicted.float,
+        "{board}"
+    );
+}
+
 fn check(board: QemuBoard) {
     let start = Instant::now();
     let check = verify(board);
     println!("{}", check.render());
     check_phase1(&check);
     check_session(&check);
+    check_throughput(&check);
     println!(
         "{board}: QEMU {:.2} s, whole check {:.1} s",
         check.run.wall.as_secs_f64(),

@@ -14,7 +14,9 @@
 //! instructions per multiply-accumulate), and the calibration session in [`train`], which
 //! fine-tunes the model hone exported with the core's trainer, guards the result and sends the
 //! weights to the host. Both are closures of the type
-//! `FnOnce(&mut Ctx<P>) -> Result<(), SessionError>`; [`include_session!`] builds a board's.
+//! `FnOnce(&mut Ctx<P>) -> Result<(), SessionError>`; [`include_session!`] builds a board's,
+//! which ends with the throughput phase of [`throughput`]: a larger model trained on values
+//! the board draws itself, for the instruction figures per multiply-accumulate.
 //!
 //! All output goes through `defmt` in fixed record shapes documented in [`record`]; the host
 //! decoder in `host-cli` parses them by field name.
@@ -31,6 +33,7 @@ pub mod memory;
 pub mod platform;
 pub mod record;
 pub mod session;
+pub mod throughput;
 pub mod train;
 pub mod workload;
 

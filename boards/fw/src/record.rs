@@ -14,6 +14,7 @@
 //! | `sensor` | `name` str, `samples` u32, `min` u32, `max` u32, `mean` u32 (raw converter counts) |
 //! | `engine` | `arena` u32, `trainer` u32, `float_arena` u32, `twin` u32, `blob` u32 (bytes: fixed-point arena, `Trainer`, `f32` arena, `Twin<f32>`, decoded blob), `fwd_macs` u32, `bwd_macs` u32 (per training sample) |
 //! | `guard` | `set` str, `verdict` str (`accept`, `reject-loss`, `reject-saturation`), `before` i64, `after` i64 (mean hold-out loss, 24 fraction bits), `before_sat` u32, `after_sat` u32, `trained` u32, `steps` u32, `updates` u32 |
+//! | `tput` | `inputs` u32, `outputs` u32, `params` u32 (values per sample and parameter values of the throughput model), `pool` u32 (distinct samples drawn), `samples` u32 (samples trained), `macs` u32 (per training sample), `arena` u32, `float_arena` u32 (bytes) |
 //! | `stack` | `phase` str, `entry` u32 (stack depth where the phase starts), `peak` u32 (deepest point during the phase), bytes from the stack top |
 //! | `mem` | `text` u32, `rodata` u32, `data` u32, `bss` u32, `uninit` u32, `static_ram` u32, `stack_size` u32, `stack_peak` u32 |
 //! | `blob-begin` | `id` u16, `name` str, `len` u32 |
@@ -160,6 +161,42 @@ pub fn guard(g: &GuardRecord<'_>) {
         g.trained,
         g.steps,
         g.updates
+    );
+}
+
+/// The throughput phase's model and workload.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct ThroughputRecord {
+    /// Input values per sample.
+    pub inputs: u32,
+    /// Output values per sample.
+    pub outputs: u32,
+    /// Parameter values of the model.
+    pub params: u32,
+    /// Distinct samples drawn.
+    pub pool: u32,
+    /// Samples trained in each arithmetic.
+    pub samples: u32,
+    /// Multiply-accumulates of one training sample.
+    pub macs: u32,
+    /// Bytes of the fixed-point arena.
+    pub arena: u32,
+    /// Bytes of the `f32` arena.
+    pub float_arena: u32,
+}
+
+/// Logs the throughput phase's model and workload.
+pub fn throughput(t: &ThroughputRecord) {
+    defmt::info!(
+        "hone:tput inputs={=u32} outputs={=u32} params={=u32} pool={=u32} samples={=u32} macs={=u32} arena={=u32} float_arena={=u32}",
+        t.inputs,
+        t.outputs,
+        t.params,
+        t.pool,
+        t.samples,
+        t.macs,
+        t.arena,
+        t.float_arena
     );
 }
 

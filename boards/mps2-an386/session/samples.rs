@@ -106,3 +106,76 @@ pub static SESSION: hone_fw::train::Session<'static> = hone_fw::train::Session {
         y: hone_fw::train::FloatTargets::Values(&CALIB_YF),
     },
 };
+
+// The throughput phase (hone_fw::throughput): a larger model trained on values the board
+// draws from the core's generator, chosen with the memory plan for this board's RAM.
+// Model 64-32-8: predicted 29864 B in fixed point, 34204 B in f32, of 4194304 B.
+pub const TPUT_INPUT: hone_core::model::Shape = hone_core::model::Shape { channels: 64, len: 1 };
+pub const TPUT_INPUT_FORMAT: hone_core::num::QFormat = hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 12);
+pub const TPUT_TRAIN: hone_core::model::TrainDesc = hone_core::model::TrainDesc {
+    batch: 8,
+    lr: hone_core::num::QScalar { raw: 262144, frac: 24 },
+    momentum: hone_core::num::QScalar { raw: 0, frac: 0 },
+    weight_decay: hone_core::num::QScalar { raw: 0, frac: 0 },
+    clip: hone_core::num::QScalar { raw: 0, frac: 0 },
+    rounding: hone_core::num::RoundingPlan { activations: hone_core::num::Rounding::NearestEven, gradients: hone_core::num::Rounding::NearestEven, updates: hone_core::num::Rounding::NearestEven },
+    dynamic: None,
+    seed: 1,
+};
+pub const TPUT_LAYERS: [hone_core::model::LayerDesc; 3] = [
+    hone_core::model::LayerDesc {
+        kind: hone_core::model::LayerKind::Dense { units: 32 },
+        mode: hone_core::model::TrainMode::Full,
+        weight: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 15), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
+        bias: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 15), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
+        out: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 12),
+        grad: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 13),
+    },
+    hone_core::model::LayerDesc {
+        kind: hone_core::model::LayerKind::Relu,
+        mode: hone_core::model::TrainMode::Frozen,
+        weight: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I8, 7), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 0) },
+        bias: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I8, 7), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 0) },
+        out: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 12),
+        grad: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 13),
+    },
+    hone_core::model::LayerDesc {
+        kind: hone_core::model::LayerKind::Dense { units: 8 },
+        mode: hone_core::model::TrainMode::Full,
+        weight: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 15), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
+        bias: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 15), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
+        out: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 12),
+        grad: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 13),
+    },
+];
+pub const TPUT_PLAN: hone_core::plan::Plan =
+    match hone_core::plan::Plan::new(TPUT_INPUT, &TPUT_LAYERS, hone_core::model::Loss::SquaredError, &TPUT_TRAIN) {
+        Ok(p) => p,
+        Err(_) => panic!("the throughput model does not plan"),
+    };
+pub const TPUT_FLOAT_PLAN: hone_core::plan::Plan =
+    match hone_core::plan::Plan::new_float(TPUT_INPUT, &TPUT_LAYERS, hone_core::model::Loss::SquaredError, &TPUT_TRAIN, 4) {
+        Ok(p) => p,
+        Err(_) => panic!("the throughput model has no float plan"),
+    };
+pub const TPUT_ARENA_WORDS: usize = TPUT_PLAN.ram_words();
+pub const TPUT_FLOAT_ARENA_WORDS: usize = TPUT_FLOAT_PLAN.ram_words();
+/// Distinct samples drawn, and passes over them.
+pub const TPUT_POOL: u16 = 8;
+pub const TPUT_PASSES: u16 = 4;
+pub const TPUT_VALUES: usize = hone_fw::throughput::drawn_values(&TPUT_PLAN, TPUT_POOL);
+
+pub static THROUGHPUT: Option<hone_fw::throughput::Throughput<'static>> = Some(hone_fw::throughput::Throughput {
+    input: TPUT_INPUT,
+    input_format: TPUT_INPUT_FORMAT,
+    layers: &TPUT_LAYERS,
+    loss: hone_core::model::Loss::SquaredError,
+    train: TPUT_TRAIN,
+    target_format: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 12),
+    plan: &TPUT_PLAN,
+    float_plan: &TPUT_FLOAT_PLAN,
+    seed: 0x686f6e6574707574,
+    ranges: hone_fw::throughput::Ranges { weight: -2, bias: -4, input: 0, target: -1 },
+    pool: TPUT_POOL,
+    passes: TPUT_PASSES,
+});

@@ -5,7 +5,8 @@
 //! on GPIO26 gives the `raw_counts` input of each calibration sample, paired with the soil
 //! temperature and the reference water content stored for that sample (a reference instrument's
 //! readings; on a bench they would come from the technician). The hold-out samples stay those
-//! stored in flash. The tick counter is SysTick on the core clock, so spans are reported in
+//! stored in flash. Then the throughput phase (a larger model on values drawn on the chip, see
+//! `hone_fw::throughput`) measures cycles per multiply-accumulate. The tick counter is SysTick on the core clock, so spans are reported in
 //! cycles. Logs go out over RTT; the run ends with a semihosting exit, which a probe-based runner
 //! turns into its exit code.
 #![no_std]
@@ -78,7 +79,13 @@ fn main() -> ! {
     hone_fw::run(platform, move |ctx| {
         sample(ctx, &mut adc, &mut gpio26)?;
         hone_fw::workload::phase1(ctx)?;
-        calibrate(ctx, &mut adc, &mut gpio26)
+        calibrate(ctx, &mut adc, &mut gpio26)?;
+        hone_fw::throughput::run::<
+            _,
+            { session::TPUT_ARENA_WORDS },
+            { session::TPUT_FLOAT_ARENA_WORDS },
+            { session::TPUT_VALUES },
+        >(ctx, session::THROUGHPUT.as_ref())
     })
 }
 

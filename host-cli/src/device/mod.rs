@@ -10,7 +10,8 @@
 //! 5. reads the ELF's section sizes ([`elf`]).
 //!
 //! [`session`] generates what a board's calibration session trains and simulates it on the
-//! host; [`verify`] runs it on the board and compares the result bit for bit.
+//! host; [`throughput`] adds a larger model to it for the instruction figures; [`verify`] runs
+//! it on the board and compares the result bit for bit.
 //!
 //! [`run_board`] does all of it; [`DeviceRun::ensure_success`] turns a failed run into an error
 //! that names what went wrong.
@@ -26,6 +27,7 @@ pub mod reference;
 pub mod report;
 pub mod session;
 pub mod sha256;
+pub mod throughput;
 pub mod verify;
 
 use std::path::{Path, PathBuf};

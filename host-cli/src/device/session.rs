@@ -7,7 +7,8 @@
 //! samples, the same inputs with mislabelled targets (the reference values in reverse order,
 //! as if typed in from the bottom of the sheet), the forty hold-out samples, the
 //! number of passes, the guard's thresholds, the float twin's start and one
-//! `hone_fw::train::Session` value that ties them together.
+//! `hone_fw::train::Session` value that ties them together; then the throughput phase's model
+//! for the board, chosen with the memory plan (see [`super::throughput`]).
 //!
 //! Everything is deterministic: the same repository gives the same files, byte for byte, and
 //! [`simulate`] gives the results the device must reproduce bit for bit.
@@ -28,6 +29,7 @@ use hone_core::num::{QFormat, Raw, Word};
 use hone_core::plan::Plan;
 use hone_core::train::Trainer;
 
+use super::throughput::{self, Choice, ThroughputOutcome};
 use crate::chips::{self, Chip};
 use crate::config::Config;
 use crate::memplan::{self, AdviceOptions, Budget, PlanReport};
@@ -139,6 +141,8 @@ pub struct Session {
     pub float_y: Vec<f32>,
     /// The memory plan report against the chip.
     pub plan_report: PlanReport,
+    /// The throughput phase chosen for the chip (see [`throughput::choose`]).
+    pub throughput: Choice,
     /// Upper bound of a checkpoint blob's length, bytes.
     pub checkpoint_capacity: usize,
     /// `model.rs`.
@@ -213,6 +217,7 @@ impl Session {
             PreparedTargets::Classes(_) => Vec::new(),
         };
         let checkpoint_capacity = checkpoint_capacity(&desc, &params, &scaling)?;
+        let throughput = throughput::choose(chip, memplan::measured_row(chip))?;
         let origin = format!(
             "board `{}`, {} trained on {FACTORY_CSV} by hone_host::device::session",
             spec.board, spec.config
@@ -232,6 +237,7 @@ impl Session {
             float_x,
             float_y,
             plan_report,
+            throughput,
             checkpoint_capacity,
             model_rs,
             samples_rs: String::new(),
@@ -533,6 +539,7 @@ fn render_samples(s: &Session) -> String {
         g.max_saturation_ppm,
         s.calibration.len()
     );
+    out.push_str(&throughput::render(&s.throughput));
     out
 }
 
@@ -642,13 +649,15 @@ pub struct HostOutcome {
     pub plan: Plan,
     /// The float twin's plan.
     pub float_plan: Plan,
+    /// The throughput phase, on boards that run it.
+    pub throughput: Option<ThroughputOutcome>,
 }
 
 /// Runs the session on the host, as the firmware does: for each guarded set a fresh trainer
 /// from the factory parameters, the core's [`guard::calibrate`] with the calibration (or
 /// mislabelled) samples repeated [`PASSES`] times in stored order, the hold-out samples and
 /// the factory blob as the last good model; then the float twin in `f32` on the calibration
-/// samples.
+/// samples; then the throughput phase, where the board has one ([`throughput::simulate`]).
 ///
 /// # Errors
 /// A message for any error of the core.
@@ -684,27 +693,18 @@ pub fn simulate(s: &Session) -> Result<HostOutcome, String> {
         }
     }
     twin.flush();
-    let mut float_weights = Vec::new();
-    for k in 0..desc.layers.len() {
-        let Some(p) = twin.params(k) else { continue };
-        let slots = float_plan.layers[k];
-        for (values, trained) in [
-            (p.weight, slots.weight.is_some()),
-            (p.bias, slots.bias.is_some()),
-        ] {
-            if trained {
-                for v in values {
-                    float_weights.extend_from_slice(&v.to_le_bytes());
-                }
-            }
-        }
-    }
+    let float_weights = float_payload(desc, &float_plan, &twin);
+    let throughput = match &s.throughput.spec {
+        Some(spec) => Some(throughput::simulate(spec)?),
+        None => None,
+    };
     Ok(HostOutcome {
         calibration,
         faulty,
         float_weights,
         plan,
         float_plan,
+        throughput,
     })
 }
 
@@ -723,6 +723,24 @@ fn guarded(s: &Session, plan: &Plan, set: &Prepared) -> Result<GuardedOutcome, S
         .collect();
     let report =
         guard::calibrate(&mut t, train, holdout, &GUARD, &last_good).map_err(|e| e.to_string())?;
+    let weights = weights_payload(desc, plan, &t);
+    let mut checkpoint = vec![0u8; s.checkpoint_capacity];
+    let n = t
+        .write_checkpoint(&s.scaling, &mut checkpoint)
+        .map_err(|e| e.to_string())?;
+    checkpoint.truncate(n);
+    Ok(GuardedOutcome {
+        report,
+        weights,
+        checkpoint,
+        steps: t.steps(),
+        updates: t.updates(),
+    })
+}
+
+/// The trained tensors of `t` (the model `desc`, planned by `plan`) as the firmware sends them:
+/// in payload order, every value little-endian in its storage word.
+pub(crate) fn weights_payload(desc: &ModelDesc, plan: &Plan, t: &Trainer<'_>) -> Vec<u8> {
     let mut weights = Vec::new();
     for span in payload_layout(desc, plan, false) {
         let raw = t
@@ -739,16 +757,26 @@ fn guarded(s: &Session, plan: &Plan, set: &Prepared) -> Result<GuardedOutcome, S
         raw.write_le(&mut bytes);
         weights.extend_from_slice(&bytes);
     }
-    let mut checkpoint = vec![0u8; s.checkpoint_capacity];
-    let n = t
-        .write_checkpoint(&s.scaling, &mut checkpoint)
-        .map_err(|e| e.to_string())?;
-    checkpoint.truncate(n);
-    Ok(GuardedOutcome {
-        report,
-        weights,
-        checkpoint,
-        steps: t.steps(),
-        updates: t.updates(),
-    })
+    weights
+}
+
+/// The trained tensors of the twin `twin` (planned by `float_plan`) as the firmware sends
+/// them: in payload order, every value a little-endian `f32`.
+pub(crate) fn float_payload(desc: &ModelDesc, float_plan: &Plan, twin: &Twin<'_, f32>) -> Vec<u8> {
+    let mut out = Vec::new();
+    for k in 0..desc.layers.len() {
+        let Some(p) = twin.params(k) else { continue };
+        let slots = float_plan.layers[k];
+        for (values, trained) in [
+            (p.weight, slots.weight.is_some()),
+            (p.bias, slots.bias.is_some()),
+        ] {
+            if trained {
+                for v in values {
+                    out.extend_from_slice(&v.to_le_bytes());
+                }
+            }
+        }
+    }
+    out
 }

@@ -9,10 +9,13 @@
 //! - the checkpoint blob after the calibration set, byte for byte (values, momentum, generator
 //!   state, counters);
 //! - the float twin's `f32` tensors, bit for bit;
-//! - the guard's verdicts and hold-out losses.
+//! - the guard's verdicts and hold-out losses;
+//! - on boards with a throughput phase (see [`super::throughput`]), its trained tensors in
+//!   fixed point and in `f32`, byte for byte.
 //!
 //! It also gathers the measurements: instructions per training sample and per
-//! multiply-accumulate (fixed point, the `f32` twin, the Phase-1 dot product floor), RAM
+//! multiply-accumulate (fixed point, the `f32` twin, the Phase-1 dot product floor, and the
+//! throughput phase's larger model in both arithmetics), RAM
 //! measured against the memory plan's prediction, and the engine's code size from the ELF's
 //! symbols.
 
@@ -25,6 +28,7 @@ use object::{Object, ObjectSection, ObjectSymbol, SectionKind};
 use super::report::crc32;
 use super::session::{self, payload_layout, training_macs, HostOutcome, Session, TensorSpan};
 use super::sha256::sha256_hex;
+use super::throughput::{PhaseRam, MARGIN_BYTES};
 use super::{build_firmware_with, default_boards_dir, run_elf, DeviceError, DeviceRun, QemuBoard};
 use crate::memplan::{self, MeasuredOverhead};
 
@@ -93,6 +97,27 @@ pub struct GuardRecord {
     pub steps: u64,
     /// Trainer updates at the end.
     pub updates: u64,
+}
+
+/// The `tput` record: the throughput phase's model and workload.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct ThroughputRecord {
+    /// Input values per sample.
+    pub inputs: u64,
+    /// Output values per sample.
+    pub outputs: u64,
+    /// Parameter values.
+    pub params: u64,
+    /// Distinct samples drawn.
+    pub pool: u64,
+    /// Samples trained in each arithmetic.
+    pub samples: u64,
+    /// Multiply-accumulates per training sample.
+    pub macs: u64,
+    /// Fixed-point arena, bytes.
+    pub arena: u64,
+    /// `f32` arena, bytes.
+    pub float_arena: u64,
 }
 
 /// A `stack` record.
@@ -226,6 +251,31 @@ impl FlashFigures {
     }
 }
 
+/// The throughput phase's figures.
+#[derive(Clone, Debug, PartialEq)]
+pub struct ThroughputFigures {
+    /// The model, as `64-32-8`.
+    pub model: String,
+    /// Multiply-accumulates of one training sample (`Plan::training_macs`).
+    pub macs_per_sample: u64,
+    /// Fixed-point training.
+    pub fixed: Rate,
+    /// `f32` training (soft float, or the FPU on the M4F).
+    pub float: Rate,
+    /// The fixed-point arena, bytes.
+    pub arena: u64,
+    /// The `f32` arena, bytes.
+    pub float_arena: u64,
+    /// RAM while training in fixed point: static RAM + the part's deepest stack, bytes.
+    pub fixed_ram: u64,
+    /// RAM while training in `f32`, bytes.
+    pub float_ram: u64,
+    /// The generator's prediction of both, from the memory plan and the overhead table.
+    pub predicted: PhaseRam,
+    /// All the RAM the firmware has (static RAM + the stack region), bytes.
+    pub board_ram: u64,
+}
+
 /// Everything measured on one board.
 #[derive(Clone, Debug, PartialEq)]
 pub struct Measures {
@@ -245,6 +295,8 @@ pub struct Measures {
     pub ram: RamFigures,
     /// Flash.
     pub flash: FlashFigures,
+    /// The throughput phase, on boards that run it.
+    pub throughput: Option<ThroughputFigures>,
 }
 
 /// The outcome of [`verify_board`].
@@ -264,6 +316,8 @@ pub struct SessionCheck {
     pub guards: Vec<GuardRecord>,
     /// The `stack` records, in order.
     pub stacks: Vec<StackRecord>,
+    /// The `tput` record, on boards that run the throughput phase.
+    pub throughput: Option<ThroughputRecord>,
     /// Every compared payload.
     pub payloads: Vec<PayloadCheck>,
     /// Guard figures that differ between device and host, as readable lines.
@@ -321,6 +375,7 @@ fn check_run(
     host: HostOutcome,
 ) -> Result<SessionCheck, DeviceError> {
     let mut engine = None;
+    let mut throughput = None;
     let mut guards = Vec::new();
     let mut stacks = Vec::new();
     for (i, line) in run.lines.iter().enumerate() {
@@ -352,6 +407,21 @@ fn check_run(
                 steps: r.unsigned("steps").map_err(p)?,
                 updates: r.unsigned("updates").map_err(p)?,
             }),
+            "tput" => {
+                if throughput.is_some() {
+                    return Err(protocol(i, "second `tput` record"));
+                }
+                throughput = Some(ThroughputRecord {
+                    inputs: r.unsigned("inputs").map_err(p)?,
+                    outputs: r.unsigned("outputs").map_err(p)?,
+                    params: r.unsigned("params").map_err(p)?,
+                    pool: r.unsigned("pool").map_err(p)?,
+                    samples: r.unsigned("samples").map_err(p)?,
+                    macs: r.unsigned("macs").map_err(p)?,
+                    arena: r.unsigned("arena").map_err(p)?,
+                    float_arena: r.unsigned("float_arena").map_err(p)?,
+                });
+            }
             "stack" => stacks.push(StackRecord {
                 phase: r.text("phase").map_err(p)?.to_owned(),
                 entry: r.unsigned("entry").map_err(p)?,
@@ -372,7 +442,7 @@ fn check_run(
             .map(|b| b.bytes.clone())
             .ok_or_else(|| protocol(end, format!("no `{name}` payload")))
     };
-    let payloads = vec![
+    let mut payloads = vec![
         compare(
             "calib_weights",
             &blob("calib_weights")?,
@@ -404,6 +474,37 @@ fn check_run(
             Some(&float_layout),
         ),
     ];
+
+    match (&session.throughput.spec, &host.throughput, &throughput) {
+        (Some(spec), Some(h), Some(_)) => {
+            payloads.push(compare(
+                "tput_weights",
+                &blob("tput_weights")?,
+                &h.weights,
+                Some(&payload_layout(&spec.desc, &spec.plan, false)),
+            ));
+            payloads.push(compare(
+                "tput_f32_weights",
+                &blob("tput_f32_weights")?,
+                &h.float_weights,
+                Some(&payload_layout(&spec.desc, &spec.float_plan, true)),
+            ));
+        }
+        (Some(_), _, None) => return Err(protocol(end, "no `tput` record")),
+        (None, _, Some(_)) => {
+            return Err(protocol(
+                end,
+                "a `tput` record, but the session has no throughput phase for this board",
+            ))
+        }
+        (Some(_), None, Some(_)) => {
+            return Err(protocol(
+                end,
+                "the host did not simulate the throughput phase",
+            ))
+        }
+        (None, _, None) => {}
+    }
 
     let mut guard_diffs = Vec::new();
     for (set, h) in [("calib", &host.calibration), ("faulty", &host.faulty)] {
@@ -454,7 +555,11 @@ fn check_run(
         .iter()
         .find(|m| m.board == board.name())
         .copied();
-    let measures = measure(&session, &host, &run, &engine, &stacks, overhead.as_ref())?;
+    let mut measures = measure(&session, &host, &run, &engine, &stacks, overhead.as_ref())?;
+    measures.throughput = match &throughput {
+        Some(t) => Some(measure_throughput(&session, &run, t, &stacks)?),
+        None => None,
+    };
     Ok(SessionCheck {
         board,
         session,
@@ -463,6 +568,7 @@ fn check_run(
         engine,
         guards,
         stacks,
+        throughput,
         payloads,
         guard_diffs,
         measures,
@@ -659,6 +765,81 @@ fn measure(
         dot_i16,
         ram,
         flash,
+        throughput: None,
+    })
+}
+
+/// The throughput phase's figures, after checking its record against the host's spec.
+fn measure_throughput(
+    session: &Session,
+    run: &DeviceRun,
+    record: &ThroughputRecord,
+    stacks: &[StackRecord],
+) -> Result<ThroughputFigures, DeviceError> {
+    let end = run.lines.len();
+    let spec = session
+        .throughput
+        .spec
+        .as_ref()
+        .ok_or_else(|| protocol(end, "no throughput phase in the session"))?;
+    let (inputs, outputs) = spec.sample_values();
+    let (forward, backward) = training_macs(&spec.desc, &spec.plan);
+    let macs = spec.plan.training_macs();
+    let want = ThroughputRecord {
+        inputs: inputs as u64,
+        outputs: outputs as u64,
+        params: spec.param_values() as u64,
+        pool: u64::from(spec.pool),
+        samples: spec.samples(),
+        macs,
+        arena: u64::from(spec.plan.ram_bytes),
+        float_arena: u64::from(spec.float_plan.ram_bytes),
+    };
+    if *record != want || forward + backward != macs {
+        return Err(protocol(
+            end,
+            format!(
+                "the `tput` record is {record:?}, the host's spec gives {want:?} \
+                 ({forward}+{backward} multiply-accumulates per sample)"
+            ),
+        ));
+    }
+    let fixed = span_rate(run, "tput_train", spec.samples())?;
+    let float = span_rate(run, "tput_f32_train", spec.samples())?;
+    for r in [&fixed, &float] {
+        if r.macs != spec.samples() * macs {
+            return Err(protocol(
+                end,
+                format!(
+                    "a throughput span counts {} multiply-accumulates, expected {}",
+                    r.macs,
+                    spec.samples() * macs
+                ),
+            ));
+        }
+    }
+    let peak = |phase: &str| -> Result<u64, DeviceError> {
+        stacks
+            .iter()
+            .find(|s| s.phase == phase)
+            .map(|s| s.peak)
+            .ok_or_else(|| protocol(end, format!("no `stack` record for `{phase}`")))
+    };
+    let mem = run
+        .report
+        .memory
+        .ok_or_else(|| protocol(end, "no `mem` record"))?;
+    Ok(ThroughputFigures {
+        model: spec.name(),
+        macs_per_sample: macs,
+        fixed,
+        float,
+        arena: want.arena,
+        float_arena: want.float_arena,
+        fixed_ram: mem.static_ram + peak("tput")?,
+        float_ram: mem.static_ram + peak("tput_f32")?,
+        predicted: spec.predicted,
+        board_ram: mem.static_ram + mem.stack_size,
     })
 }
 
@@ -790,6 +971,8 @@ impl SessionCheck {
     /// Checks the memory prediction against the measurement: the measured RAM while training
     /// must not exceed the prediction (plan arena + measured-overhead table), and the
     /// prediction must be at most 5 % above it; the engine's code likewise against the table.
+    /// On boards with a throughput phase, its RAM in both arithmetics must not exceed the
+    /// prediction the model was chosen with, and must leave [`MARGIN_BYTES`] free.
     ///
     /// # Errors
     /// [`DeviceError::Prediction`] naming the figure and both values, and the table row to
@@ -825,20 +1008,50 @@ impl SessionCheck {
                 o.engine_code_bytes
             ));
         }
-        if problems.is_empty() {
+        let throughput = self.throughput_problems();
+        if problems.is_empty() && throughput.is_empty() {
             return Ok(());
         }
-        Err(err(format!(
-            "{}; the measured figures now are: trainer {} B, engine stack {} B, engine code {} B, \
-             firmware static {} B, firmware stack {} B (update the row and its provenance, see \
-             boards/README.md)",
-            problems.join("; "),
-            r.trainer,
-            r.engine_stack,
-            code,
-            r.static_ram,
-            r.entry
-        )))
+        let mut detail = Vec::new();
+        if !problems.is_empty() {
+            detail.push(format!(
+                "{}; the measured figures now are: trainer {} B, engine stack {} B, engine code {} B, \
+                 firmware static {} B, firmware stack {} B (update the row and its provenance, see \
+                 boards/README.md)",
+                problems.join("; "),
+                r.trainer,
+                r.engine_stack,
+                code,
+                r.static_ram,
+                r.entry
+            ));
+        }
+        detail.extend(throughput);
+        Err(err(detail.join("; ")))
+    }
+
+    /// The throughput phase's RAM against the generator's prediction: each part's measured
+    /// RAM must not exceed what the model was chosen with, and must leave [`MARGIN_BYTES`] of
+    /// the board's RAM free. One line per problem; none for a board without the phase.
+    fn throughput_problems(&self) -> Vec<String> {
+        let Some(t) = &self.measures.throughput else {
+            return Vec::new();
+        };
+        let mut problems = Vec::new();
+        for (part, measured, predicted) in [
+            ("fixed point", t.fixed_ram, t.predicted.fixed),
+            ("f32", t.float_ram, t.predicted.float),
+        ] {
+            if measured > predicted || measured + MARGIN_BYTES > t.board_ram {
+                problems.push(format!(
+                    "throughput model {} in {part}: measured {measured} B, predicted {predicted} B, \
+                     board RAM {} B with a margin of {MARGIN_BYTES} B (the prediction is made in \
+                     host-cli/src/device/throughput.rs)",
+                    t.model, t.board_ram
+                ));
+            }
+        }
+        problems
     }
 
     /// The figures as text: digests, verdicts, instructions, RAM and flash.
@@ -917,6 +1130,47 @@ impl SessionCheck {
             m.dot_i16.per_mac(),
             m.dot_i8.per_mac()
         );
+        match (&m.throughput, &self.session.throughput.spec) {
+            (Some(t), Some(spec)) => {
+                let train = &spec.desc.train;
+                let momentum = if train.momentum.is_zero() {
+                    "no momentum".to_owned()
+                } else {
+                    format!("momentum {}", train.momentum.to_f64())
+                };
+                let _ = writeln!(
+                    s,
+                    "  throughput: model {} (dense, ReLU, dense; squared error, SGD batch {}, {momentum}), \
+                     {} MACs per training sample, {} samples trained ({} drawn on the board)",
+                    t.model, train.batch, t.macs_per_sample, t.fixed.samples, spec.pool
+                );
+                for (what, r) in [("fixed point", &t.fixed), (float_kind, &t.float)] {
+                    let _ = writeln!(
+                        s,
+                        "    {what:<16} {:>9.1} insn/sample {:>8.1} insn/MAC",
+                        r.per_sample(),
+                        r.per_mac()
+                    );
+                }
+                let _ = writeln!(
+                    s,
+                    "    RAM: fixed point {} B (arena {}, predicted {}), f32 {} B (arena {}, predicted {}), of {} B",
+                    t.fixed_ram,
+                    t.arena,
+                    t.predicted.fixed,
+                    t.float_ram,
+                    t.float_arena,
+                    t.predicted.float,
+                    t.board_ram
+                );
+            }
+            _ => {
+                let _ = writeln!(s, "  throughput: no phase on this board");
+                for n in &self.session.throughput.notes {
+                    let _ = writeln!(s, "    {n}");
+                }
+            }
+        }
         let r = &m.ram;
         let _ = writeln!(
             s,
