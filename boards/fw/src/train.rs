@@ -10,8 +10,8 @@
 //! 2. the **calibration** set: evaluate the hold-out samples under the factory weights, train
 //!    on the calibration samples (`passes` passes in stored order, then a flush of the partial
 //!    batch), evaluate the hold-out samples again, judge with the core's
-//!    [`guard::judge`], and restore the factory blob on rejection. This is the body of
-//!    [`guard::calibrate`], split so each part is timed on its own. A `guard` record gives the
+//!    [`hone_core::guard::judge`], and restore the factory blob on rejection. This is the body of
+//!    [`hone_core::guard::calibrate`], split so each part is timed on its own. A `guard` record gives the
 //!    verdict and both losses; the trained tensors and the checkpoint blob go to the host as
 //!    payloads;
 //! 3. the **faulty** set: the same inputs with mislabelled targets, which the guard is expected
