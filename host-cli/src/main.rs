@@ -331,6 +331,9 @@ enum DeviceCmd {
         /// ones under boards/<board>/session.
         #[arg(long)]
         session_dir: Option<PathBuf>,
+        /// Run this firmware image instead of building one.
+        #[arg(long)]
+        elf: Option<PathBuf>,
     },
     /// Write a board's session files (the exported model and its calibration samples).
     Session {
@@ -829,10 +832,15 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
             })
     };
     match d {
-        DeviceCmd::Verify { board, session_dir } => {
+        DeviceCmd::Verify {
+            board,
+            session_dir,
+            elf,
+        } => {
             let b = board_named(&board)?;
             let opts = device::verify::VerifyOptions {
                 session_dir,
+                elf,
                 ..Default::default()
             };
             let check = device::verify::verify_board(b, &opts).map_err(|e| anyhow!("{e}"))?;

@@ -44,6 +44,10 @@ pub struct VerifyOptions {
     pub session_dir: Option<PathBuf>,
     /// Time limit of the QEMU run.
     pub timeout: Duration,
+    /// Run this already built firmware image instead of building one. It must have been built
+    /// from the board's session files (the committed ones, or those in `session_dir`); the
+    /// comparison with the host tells if it was not.
+    pub elf: Option<PathBuf>,
 }
 
 impl Default for VerifyOptions {
@@ -53,6 +57,7 @@ impl Default for VerifyOptions {
             repo_dir: session::default_repo_dir(),
             session_dir: None,
             timeout: super::DEFAULT_TIMEOUT,
+            elf: None,
         }
     }
 }
@@ -361,7 +366,10 @@ pub fn verify_board(board: QemuBoard, opts: &VerifyOptions) -> Result<SessionChe
             None
         }
     };
-    let elf = build_firmware_with(board, &opts.boards_dir, dir)?;
+    let elf = match &opts.elf {
+        Some(elf) => elf.clone(),
+        None => build_firmware_with(board, &opts.boards_dir, dir)?,
+    };
     let run = run_elf(board, &elf, opts.timeout)?;
     run.ensure_success()?;
     let host = session::simulate(&session).map_err(session_err)?;
