@@ -550,21 +550,87 @@ const fn role_index(role: TensorRole) -> u8 {
 /// [`BlobError::BufferTooSmall`] if `out` is too short; [`BlobError::Malformed`] if the body
 /// cannot be serialized.
 pub fn encode(body: &BlobBody<'_>, out: &mut [u8]) -> Result<usize, Error> {
+    encode_parts(
+        body.kind,
+        &body.desc,
+        &body.scaling,
+        body.state.as_ref(),
+        body.tensors.len(),
+        body.tensors.iter().copied(),
+        out,
+    )
+}
+
+/// Encodes a blob from its parts, writing the tensors as they come from `tensors` (which must
+/// yield exactly `count` of them), so no tensor list is held in memory. The bytes are those
+/// [`encode`] writes for the same body. Returns the bytes written.
+///
+/// # Errors
+/// [`BlobError::BufferTooSmall`] if `out` is too short; [`BlobError::TooManyTensors`] past
+/// [`MAX_TENSORS`] or when `tensors` does not yield `count` items; [`BlobError::Scaling`] past
+/// [`MAX_SCALED_CHANNELS`].
+pub fn encode_parts<'t, I>(
+    kind: BlobKind,
+    desc: &ModelDesc,
+    scaling: &[ChannelScale],
+    state: Option<&TrainState>,
+    count: usize,
+    tensors: I,
+    out: &mut [u8],
+) -> Result<usize, Error>
+where
+    I: Iterator<Item = TensorBlob<'t>>,
+{
+    if count > MAX_TENSORS {
+        return Err(BlobError::TooManyTensors.into());
+    }
+    if scaling.len() > MAX_SCALED_CHANNELS {
+        return Err(BlobError::Scaling.into());
+    }
     if out.len() < 10 {
         return Err(BlobError::BufferTooSmall.into());
     }
     out[..4].copy_from_slice(&MAGIC);
     out[4..6].copy_from_slice(&FORMAT_VERSION.to_le_bytes());
     let room = out.len() - 4;
-    let body_len = match postcard::to_slice(body, &mut out[6..room]) {
-        Ok(s) => s.len(),
-        Err(postcard::Error::SerializeBufferFull) => return Err(BlobError::BufferTooSmall.into()),
-        Err(_) => return Err(BlobError::Malformed.into()),
-    };
-    let end = 6 + body_len;
-    let crc = CRC.checksum(&out[..end]);
-    out[end..end + 4].copy_from_slice(&crc.to_le_bytes());
-    Ok(end + 4)
+    let mut pos = 6;
+    // Postcard writes a struct as its fields in order and a list as a varint length followed
+    // by the items, so writing the parts one after the other gives the body's bytes.
+    fn put<T: Serialize + ?Sized>(
+        v: &T,
+        out: &mut [u8],
+        pos: &mut usize,
+        room: usize,
+    ) -> Result<(), Error> {
+        let dest = out.get_mut(*pos..room).ok_or(BlobError::BufferTooSmall)?;
+        match postcard::to_slice(v, dest) {
+            Ok(w) => {
+                *pos += w.len();
+                Ok(())
+            }
+            Err(postcard::Error::SerializeBufferFull) => Err(BlobError::BufferTooSmall.into()),
+            Err(_) => Err(BlobError::Malformed.into()),
+        }
+    }
+    put(&kind, out, &mut pos, room)?;
+    put(desc, out, &mut pos, room)?;
+    put(scaling, out, &mut pos, room)?;
+    put(&state, out, &mut pos, room)?;
+    put(&(count as u64), out, &mut pos, room)?;
+    let mut written = 0usize;
+    for t in tensors {
+        if written == count {
+            return Err(BlobError::TooManyTensors.into());
+        }
+        put(&t, out, &mut pos, room)?;
+        written += 1;
+    }
+    if written != count {
+        return Err(BlobError::TooManyTensors.into());
+    }
+    let crc = CRC.checksum(&out[..pos]);
+    out[pos..pos + 4].copy_from_slice(&crc.to_le_bytes());
+    Ok(pos + 4)
 }
 
 /// Bytes [`encode`] will write for `body`.

@@ -71,39 +71,8 @@ impl Trainer<'_> {
     /// [`BlobError::Scaling`] if `scaling` is too long.
     pub fn checkpoint_body(&self, scaling: &[ChannelScale]) -> Result<BlobBody<'_>, Error> {
         let mut tensors: Vec<TensorBlob<'_>, { blob::MAX_TENSORS }> = Vec::new();
-        for (k, l) in self.desc.layers.iter().enumerate() {
-            let s = &self.plan.layers[k];
-            let live = self.live[k];
-            let acc_w = QFormat {
-                word: l.weight.accum.word,
-                frac: live.accum_weight,
-            };
-            let acc_b = QFormat {
-                word: l.bias.accum.word,
-                frac: live.accum_bias,
-            };
-            let entries = [
-                (TensorRole::Weight, s.weight, Some(l.weight.value)),
-                (TensorRole::Bias, s.bias, Some(l.bias.value)),
-                (TensorRole::MasterWeight, s.master_weight, l.weight.master),
-                (TensorRole::MasterBias, s.master_bias, l.bias.master),
-                (TensorRole::MomentumWeight, s.momentum_weight, Some(acc_w)),
-                (TensorRole::MomentumBias, s.momentum_bias, Some(acc_b)),
-            ];
-            for (role, slot, fmt) in entries {
-                let Some(fmt) = fmt else { continue };
-                if !slot.is_some() {
-                    continue;
-                }
-                let t = TensorBlob {
-                    layer: k as u8,
-                    role,
-                    format: fmt,
-                    elems: slot.elems,
-                    data: slot_bytes(self.arena, slot, fmt),
-                };
-                tensors.push(t).map_err(|_| BlobError::TooManyTensors)?;
-            }
+        for t in self.checkpoint_tensors() {
+            tensors.push(t).map_err(|_| BlobError::TooManyTensors)?;
         }
         Ok(BlobBody {
             kind: BlobKind::Checkpoint,
@@ -114,16 +83,63 @@ impl Trainer<'_> {
         })
     }
 
+    /// The trained tensors a checkpoint carries, in blob order, borrowed from the arena.
+    fn checkpoint_tensors(&self) -> impl Iterator<Item = TensorBlob<'_>> + Clone + '_ {
+        self.desc.layers.iter().enumerate().flat_map(move |(k, l)| {
+            let s = &self.plan.layers[k];
+            let live = self.live[k];
+            let acc_w = QFormat {
+                word: l.weight.accum.word,
+                frac: live.accum_weight,
+            };
+            let acc_b = QFormat {
+                word: l.bias.accum.word,
+                frac: live.accum_bias,
+            };
+            [
+                (TensorRole::Weight, s.weight, Some(l.weight.value)),
+                (TensorRole::Bias, s.bias, Some(l.bias.value)),
+                (TensorRole::MasterWeight, s.master_weight, l.weight.master),
+                (TensorRole::MasterBias, s.master_bias, l.bias.master),
+                (TensorRole::MomentumWeight, s.momentum_weight, Some(acc_w)),
+                (TensorRole::MomentumBias, s.momentum_bias, Some(acc_b)),
+            ]
+            .into_iter()
+            .filter_map(move |(role, slot, fmt)| {
+                let fmt = fmt?;
+                slot.is_some().then(|| TensorBlob {
+                    layer: k as u8,
+                    role,
+                    format: fmt,
+                    elems: slot.elems,
+                    data: slot_bytes(self.arena, slot, fmt),
+                })
+            })
+        })
+    }
+
     /// Writes a checkpoint blob into `out`; returns its length.
     ///
     /// # Errors
-    /// [`BlobError::BufferTooSmall`] and the errors of [`Trainer::checkpoint_body`].
+    /// [`BlobError::BufferTooSmall`]; [`BlobError::Scaling`] if `scaling` is too long.
     pub fn write_checkpoint(
         &self,
         scaling: &[ChannelScale],
         out: &mut [u8],
     ) -> Result<usize, Error> {
-        blob::encode(&self.checkpoint_body(scaling)?, out)
+        // Streamed: no list of tensors is built, which keeps a device's stack small.
+        let tensors = self.checkpoint_tensors();
+        let count = tensors.clone().count();
+        let state = self.train_state();
+        blob::encode_parts(
+            BlobKind::Checkpoint,
+            self.desc,
+            scaling,
+            Some(&state),
+            count,
+            tensors,
+            out,
+        )
     }
 
     /// Restores the trainer from a validated blob of the same model description.
@@ -336,6 +352,29 @@ mod tests {
         let n = a.write_checkpoint(&[], &mut buf).unwrap();
         let checked = blob::decode(&buf[..n]).unwrap();
         assert_eq!(checked.kind(), BlobKind::Checkpoint);
+        // The streamed checkpoint is byte for byte the encoding of the gathered body.
+        let mut gathered = [0u8; 2048];
+        let m = blob::encode(&a.checkpoint_body(&[]).unwrap(), &mut gathered).unwrap();
+        assert_eq!(&buf[..n], &gathered[..m]);
+        assert_eq!(
+            a.write_checkpoint(&[], &mut gathered[..n - 1]),
+            Err(crate::Error::Blob(blob::BlobError::BufferTooSmall))
+        );
+        let body = a.checkpoint_body(&[]).unwrap();
+        let short = blob::encode_parts(
+            body.kind,
+            &body.desc,
+            &[],
+            body.state.as_ref(),
+            body.tensors.len() + 1,
+            body.tensors.iter().copied(),
+            &mut gathered,
+        );
+        assert_eq!(
+            short,
+            Err(crate::Error::Blob(blob::BlobError::TooManyTensors))
+        );
+        drop(body);
         // Frozen layer 0 is not carried; layer 2 carries values, masters and momentum.
         assert!(checked.tensors().all(|t| t.layer == 2));
         assert_eq!(checked.tensor_count(), 6);
