@@ -18,7 +18,8 @@
 //! [`decode`] checks, in order: length, magic, version, CRC, postcard structure, then the
 //! meaning: the description is valid, every tensor belongs to an existing layer with
 //! parameters, its word, element count and byte length match the description, no tensor
-//! appears twice, every tensor the kind requires is present, fraction bits are in range. What
+//! appears twice, every tensor the kind requires is present and nothing else, and every
+//! tensor's format is exactly the one the description (or, for momentum, the state) gives. What
 //! comes out is a [`CheckedBlob`]; code past that point trusts it. Nothing in the decoder
 //! panics on any input (a fuzz target exercises it).
 
@@ -27,7 +28,7 @@ use serde::{Deserialize, Serialize};
 
 use crate::error::Error;
 use crate::model::{ModelDesc, MAX_LAYERS};
-use crate::num::{QFormat, RawMut, Word, MAX_FRAC};
+use crate::num::{QFormat, RawMut, MAX_FRAC};
 
 /// First four bytes of every blob.
 pub const MAGIC: [u8; 4] = *b"HONB";
@@ -350,28 +351,55 @@ pub fn copy_tensor(t: &TensorBlob<'_>, out: &mut RawMut<'_>) -> Result<(), Error
     Ok(())
 }
 
-/// The format a tensor of `role` must have in layer `layer` of `desc` (the word is fixed by the
-/// description; the fraction bits of accumulator-format tensors may have moved).
-fn expected_word(desc: &ModelDesc, layer: usize, role: TensorRole) -> Option<(Word, bool)> {
+/// The exact format a tensor of `role` must have in layer `layer`, and whether a blob of this
+/// kind may carry it at all. A factory model carries the values of every parameter tensor; a
+/// checkpoint carries what training changes: the values of trained tensors, their master
+/// copies where the description has them, and their momentum when momentum is on, in the
+/// accumulator format of the moment (`state.fracs`). `None` for a layer that does not exist or
+/// has no parameters.
+fn expected(
+    desc: &ModelDesc,
+    kind: BlobKind,
+    state: Option<&TrainState>,
+    layer: usize,
+    role: TensorRole,
+) -> Option<(QFormat, bool)> {
     let l = desc.layers.get(layer)?;
     if !l.kind.has_params() {
         return None;
     }
+    let checkpoint = kind == BlobKind::Checkpoint;
+    let (tw, tb) = (l.mode.trains_weight(), l.mode.trains_bias());
+    let momentum = !desc.train.momentum.is_zero();
+    let fracs = state
+        .and_then(|s| s.fracs.get(layer))
+        .copied()
+        .unwrap_or([0; 4]);
     Some(match role {
-        TensorRole::Weight => (l.weight.value.word, true),
-        TensorRole::Bias => (l.bias.value.word, true),
-        // A master tensor where the description has no master copy is a tensor the layer
-        // cannot take: a shape error, not a missing layer.
+        TensorRole::Weight => (l.weight.value, !checkpoint || tw),
+        TensorRole::Bias => (l.bias.value, !checkpoint || tb),
         TensorRole::MasterWeight => match l.weight.master {
-            Some(m) => (m.word, l.mode.trains_weight()),
-            None => (l.weight.value.word, false),
+            Some(m) => (m, checkpoint && tw),
+            None => (l.weight.value, false),
         },
         TensorRole::MasterBias => match l.bias.master {
-            Some(m) => (m.word, l.mode.trains_bias()),
-            None => (l.bias.value.word, false),
+            Some(m) => (m, checkpoint && tb),
+            None => (l.bias.value, false),
         },
-        TensorRole::MomentumWeight => (l.weight.accum.word, l.mode.trains_weight()),
-        TensorRole::MomentumBias => (l.bias.accum.word, l.mode.trains_bias()),
+        TensorRole::MomentumWeight => (
+            QFormat {
+                word: l.weight.accum.word,
+                frac: fracs[2],
+            },
+            checkpoint && tw && momentum,
+        ),
+        TensorRole::MomentumBias => (
+            QFormat {
+                word: l.bias.accum.word,
+                frac: fracs[3],
+            },
+            checkpoint && tb && momentum,
+        ),
     })
 }
 
@@ -457,17 +485,20 @@ fn check(b: &CheckedBlob<'_>) -> Result<(), Error> {
             postcard::take_from_bytes(rest).map_err(|_| BlobError::Malformed)?;
         rest = r;
         let layer = t.layer as usize;
-        let Some((word, allowed)) = expected_word(desc, layer, t.role) else {
+        let Some((format, allowed)) = expected(desc, b.kind, b.state.as_ref(), layer, t.role)
+        else {
             return Err(BlobError::NoSuchLayer { layer: t.layer }.into());
         };
+        let word = format.word;
         let g = &shapes.layers[layer];
         let elems = match t.role {
             TensorRole::Weight | TensorRole::MasterWeight | TensorRole::MomentumWeight => g.weights,
             _ => g.biases,
         };
+        // The format must be exactly the description's (or the state's, for momentum): a blob
+        // cannot rescale a tensor behind the description's back.
         let shape_ok = allowed
-            && t.format.word == word
-            && t.format.frac <= MAX_FRAC
+            && t.format == format
             && t.elems == elems
             && t.data.len() == elems as usize * word.bytes();
         if !shape_ok {

@@ -18,6 +18,9 @@ pub enum LayerFault {
     LossOutput,
     /// A train mode that needs parameters was set on a layer that has none.
     ModeWithoutParams,
+    /// A setting of the layer is out of its range (leaky-ReLU shift 1 to 15, clipped-ReLU
+    /// ceiling at least 1).
+    Parameter,
 }
 
 /// Which parameter tensor of a layer.
@@ -110,6 +113,7 @@ impl fmt::Display for LayerFault {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         f.write_str(match self {
             LayerFault::ZeroSize => "a size is zero",
+            LayerFault::Parameter => "a setting is out of its range (leaky-ReLU shift 1 to 15, clipped-ReLU ceiling at least 1)",
             LayerFault::WindowTooLong => "the kernel or window is longer than the input",
             LayerFault::TooLarge => "sizes overflow 32-bit counts",
             LayerFault::Format => "a Q-format has more than 31 fraction bits",

@@ -163,12 +163,14 @@ pub struct SessionReport {
 }
 
 /// Runs one guarded calibration session: evaluates `holdout`, trains on `train` (flushing a
-/// partial batch at the end), evaluates `holdout` again and judges. On rejection it restores
-/// the trainer from `last_good` (the blob of the weights before the session: the factory
-/// model or the last committed checkpoint).
+/// partial batch at the end), evaluates `holdout` again and judges. On rejection, and when a
+/// sample turns out not to fit the model, it restores the trainer from `last_good` (the blob
+/// of the weights before the session: the factory model or the last committed checkpoint);
+/// with a factory model it also puts back the training state the trainer had before the
+/// session, so the trainer is exactly as it was.
 ///
 /// # Errors
-/// Sample errors from training or evaluation, and the errors of
+/// Sample errors from training or evaluation (after rolling back), and the errors of
 /// [`Trainer::restore`](crate::train::Trainer::restore).
 pub fn calibrate<'s, T, H>(
     trainer: &mut Trainer<'_>,
@@ -181,17 +183,42 @@ where
     T: IntoIterator<Item = (Tensor<'s>, Target<'s>)>,
     H: IntoIterator<Item = (Tensor<'s>, Target<'s>)> + Clone,
 {
+    // Everything a rejection must give back: the weights come from `last_good`, the rest
+    // (generator, counters, fraction bits, the dynamic interval) from this snapshot.
+    let saved = trainer.train_state();
+    let rollback = |trainer: &mut Trainer<'_>| -> Result<(), Error> {
+        trainer.restore(last_good)?;
+        if last_good.kind() == crate::blob::BlobKind::Model {
+            trainer.set_train_state(&saved)?;
+        }
+        Ok(())
+    };
     let before = evaluate(trainer, holdout.clone())?;
     let mut trained = 0u32;
+    let mut failed = None;
     for (x, t) in train {
-        trainer.step(x, t)?;
+        if let Err(e) = trainer.step(x, t) {
+            failed = Some(e);
+            break;
+        }
         trained += 1;
     }
+    // A sample that does not fit ends the session: the weights go back before the error does.
+    if let Some(e) = failed {
+        rollback(trainer)?;
+        return Err(e);
+    }
     trainer.flush();
-    let after = evaluate(trainer, holdout)?;
+    let after = match evaluate(trainer, holdout) {
+        Ok(a) => a,
+        Err(e) => {
+            rollback(trainer)?;
+            return Err(e);
+        }
+    };
     let verdict = judge(&before, &after, cfg);
     if verdict != Verdict::Accept {
-        trainer.restore(last_good)?;
+        rollback(trainer)?;
     }
     Ok(SessionReport {
         before,

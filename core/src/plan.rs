@@ -34,7 +34,8 @@
 //! - **Kept activations**: a layer output is kept only when backward needs it: as the input of
 //!   a layer that trains its weights (dense, conv), as the input of an activation or max-pool
 //!   that must pass a gradient back, or as the output of sigmoid and tanh, whose derivatives
-//!   are computed from the output. Nothing is kept before the first trainable layer.
+//!   are computed from the output. Nothing is kept before the first trainable layer, except the
+//!   output that feeds it when it trains its weights.
 //! - **Forward scratch**: two buffers; a layer output that is not kept goes to buffer
 //!   `index % 2`, so a layer never reads and writes the same buffer.
 //! - **Backward scratch**: two buffers for the loss gradient of each layer output, again by
@@ -73,8 +74,11 @@ impl Slot {
     };
 
     /// Whether this slot holds a buffer.
+    ///
+    /// Decided by the bytes reserved, so a copy of [`Slot::NONE`] with another element count
+    /// is still no buffer.
     pub const fn is_some(&self) -> bool {
-        self.bytes != 0 || self.elems != 0
+        self.bytes != 0
     }
 
     /// First word index in a `[u32]` arena.
@@ -375,10 +379,10 @@ impl Plan {
             if is_kept(layers, k, first) {
                 plan.layers[k].kept = bump.take(size, l.out.word, fb);
             } else {
-                fwd_max[k % 2] = widest(fwd_max[k % 2], size, l.out.word);
+                fwd_max[k % 2] = widest(fwd_max[k % 2], size, l.out.word, fb);
             }
             if k >= first {
-                bwd_max[k % 2] = widest(bwd_max[k % 2], size, l.grad.word);
+                bwd_max[k % 2] = widest(bwd_max[k % 2], size, l.grad.word, fb);
             }
             k += 1;
         }
@@ -493,11 +497,20 @@ pub struct RamBreakdown {
     pub scratch: u32,
 }
 
-const fn widest(cur: (u32, Word), elems: u32, word: Word) -> (u32, Word) {
-    let cur_bytes = cur.0 as u64 * cur.1.bytes() as u64;
-    let new_bytes = elems as u64 * word.bytes() as u64;
-    // Keep the largest byte count; the word recorded is that of the largest buffer, the
-    // element count is what fits, so any layer of that parity fits in the bytes.
+const fn value_bytes(word: Word, float_bytes: u32) -> u64 {
+    if float_bytes != 0 {
+        float_bytes as u64
+    } else {
+        word.bytes() as u64
+    }
+}
+
+const fn widest(cur: (u32, Word), elems: u32, word: Word, float_bytes: u32) -> (u32, Word) {
+    // Bytes per value: the word's, or for a float plan the float's, whatever the word.
+    let cur_bytes = cur.0 as u64 * value_bytes(cur.1, float_bytes);
+    let new_bytes = elems as u64 * value_bytes(word, float_bytes);
+    // Keep the largest byte count; every layer of that parity then fits in the buffer's bytes
+    // (its own word, or the float, times its own count).
     if new_bytes > cur_bytes {
         (elems, word)
     } else {

@@ -247,7 +247,12 @@ fn encode(body: &BlobBody<'_>) -> Vec<u8> {
 
 /// The tensors a blob of `kind` must carry for `desc` (plus, for models, nothing else), with
 /// bytes from the genome.
-fn tensors_for(desc: &ModelDesc, kind: BlobKind, g: &mut Genome<'_>) -> Vec<OwnedTensor> {
+fn tensors_for(
+    desc: &ModelDesc,
+    kind: BlobKind,
+    state: Option<&TrainState>,
+    g: &mut Genome<'_>,
+) -> Vec<OwnedTensor> {
     let shapes = hone_core::model::shapes(desc.input, &desc.layers, desc.loss).unwrap();
     let momentum = !desc.train.momentum.is_zero();
     let mut out = Vec::new();
@@ -261,9 +266,9 @@ fn tensors_for(desc: &ModelDesc, kind: BlobKind, g: &mut Genome<'_>) -> Vec<Owne
             BlobKind::Checkpoint => (l.mode.trains_weight(), l.mode.trains_bias()),
         };
         let ckpt = kind == BlobKind::Checkpoint;
-        let moved = |g: &mut Genome<'_>, f: QFormat| {
-            QFormat::new(f.word, g.pick(u32::from(MAX_FRAC) + 1) as u8).unwrap()
-        };
+        // Momentum is in the accumulator format of the moment, which the state records.
+        let fracs = state.map_or([0; 4], |s| s.fracs[k]);
+        let moved = |f: QFormat, frac: u8| QFormat::new(f.word, frac).unwrap();
         let mut wanted: Vec<(TensorRole, QFormat, u32)> = Vec::new();
         if tw {
             wanted.push((TensorRole::Weight, l.weight.value, geo.weights));
@@ -276,7 +281,7 @@ fn tensors_for(desc: &ModelDesc, kind: BlobKind, g: &mut Genome<'_>) -> Vec<Owne
                 wanted.push((TensorRole::MasterWeight, m, geo.weights));
             }
             if momentum {
-                let f = moved(g, l.weight.accum);
+                let f = moved(l.weight.accum, fracs[2]);
                 wanted.push((TensorRole::MomentumWeight, f, geo.weights));
             }
         }
@@ -285,7 +290,7 @@ fn tensors_for(desc: &ModelDesc, kind: BlobKind, g: &mut Genome<'_>) -> Vec<Owne
                 wanted.push((TensorRole::MasterBias, m, geo.biases));
             }
             if momentum {
-                let f = moved(g, l.bias.accum);
+                let f = moved(l.bias.accum, fracs[3]);
                 wanted.push((TensorRole::MomentumBias, f, geo.biases));
             }
         }
@@ -339,7 +344,7 @@ fn random_body(genome: &[u8]) -> OwnedBody {
             window: std::array::from_fn(|_| std::array::from_fn(|_| u32::from(g.byte()))),
         }
     });
-    let tensors = tensors_for(&desc, kind, &mut g);
+    let tensors = tensors_for(&desc, kind, state.as_ref(), &mut g);
     OwnedBody {
         kind,
         desc,
@@ -526,7 +531,15 @@ fn reference(kind: BlobKind) -> OwnedBody {
             steps: 40,
             updates: 40,
             rng: [1, 2, 3, 4],
-            fracs: [[11, 13, 24, 24]; MAX_LAYERS],
+            // Layer 0's weight accumulator has moved to 22 fraction bits (dynamic fixed
+            // point); its momentum tensor carries that format.
+            fracs: std::array::from_fn(|k| {
+                if k == 0 {
+                    [11, 13, 22, 24]
+                } else {
+                    [11, 13, 24, 24]
+                }
+            }),
             window: [[0; 8]; MAX_LAYERS],
         }),
         tensors,
@@ -573,6 +586,19 @@ fn wrong_tensor_length_word_or_frac_is_tensor_shape() {
     let mut b = reference(BlobKind::Model);
     b.tensors[1].4.truncate(6);
     assert_eq!(decode_err(&b), shape);
+    // A valid format, but not the description's: the blob may not rescale a tensor.
+    let mut b = reference(BlobKind::Model);
+    b.tensors[1].2 = q(16, 11);
+    assert_eq!(decode_err(&b), shape);
+    // Momentum in another format than the state's accumulator format.
+    let mut b = reference(BlobKind::Checkpoint);
+    b.tensors[4].2 = q(32, 24);
+    assert_eq!(decode_err(&b), shape_of(0, TensorRole::MomentumWeight));
+    // A checkpoint carrying the weights of a layer that trains only its bias.
+    let mut b = reference(BlobKind::Checkpoint);
+    b.tensors
+        .push((2, TensorRole::Weight, q(8, 6), 8, vec![0; 8]));
+    assert_eq!(decode_err(&b), shape_of(2, TensorRole::Weight));
     // Element count and bytes agree with each other but not with the description.
     let mut b = reference(BlobKind::Model);
     b.tensors[1].3 = 3;

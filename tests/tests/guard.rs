@@ -185,6 +185,7 @@ impl Bench {
         let mut t = Trainer::new(&self.desc, &plan, &mut arena, &params).unwrap();
         t.restore(&checked).unwrap();
         let good = params_snapshot(&t);
+        let state_before = t.train_state();
         assert_eq!(
             good,
             blob_params(&checked, &self.desc),
@@ -224,7 +225,13 @@ impl Bench {
                 assert_eq!(
                     now, good,
                     "{case}: rejection restores the last good weights"
-                )
+                );
+                // And the rest of the trainer: generator, counters, fraction bits.
+                assert_eq!(
+                    t.train_state(),
+                    state_before,
+                    "{case}: rejection restores the training state"
+                );
             }
         }
         // The held-back loss under the weights the trainer holds now is the accepted

@@ -327,7 +327,7 @@ impl<'a> FloatSet<'a> {
 
 /// The calls into the core, each in a symbol of its own (see the [module docs](self)).
 pub(crate) mod engine {
-    use hone_core::blob::{self, ChannelScale};
+    use hone_core::blob::{self, ChannelScale, TrainState};
     use hone_core::float::{FloatParams, Twin};
     use hone_core::guard::{self, Evaluation, GuardConfig, Verdict};
     use hone_core::model::ModelDesc;
@@ -399,10 +399,22 @@ pub(crate) mod engine {
     /// Restores the last good model from its blob, decoded here (so the decoded form takes
     /// stack only during a rollback, and only once: it is borrowed from the result).
     #[inline(never)]
-    pub fn rollback(t: &mut Trainer<'_>, last_good: &[u8]) -> Result<(), Error> {
+    pub fn rollback(
+        t: &mut Trainer<'_>,
+        last_good: &[u8],
+        before: &TrainState,
+    ) -> Result<(), Error> {
         let decoded = blob::decode(last_good);
         match &decoded {
-            Ok(b) => t.restore(b),
+            Ok(b) => {
+                t.restore(b)?;
+                // The factory blob carries weights only: the training state of before the
+                // session comes back from the snapshot, as `guard::calibrate` does.
+                if b.kind() == blob::BlobKind::Model {
+                    t.set_train_state(before)?;
+                }
+                Ok(())
+            }
             Err(e) => Err(*e),
         }
     }
@@ -528,6 +540,7 @@ fn guarded<P: Platform, const ARENA: usize, const CHECKPOINT: usize>(
     let steps = u32::from(s.passes) * u32::from(set.count);
     let train_work = forward.saturating_add(backward).saturating_mul(steps);
 
+    let saved = trainer.train_state();
     let (before, t_before) = ctx.time(eval_work, || engine::evaluate(trainer, &s.holdout, fmt, io));
     let before = before.map_err(SessionError::Engine)?;
     let (trained, t_train) = ctx.time(train_work, || {
@@ -538,7 +551,7 @@ fn guarded<P: Platform, const ARENA: usize, const CHECKPOINT: usize>(
     let after = after.map_err(SessionError::Engine)?;
     let verdict = engine::judge(&before, &after, &s.guard);
     if verdict != Verdict::Accept {
-        engine::rollback(trainer, s.model_blob).map_err(SessionError::Engine)?;
+        engine::rollback(trainer, s.model_blob, &saved).map_err(SessionError::Engine)?;
     }
     let stack = memory::stack_usage_since_repaint();
     let run = GuardedRun {

@@ -503,11 +503,10 @@ impl<'a, R: Real> Twin<'a, R> {
             elems: g.output.size(),
             ..self.plan.grad_slot(k)
         };
-        let [w, b, xin, y, gy, gx, aw, ab] = carve(
+        let [w, xin, y, gy, gx, aw, ab] = carve(
             self.arena,
             [
                 s.weight,
-                s.bias,
                 in_slot,
                 s.kept,
                 gy_slot,
@@ -517,7 +516,6 @@ impl<'a, R: Real> Twin<'a, R> {
             ],
         );
         let w = pick(w, s.weight, f.weight);
-        let _ = pick(b, s.bias, f.bias);
         let xin: &[R] = if k == 0 { x } else { xin };
         backward(l.kind, &g, w, xin, y, gy, gx, aw, ab);
     }
@@ -849,5 +847,96 @@ pub fn backward<R: Real>(
                 };
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::model::{ParamFormats, Shape, TrainDesc, TrainMode};
+    use crate::num::{QFormat, QScalar, Word};
+
+    fn predict(
+        layers: &[LayerDesc],
+        params: &[(std::vec::Vec<f64>, std::vec::Vec<f64>)],
+        x: &[f64],
+    ) -> std::vec::Vec<f64> {
+        let desc = ModelDesc::new(
+            Shape::vector(x.len() as u16),
+            QFormat::Q7_8,
+            layers,
+            Loss::SquaredError,
+            TrainDesc::sgd(QScalar { raw: 1, frac: 8 }),
+        )
+        .unwrap();
+        let plan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8).unwrap();
+        let mut arena = std::vec![0f64; plan.ram_bytes as usize / 8];
+        let init: std::vec::Vec<FloatParams<'_, f64>> = params
+            .iter()
+            .map(|(w, b)| FloatParams { weight: w, bias: b })
+            .collect();
+        let mut twin = Twin::new(&desc, &plan, &mut arena, &init).unwrap();
+        twin.predict(x).unwrap().to_vec()
+    }
+
+    fn dense(units: u16, mode: TrainMode, out: Word) -> LayerDesc {
+        let p = ParamFormats::plain(QFormat::new_unchecked(Word::I16, 12), 24);
+        LayerDesc {
+            kind: LayerKind::Dense { units },
+            mode,
+            weight: p,
+            bias: p,
+            out: QFormat::new_unchecked(out, 4),
+            grad: QFormat::Q7_8,
+        }
+    }
+
+    #[test]
+    fn float_scratch_fits_layers_of_any_word() {
+        // A narrow-word layer with more values shares a scratch parity with a wide-word one:
+        // in a float plan every value is a float, so the larger count must decide the size.
+        let mixed = |a: Word, b: Word| {
+            std::vec![
+                dense(10, TrainMode::Frozen, a),
+                LayerDesc::simple(LayerKind::Relu, QFormat::new_unchecked(a, 4), QFormat::Q7_8),
+                dense(30, TrainMode::Frozen, b),
+                LayerDesc::simple(LayerKind::Relu, QFormat::new_unchecked(b, 4), QFormat::Q7_8),
+                dense(2, TrainMode::BiasOnly, Word::I16),
+            ]
+        };
+        let params = std::vec![
+            (std::vec![0.1; 40], std::vec![0.0; 10]),
+            (std::vec::Vec::new(), std::vec::Vec::new()),
+            (std::vec![0.05; 300], std::vec![0.0; 30]),
+            (std::vec::Vec::new(), std::vec::Vec::new()),
+            (std::vec![0.2; 60], std::vec![0.0; 2]),
+        ];
+        let x = [1.0, 2.0, 3.0, 4.0];
+        let wide = predict(&mixed(Word::I32, Word::I32), &params, &x);
+        let narrow = predict(&mixed(Word::I32, Word::I8), &params, &x);
+        // Formats do not matter to the float twin: both must compute the same network.
+        assert_eq!(wide, narrow);
+        // 0.1·(1+2+3+4) = 1 per hidden unit; 30 units of 0.05·10·1 = 0.5; 0.2·30·0.5 = 3.
+        assert!((wide[0] - 3.0).abs() < 1e-12, "{wide:?}");
+    }
+
+    #[test]
+    fn frozen_model_predicts() {
+        let layers = [
+            dense(3, TrainMode::Frozen, Word::I16),
+            LayerDesc::simple(LayerKind::Relu, QFormat::Q7_8, QFormat::Q7_8),
+        ];
+        let params = std::vec![
+            (
+                std::vec![1.0, 1.5, 2.0, 3.0, 4.0, 5.5],
+                std::vec![1.0, 3.0, 1.0]
+            ),
+            (std::vec::Vec::new(), std::vec::Vec::new())
+        ];
+        // Rows [1, 1.5], [2, 3], [4, 5.5] times [1, 1] plus the bias.
+        assert_eq!(
+            predict(&layers, &params, &[1.0, 1.0]),
+            std::vec![3.5, 8.0, 10.5]
+        );
     }
 }

@@ -1,8 +1,9 @@
 //! Element-wise activations: ReLU, leaky ReLU, hard tanh, clipped ReLU, sigmoid, tanh.
 //!
 //! Derivatives of the piecewise-linear activations are taken from the layer input, so they
-//! are exact: 1 strictly inside the linear part, 0 outside and at the corners (the convention
-//! the float twin follows too). Sigmoid and tanh take theirs from the output, `y(1 − y)` and
+//! are exact: for ReLU, hard tanh and clipped ReLU 1 strictly inside the linear part and 0
+//! outside and at the corners; for leaky ReLU 1 above zero and 2^-shift at and below it (the
+//! conventions the float twin follows too). Sigmoid and tanh take theirs from the output, `y(1 − y)` and
 //! `1 − y²`, which is why the plan keeps their outputs. Those derivatives are formed with
 //! [`DERIV_FRAC`] fraction bits (rounded to nearest, even on ties) before the product with
 //! the incoming gradient, so every intermediate stays inside 64 bits.

@@ -64,14 +64,14 @@ pub enum LayerKind {
     Relu,
     /// x for x > 0, x · 2^-shift otherwise.
     LeakyRelu {
-        /// Slope of the negative side as a right shift (3 gives 1/8).
+        /// Slope of the negative side as a right shift, 1 to 15 (3 gives 1/8).
         shift: u8,
     },
     /// Hard tanh: clamp(x, −1, 1).
     HardTanh,
     /// Clipped ReLU: clamp(x, 0, ceiling), for example ceiling 6.
     ClippedRelu {
-        /// Upper clamp, a whole number.
+        /// Upper clamp, a whole number of at least 1.
         ceiling: u8,
     },
     /// Logistic sigmoid by lookup table (see [`crate::approx::sigmoid`]).
@@ -515,9 +515,9 @@ pub const fn layer_geometry(
             })
         }
         LayerKind::LeakyRelu { shift } if shift == 0 || shift > 15 => {
-            Err(lf(index, LayerFault::ZeroSize))
+            Err(lf(index, LayerFault::Parameter))
         }
-        LayerKind::ClippedRelu { ceiling: 0 } => Err(lf(index, LayerFault::ZeroSize)),
+        LayerKind::ClippedRelu { ceiling: 0 } => Err(lf(index, LayerFault::Parameter)),
         _ => Ok(LayerGeometry {
             input,
             output: input,

@@ -50,10 +50,14 @@ macro_rules! fixed_edge {
             ///
             /// # Errors
             /// [`Error::FormatMismatch`] unless word and fraction bits match the target type
-            /// exactly (no silent rescaling at the edge).
+            /// exactly (no silent rescaling at the edge); [`Error::InvalidFormat`] if the raw
+            /// value lies outside the word's range.
             pub fn $to<Frac: $Le>(self) -> Result<$Fixed<Frac>, Error> {
                 if self.format.word != $word || self.format.frac as u32 != Frac::U32 {
                     return Err(Error::FormatMismatch);
+                }
+                if self.raw < $word.min_raw() || self.raw > $word.max_raw() {
+                    return Err(Error::InvalidFormat);
                 }
                 Ok($Fixed::<Frac>::from_bits(self.raw as $inner))
             }
@@ -78,6 +82,11 @@ mod tests {
         assert_eq!(q.to_f64(), 1.5);
         assert_eq!(q.to_fixed_i16::<U12>().unwrap(), f);
         assert_eq!(q.to_fixed_i8::<U7>(), Err(Error::FormatMismatch));
+        let wide = QValue {
+            format: QFormat::new(Word::I8, 7).unwrap(),
+            raw: 300,
+        };
+        assert_eq!(wide.to_fixed_i8::<U7>(), Err(Error::InvalidFormat));
         let g = FixedI8::<U7>::from_bits(-128);
         assert_eq!(QValue::try_from(g).unwrap().to_f64(), -1.0);
         assert_eq!(

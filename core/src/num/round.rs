@@ -11,9 +11,11 @@
 //!   defined by Gupta, Agrawal, Gopalakrishnan and Narayanan, "Deep Learning with Limited
 //!   Numerical Precision" (ICML 2015), eq. 3: `round(x) = ⌊x⌋ + 1` with probability
 //!   `(x − ⌊x⌋)/ε`, else `⌊x⌋`. Its expectation is exactly `x`. The random draw comes from the
-//!   core's seeded [`Rng`]: one draw for every rounding that drops fraction bits, whether the
-//!   dropped bits are zero or not, so the stream of draws does not depend on the data beyond
-//!   the formats. Host and device draw the same stream from the same seed.
+//!   core's seeded [`Rng`]: one draw for every shift that drops fraction bits, whether the
+//!   dropped bits are zero or not. A division by a number that is not a power of two (a batch
+//!   size, a softmax denominator) draws by rejection sampling, so how many draws it takes
+//!   depends on the generator and, for the softmax, on the data. Host and device run the same
+//!   code from the same seed and draw the same stream.
 //!
 //! Wide intermediate values are `i64`. Shifts are at most 62 because formats have at most
 //! [`MAX_FRAC`](super::format::MAX_FRAC) = 31 fraction bits and products add two of them.
@@ -188,7 +190,8 @@ pub fn requantize(
 /// Returns the raw value and whether it saturated. `den ≤ 1` is plain [`requantize`].
 ///
 /// Exact for every shift the engine produces (`from_frac − to.frac ≤ 31` with `den < 2^16`);
-/// beyond that the divisor is clamped to `i64::MAX`, where every quotient is below one step.
+/// beyond that the divisor is clamped to `i64::MAX`, which formats within `MAX_FRAC` never
+/// reach.
 pub fn requantize_div(
     v: i64,
     from_frac: u32,

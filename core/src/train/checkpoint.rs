@@ -51,8 +51,8 @@ impl Trainer<'_> {
                 (now.accum_bias, mark.accum_bias),
             ];
             for (i, (n, m)) in pairs.iter().enumerate() {
-                w[i] = n.values.wrapping_sub(m.values);
-                w[4 + i] = n.saturations.wrapping_sub(m.saturations);
+                w[i] = n.values.saturating_sub(m.values);
+                w[4 + i] = n.saturations.saturating_sub(m.saturations);
             }
         }
         TrainState {
@@ -68,8 +68,12 @@ impl Trainer<'_> {
     /// the tensors from the arena.
     ///
     /// # Errors
+    /// [`Error::InvalidTraining`] while samples of a batch are pending;
     /// [`BlobError::Scaling`] if `scaling` is too long.
     pub fn checkpoint_body(&self, scaling: &[ChannelScale]) -> Result<BlobBody<'_>, Error> {
+        if self.in_batch != 0 {
+            return Err(Error::InvalidTraining);
+        }
         let mut tensors: Vec<TensorBlob<'_>, { blob::MAX_TENSORS }> = Vec::new();
         for t in self.checkpoint_tensors() {
             tensors.push(t).map_err(|_| BlobError::TooManyTensors)?;
@@ -121,12 +125,19 @@ impl Trainer<'_> {
     /// Writes a checkpoint blob into `out`; returns its length.
     ///
     /// # Errors
-    /// [`BlobError::BufferTooSmall`]; [`BlobError::Scaling`] if `scaling` is too long.
+    /// [`Error::InvalidTraining`] while samples of a batch are pending ([`Trainer::flush`]
+    /// first: a checkpoint carries no gradient accumulators); [`BlobError::BufferTooSmall`];
+    /// [`BlobError::Scaling`] if `scaling` is too long.
     pub fn write_checkpoint(
         &self,
         scaling: &[ChannelScale],
         out: &mut [u8],
     ) -> Result<usize, Error> {
+        // A checkpoint carries no gradient accumulators: samples of a partial batch would be
+        // lost on restore, so refuse rather than write a checkpoint that does not resume.
+        if self.in_batch != 0 {
+            return Err(Error::InvalidTraining);
+        }
         // Streamed: no list of tensors is built, which keeps a device's stack small.
         let tensors = self.checkpoint_tensors();
         let count = tensors.clone().count();
@@ -173,9 +184,31 @@ impl Trainer<'_> {
             };
             self.copy_into(slot, &t)?;
         }
+        self.set_train_state(state)?;
+        self.clear_accumulators();
+        Ok(())
+    }
+
+    /// Puts back a training state (as [`Trainer::train_state`] gave it): steps, updates, the
+    /// generator, the current fraction bits, and the counts of the current dynamic fixed-point
+    /// interval. Statistics restart from those counts; the history before them is not kept.
+    ///
+    /// # Errors
+    /// [`BlobError::StateMismatch`] for the all-zero generator state or fraction bits above
+    /// [`crate::num::MAX_FRAC`]; nothing is changed then.
+    pub fn set_train_state(&mut self, state: &TrainState) -> Result<(), Error> {
+        let rng = Rng::from_state(state.rng).ok_or(BlobError::StateMismatch)?;
+        if state
+            .fracs
+            .iter()
+            .flatten()
+            .any(|&f| f > crate::num::MAX_FRAC)
+        {
+            return Err(BlobError::StateMismatch.into());
+        }
         self.steps = state.steps;
         self.updates = state.updates;
-        self.rng = Rng::from_state(state.rng).ok_or(BlobError::StateMismatch)?;
+        self.rng = rng;
         for (l, f) in self.live.iter_mut().zip(state.fracs.iter()) {
             *l = LiveFracs {
                 out: f[0],
@@ -184,8 +217,6 @@ impl Trainer<'_> {
                 accum_bias: f[3],
             };
         }
-        // Statistics restart from the checkpoint's dynamic-fixed-point window: the counts of
-        // the current interval carry over, the history before it does not.
         for ((st, mark), w) in self
             .stats
             .iter_mut()
@@ -208,7 +239,6 @@ impl Trainer<'_> {
             *st = s;
             *mark = super::LayerStats::default();
         }
-        self.clear_accumulators();
         Ok(())
     }
 

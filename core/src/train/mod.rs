@@ -371,7 +371,9 @@ impl<'a> Trainer<'a> {
     ///
     /// # Errors
     /// [`Error::InputLength`], [`Error::TargetLength`], [`Error::TargetKind`] or
-    /// [`Error::LabelOutOfRange`] for a sample that does not fit the model.
+    /// [`Error::LabelOutOfRange`] for a sample that does not fit the model;
+    /// [`Error::InvalidFormat`] for an input or target whose format has more than
+    /// [`crate::num::MAX_FRAC`] fraction bits or does not match its storage word.
     pub fn step(&mut self, x: Tensor<'_>, target: Target<'_>) -> Result<StepOutcome, Error> {
         self.check_sample(x, target)?;
         let n = self.desc.layers.len();
@@ -476,7 +478,7 @@ impl<'a> Trainer<'a> {
     /// of the generator.
     ///
     /// # Errors
-    /// [`Error::InputLength`].
+    /// [`Error::InputLength`] or [`Error::InvalidFormat`].
     pub fn predict(&mut self, x: Tensor<'_>) -> Result<Tensor<'_>, Error> {
         self.check_input(x)?;
         let mut rng = self.rng;
@@ -491,6 +493,10 @@ impl<'a> Trainer<'a> {
     }
 
     fn check_input(&self, x: Tensor<'_>) -> Result<(), Error> {
+        // A sample's format comes from outside: its fraction bits bound every shift below.
+        if !x.fmt.is_valid() || x.raw.word() != x.fmt.word {
+            return Err(Error::InvalidFormat);
+        }
         let expected = self.desc.input.size();
         if x.raw.len() != expected as usize {
             return Err(Error::InputLength {
@@ -506,6 +512,9 @@ impl<'a> Trainer<'a> {
         let outputs = self.plan.shapes.output.size();
         match (self.desc.loss, target) {
             (Loss::SquaredError, Target::Values(t)) => {
+                if !t.fmt.is_valid() || t.raw.word() != t.fmt.word {
+                    return Err(Error::InvalidFormat);
+                }
                 if t.raw.len() != outputs as usize {
                     return Err(Error::TargetLength {
                         expected: outputs,
@@ -836,26 +845,35 @@ impl<'a> Trainer<'a> {
             let new = (live.accum_weight, live.accum_bias);
             // Momentum lives in the accumulator format: rescale it with the accumulator.
             let [vw, vb] = carve(self.arena, [s.momentum_weight, s.momentum_bias]);
-            for (buf, slot, word, from, to) in [
+            let mut sats = [0u32; 2];
+            for (j, (buf, slot, word, from, to)) in [
                 (vw, s.momentum_weight, l.weight.accum, old.0, new.0),
                 (vb, s.momentum_bias, l.bias.accum, old.1, new.1),
-            ] {
+            ]
+            .into_iter()
+            .enumerate()
+            {
                 if from == to || !slot.is_some() {
                     continue;
                 }
                 let mut m = view_mut(buf, fmt_frac(word, to), slot.elems);
                 for i in 0..slot.elems as usize {
-                    let (v, _) = rescale(
+                    let (v, s1) = rescale(
                         m.raw.at(i) as i64,
                         from as u32,
                         to as u32,
                         self.desc.train.rounding.updates,
                         &mut self.rng,
                     );
-                    let (v, _) = word.word.saturate(v);
+                    let (v, s2) = word.word.saturate(v);
                     m.raw.put(i, v);
+                    sats[j] += (s1 || s2) as u32;
                 }
             }
+            // Momentum clipped by a finer format is counted with its accumulator.
+            let st = &mut self.stats[k];
+            st.accum_weight.saturations = st.accum_weight.saturations.saturating_add(sats[0]);
+            st.accum_bias.saturations = st.accum_bias.saturations.saturating_add(sats[1]);
         }
         self.marks = self.stats;
     }
@@ -924,5 +942,102 @@ fn param_view<'x>(words: &'x mut [u32], slot: Slot, fmt: QFormat, init: Raw<'x>)
         view_mut_ro(words, fmt, slot.elems)
     } else {
         Tensor { raw: init, fmt }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::model::{LayerKind, ParamFormats, Shape, TrainDesc, TrainMode};
+    use crate::num::{QScalar, Word};
+
+    #[test]
+    fn outside_formats_are_checked_not_trusted() {
+        let act = QFormat::new_unchecked(Word::I16, 8);
+        let p = ParamFormats::plain(QFormat::new_unchecked(Word::I16, 12), 24);
+        let layers = [
+            LayerDesc::simple(LayerKind::ClippedRelu { ceiling: 6 }, act, act),
+            LayerDesc {
+                kind: LayerKind::Dense { units: 1 },
+                mode: TrainMode::Full,
+                weight: p,
+                bias: p,
+                out: act,
+                grad: act,
+            },
+        ];
+        let mut t = TrainDesc::sgd(QScalar { raw: 1, frac: 8 });
+        t.batch = 2;
+        let desc = ModelDesc::new(Shape::vector(2), act, &layers, Loss::SquaredError, t).unwrap();
+        let plan = Plan::of(&desc).unwrap();
+        let mut arena = std::vec![0u32; plan.ram_words()];
+        let (w, b) = ([100i16, 200], [0i16]);
+        let init = [
+            LayerParams::NONE,
+            LayerParams {
+                weight: Raw::I16(&w),
+                bias: Raw::I16(&b),
+            },
+        ];
+        let mut tr = Trainer::new(&desc, &plan, &mut arena, &init).unwrap();
+        let x = [256i16, 512];
+        let y = [100i16];
+        let target = Target::Values(Tensor {
+            raw: Raw::I16(&y),
+            fmt: act,
+        });
+        // 64 fraction bits would shift past 63; a word that is not the storage's is a lie.
+        for bad in [
+            QFormat {
+                word: Word::I16,
+                frac: 64,
+            },
+            QFormat {
+                word: Word::I8,
+                frac: 4,
+            },
+        ] {
+            assert_eq!(
+                tr.step(
+                    Tensor {
+                        raw: Raw::I16(&x),
+                        fmt: bad
+                    },
+                    target
+                )
+                .err(),
+                Some(Error::InvalidFormat)
+            );
+            assert_eq!(
+                tr.step(
+                    Tensor {
+                        raw: Raw::I16(&x),
+                        fmt: act
+                    },
+                    Target::Values(Tensor {
+                        raw: Raw::I16(&y),
+                        fmt: bad
+                    })
+                )
+                .err(),
+                Some(Error::InvalidFormat)
+            );
+        }
+        // One sample of a batch of two is pending: no checkpoint until it is flushed.
+        tr.step(
+            Tensor {
+                raw: Raw::I16(&x),
+                fmt: act,
+            },
+            target,
+        )
+        .unwrap();
+        let mut buf = [0u8; 1024];
+        assert_eq!(
+            tr.write_checkpoint(&[], &mut buf).err(),
+            Some(Error::InvalidTraining)
+        );
+        assert!(tr.flush());
+        assert!(tr.write_checkpoint(&[], &mut buf).is_ok());
     }
 }

@@ -4,7 +4,8 @@
 //! update target (the master copy if there is one, else the value):
 //!
 //! 1. `g = acc / n`, rounded to `A` (exact when `n` is 1);
-//! 2. `g = clamp(g, −clip, clip)` when clipping is on;
+//! 2. `g = clamp(g, −clip, clip)` when clipping is on (a bound finer than one step of `A`
+//!    counts as one step);
 //! 3. `g = g + λ·w`, the decay term rounded to `A`, when weight decay is on;
 //! 4. `v = μ·v + g`, the product rounded to `A`, saturated to `A`'s word, when momentum is on;
 //!    the update then uses `v` in place of `g`;
@@ -72,7 +73,9 @@ pub fn update(
             Rounding::NearestEven,
             rng,
         );
-        Some(c.min(acc_word.max_raw() as i64))
+        // A bound finer than one step of the accumulator would clip every gradient to zero;
+        // it becomes one step instead.
+        Some(c.clamp(1, acc_word.max_raw() as i64))
     };
     let UpdateTensors {
         value,
@@ -99,7 +102,11 @@ pub fn update(
                 cfg.mode,
                 rng,
             );
-            g = add_sat(g, d).0;
+            let (sum, sat) = add_sat(g, d);
+            g = sum;
+            if sat {
+                accum_tally.saturations = accum_tally.saturations.saturating_add(1);
+            }
         }
         if let Some(m) = momentum.as_deref_mut() {
             let prev = m.raw.at(i) as i64;
@@ -115,7 +122,11 @@ pub fn update(
             accum_tally.note(sat);
             g = v as i64;
         } else {
-            g = acc_word.saturate(g).0 as i64;
+            let (v, sat) = acc_word.saturate(g);
+            if sat {
+                accum_tally.saturations = accum_tally.saturations.saturating_add(1);
+            }
+            g = v as i64;
         }
         // |lr| < 2^31 and |g| ≤ 2^31, so the exact product fits in 63 bits.
         let exact = cfg.lr.raw as i64 * g;
@@ -129,8 +140,12 @@ pub fn update(
                 let (nw, sat) = m.fmt.word.saturate(sum);
                 m.raw.put(i, nw);
                 tally.note(sat || sat_delta || sat_sub);
-                let (v, _) = requantize(nw as i64, m.frac(), value.fmt, Rounding::NearestEven, rng);
+                let (v, sat_v) =
+                    requantize(nw as i64, m.frac(), value.fmt, Rounding::NearestEven, rng);
                 value.raw.put(i, v);
+                if sat_v {
+                    tally.saturations = tally.saturations.saturating_add(1);
+                }
             }
             None => {
                 let (nw, sat) = value.fmt.word.saturate(sum);
