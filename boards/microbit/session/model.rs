@@ -19,7 +19,7 @@ pub const LAYERS: [hone_core::model::LayerDesc; 3] = [
         kind: hone_core::model::LayerKind::Dense { units: 8 },
         mode: hone_core::model::TrainMode::Full,
         weight: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 15), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
-        bias: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 17), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
+        bias: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 18), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
         out: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 13),
         grad: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 14),
     },
@@ -34,7 +34,7 @@ pub const LAYERS: [hone_core::model::LayerDesc; 3] = [
     hone_core::model::LayerDesc {
         kind: hone_core::model::LayerKind::Dense { units: 1 },
         mode: hone_core::model::TrainMode::Full,
-        weight: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 16), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
+        weight: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 15), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
         bias: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 16), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
         out: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 15),
         grad: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 14),
@@ -47,16 +47,16 @@ pub const PLAN: hone_core::plan::Plan = match hone_core::plan::Plan::new(INPUT, 
 pub const ARENA_WORDS: usize = PLAN.ram_words();
 
 pub static W0: [i16; 16] = [
-    -20691, 8968, -22552, -9631, 11688, -150, -12966, -914, 20622, -9098, -18444, -5681, -20197, 9290, 1172, -12073,
+    -22064, 8889, -24672, -7181, 12729, -416, -14325, -533, 20868, -11009, -19753, -5203, -20139, 11313, 1022, -11558,
 ];
 pub static B0: [i16; 8] = [
-    5210, -5725, -41, -3245, -1026, -8480, 4030, -13787,
+    2194, -25853, 2916, -12126, 3133, -18263, 515, -25964,
 ];
 pub static W2: [i16; 8] = [
-    -1922, -3948, -7320, 5205, -22519, 10949, -20443, -786,
+    -1526, -2105, -4167, 2698, -13621, 5256, -12498, -166,
 ];
 pub static B2: [i16; 1] = [
-    17309,
+    17252,
 ];
 
 pub static PARAMS: [hone_core::train::LayerParams<'static>; 3] = [
@@ -65,18 +65,18 @@ pub static PARAMS: [hone_core::train::LayerParams<'static>; 3] = [
     hone_core::train::LayerParams { weight: hone_core::num::Raw::I16(&W2), bias: hone_core::num::Raw::I16(&B2) },
 ];
 pub static SCALING: [hone_core::blob::ChannelScale; 2] = [
-    hone_core::blob::ChannelScale { offset: 2113.206, gain: 0.002563117 },
-    hone_core::blob::ChannelScale { offset: 19.76926, gain: 0.11615283 },
+    hone_core::blob::ChannelScale { offset: 2100.9775, gain: 0.002562092 },
+    hone_core::blob::ChannelScale { offset: 19.707794, gain: 0.11523731 },
 ];
 pub static MODEL_BLOB: [u8; 195] = [
     72, 79, 78, 66, 1, 0, 0, 2, 1, 1, 12, 3, 0, 8, 3, 1, 15, 0, 2, 24,
-    1, 17, 0, 2, 24, 1, 13, 1, 14, 7, 0, 0, 7, 0, 2, 0, 0, 7, 0, 2,
-    0, 1, 14, 1, 14, 0, 1, 3, 1, 16, 0, 2, 24, 1, 16, 0, 2, 24, 1, 15,
+    1, 18, 0, 2, 24, 1, 13, 1, 14, 7, 0, 0, 7, 0, 2, 0, 0, 7, 0, 2,
+    0, 1, 14, 1, 14, 0, 1, 3, 1, 15, 0, 2, 24, 1, 16, 0, 2, 24, 1, 15,
     1, 14, 0, 8, 154, 179, 102, 24, 204, 153, 179, 14, 24, 0, 0, 0, 0, 0, 0, 0,
-    0, 1, 2, 76, 19, 4, 69, 248, 249, 39, 59, 114, 39, 158, 65, 137, 225, 237, 61, 0,
-    4, 0, 0, 1, 15, 16, 32, 45, 175, 8, 35, 232, 167, 97, 218, 168, 45, 106, 255, 90,
-    205, 110, 252, 142, 80, 118, 220, 244, 183, 207, 233, 27, 177, 74, 36, 148, 4, 215, 208, 0,
-    1, 1, 17, 8, 16, 90, 20, 163, 233, 215, 255, 83, 243, 254, 251, 224, 222, 190, 15, 37,
-    202, 2, 0, 1, 16, 8, 16, 126, 248, 148, 240, 104, 227, 85, 20, 9, 168, 197, 42, 37,
-    176, 238, 252, 2, 1, 1, 16, 1, 2, 157, 67, 138, 105, 74, 244,
+    0, 1, 2, 164, 79, 3, 69, 197, 232, 39, 59, 144, 169, 157, 65, 138, 1, 236, 61, 0,
+    4, 0, 0, 1, 15, 16, 32, 208, 169, 185, 34, 160, 159, 243, 227, 185, 49, 96, 254, 11,
+    200, 235, 253, 132, 81, 255, 212, 215, 178, 173, 235, 85, 177, 49, 44, 254, 3, 218, 210, 0,
+    1, 1, 18, 8, 16, 146, 8, 3, 155, 100, 11, 162, 208, 61, 12, 169, 184, 3, 2, 148,
+    154, 2, 0, 1, 15, 8, 16, 10, 250, 199, 247, 185, 239, 138, 10, 203, 202, 136, 20, 46,
+    207, 90, 255, 2, 1, 1, 16, 1, 2, 100, 67, 214, 86, 202, 147,
 ];

@@ -19,7 +19,7 @@ pub const LAYERS: [hone_core::model::LayerDesc; 3] = [
         kind: hone_core::model::LayerKind::Dense { units: 8 },
         mode: hone_core::model::TrainMode::BiasOnly,
         weight: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I8, 6), master: Some(hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 28)), accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
-        bias: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 17), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
+        bias: hone_core::model::ParamFormats { value: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 18), master: None, accum: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I32, 24) },
         out: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 13),
         grad: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 14),
     },
@@ -47,16 +47,16 @@ pub const PLAN: hone_core::plan::Plan = match hone_core::plan::Plan::new(INPUT, 
 pub const ARENA_WORDS: usize = PLAN.ram_words();
 
 pub static W0: [i8; 16] = [
-    -40, 18, -44, -19, 23, 0, -25, -2, 40, -18, -36, -11, -39, 18, 2, -24,
+    -43, 17, -48, -14, 25, -1, -28, -1, 41, -22, -39, -10, -39, 22, 2, -23,
 ];
 pub static B0: [i16; 8] = [
-    5210, -5725, -41, -3245, -1026, -8480, 4030, -13787,
+    2194, -25853, 2916, -12126, 3133, -18263, 515, -25964,
 ];
 pub static W2: [i8; 8] = [
-    -2, -4, -7, 5, -22, 11, -20, -1,
+    -3, -4, -8, 5, -27, 10, -24, 0,
 ];
 pub static B2: [i16; 1] = [
-    17309,
+    17252,
 ];
 
 pub static PARAMS: [hone_core::train::LayerParams<'static>; 3] = [
@@ -65,17 +65,17 @@ pub static PARAMS: [hone_core::train::LayerParams<'static>; 3] = [
     hone_core::train::LayerParams { weight: hone_core::num::Raw::I8(&W2), bias: hone_core::num::Raw::I16(&B2) },
 ];
 pub static SCALING: [hone_core::blob::ChannelScale; 2] = [
-    hone_core::blob::ChannelScale { offset: 2113.206, gain: 0.002563117 },
-    hone_core::blob::ChannelScale { offset: 19.76926, gain: 0.11615283 },
+    hone_core::blob::ChannelScale { offset: 2100.9775, gain: 0.002562092 },
+    hone_core::blob::ChannelScale { offset: 19.707794, gain: 0.11523731 },
 ];
 pub static MODEL_BLOB: [u8; 177] = [
     72, 79, 78, 66, 1, 0, 0, 2, 1, 1, 12, 3, 0, 8, 1, 0, 6, 1, 2, 28,
-    2, 24, 1, 17, 0, 2, 24, 1, 13, 1, 14, 7, 0, 0, 7, 0, 2, 0, 0, 7,
+    2, 24, 1, 18, 0, 2, 24, 1, 13, 1, 14, 7, 0, 0, 7, 0, 2, 0, 0, 7,
     0, 2, 0, 1, 14, 1, 14, 0, 1, 3, 0, 6, 1, 2, 28, 2, 24, 1, 16, 0,
     2, 24, 1, 15, 1, 14, 0, 8, 154, 179, 102, 24, 204, 153, 179, 14, 24, 0, 0, 0,
-    0, 0, 0, 2, 1, 100, 50, 1, 2, 76, 19, 4, 69, 248, 249, 39, 59, 114, 39, 158,
-    65, 137, 225, 237, 61, 0, 4, 0, 0, 0, 6, 16, 16, 216, 18, 212, 237, 23, 0, 231,
-    254, 40, 238, 220, 245, 217, 18, 2, 232, 0, 1, 1, 17, 8, 16, 90, 20, 163, 233, 215,
-    255, 83, 243, 254, 251, 224, 222, 190, 15, 37, 202, 2, 0, 0, 6, 8, 8, 254, 252, 249,
-    5, 234, 11, 236, 255, 2, 1, 1, 16, 1, 2, 157, 67, 224, 85, 54, 83,
+    0, 0, 0, 2, 1, 100, 50, 1, 2, 164, 79, 3, 69, 197, 232, 39, 59, 144, 169, 157,
+    65, 138, 1, 236, 61, 0, 4, 0, 0, 0, 6, 16, 16, 213, 17, 208, 242, 25, 255, 228,
+    255, 41, 234, 217, 246, 217, 22, 2, 233, 0, 1, 1, 18, 8, 16, 146, 8, 3, 155, 100,
+    11, 162, 208, 61, 12, 169, 184, 3, 2, 148, 154, 2, 0, 0, 6, 8, 8, 253, 252, 248,
+    5, 229, 10, 232, 0, 2, 1, 1, 16, 1, 2, 100, 67, 65, 119, 173, 247,
 ];
