@@ -1088,7 +1088,9 @@ impl Config {
     }
 
     /// The model description, with the fraction bits of every `auto` format chosen by
-    /// `resolve` (called once per entry of [`Config::auto_formats`], in that order).
+    /// `resolve`, called once per entry of [`Config::auto_formats`]. Within a layer the
+    /// activations are resolved first, then weights and bias, so `resolve` must look at the
+    /// [`AutoFormat`] it is given rather than count calls.
     ///
     /// # Errors
     /// [`ConfigError::Invalid`] if `resolve` returns more than 31 fraction bits, if a chosen

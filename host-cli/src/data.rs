@@ -133,7 +133,8 @@ impl Targets {
         }
     }
 
-    fn select(&self, rows: &[usize]) -> Targets {
+    /// The targets of the given rows, in that order.
+    pub fn select(&self, rows: &[usize]) -> Targets {
         match self {
             Targets::Values { names, y } => Targets::Values {
                 names: names.clone(),
@@ -1136,10 +1137,15 @@ fn fit(data: &Dataset, channels: usize) -> Scaling {
 /// stored for the device. With `n` scales and `F` features, each channel is a contiguous run of
 /// `F / n` columns (channel-major), as in [`Scaling::fit_per_channel`].
 ///
+/// No scales leave the data as they are.
+///
 /// # Errors
-/// [`DataError::Request`] if there are no scales or their number does not divide the feature
-/// count.
+/// [`DataError::Request`] if the number of scales does not divide the feature count.
 pub fn apply(scales: &[ChannelScale], data: &mut Dataset) -> Result<(), DataError> {
+    // No scales: the inputs are used as they are (`standardize = false`).
+    if scales.is_empty() {
+        return Ok(());
+    }
     check_channels(data, scales.len())?;
     let len = data.features.len() / scales.len();
     for row in &mut data.x {
@@ -1431,7 +1437,14 @@ mod tests {
         assert!(Scaling::fit_per_channel(&d, 0).is_err());
         let mut d2 = d.clone();
         assert!(apply(&s.scales[..1], &mut d2).is_ok());
-        assert!(apply(&[], &mut d2).is_err());
+        assert!(apply(&s.scales[..1], &mut d2.clone()).is_ok());
+        // Three scales do not divide four features.
+        let three = [s.scales[0], s.scales[0], s.scales[0]];
+        assert!(apply(&three, &mut d2.clone()).is_err());
+        // No scales (`standardize = false`) leave the data unchanged.
+        let before = d2.x.clone();
+        assert!(apply(&[], &mut d2).is_ok());
+        assert_eq!(d2.x, before);
     }
 
     fn classes(labels: &[u16], names: usize) -> Dataset {

@@ -9,6 +9,21 @@ use serde::Serialize;
 
 use crate::sim::{DriftRun, EpochDrift, StepDrift, TensorTotals};
 
+/// `|fixed − float|` in % of `|float|`: 0 when both are 0, infinite when only the float is 0,
+/// NaN when either is not a finite number (a diverged run), so that a check against a limit
+/// fails rather than passes.
+pub fn gap_pct(fixed: f64, float: f64) -> f64 {
+    if !fixed.is_finite() || !float.is_finite() {
+        return f64::NAN;
+    }
+    let d = (fixed - float).abs();
+    if d == 0.0 {
+        0.0
+    } else {
+        100.0 * d / float.abs()
+    }
+}
+
 /// Limits the verdict checks. Each applies to the end of the run.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize)]
 pub struct Thresholds {
@@ -91,17 +106,11 @@ impl DriftReport {
         t: Thresholds,
     ) -> DriftReport {
         let last = run.epochs.last().copied().unwrap_or_default();
-        let loss_gap = if last.float_eval_loss.abs() > 0.0 {
-            100.0 * (last.fixed_eval_loss - last.float_eval_loss).abs() / last.float_eval_loss.abs()
-        } else {
-            0.0
-        };
+        let loss_gap = gap_pct(last.fixed_eval_loss, last.float_eval_loss);
         let metric_gap = if classification {
             (last.fixed_metric - last.float_metric).abs()
-        } else if last.float_metric.abs() > 0.0 {
-            100.0 * (last.fixed_metric - last.float_metric).abs() / last.float_metric.abs()
         } else {
-            0.0
+            gap_pct(last.fixed_metric, last.float_metric)
         };
         let min_sqnr = run
             .epochs

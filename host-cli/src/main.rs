@@ -6,10 +6,10 @@
 use std::path::{Path, PathBuf};
 use std::process::ExitCode;
 
-use anyhow::{anyhow, Context, Result};
+use anyhow::{anyhow, bail, Context, Result};
 use clap::{Args, Parser, Subcommand};
 use hone_core::model::TrainMode;
-use hone_core::num::{Rounding, Word};
+use hone_core::num::{QScalar, Rounding, Word};
 use hone_host::config::Config;
 use hone_host::drift::{DriftReport, Thresholds};
 use hone_host::model::FloatModel;
@@ -126,8 +126,13 @@ struct DriftArgs {
     /// Samples to evaluate on after each epoch.
     #[arg(long)]
     eval: PathBuf,
-    /// Passes over the training samples (default: the config's epochs).
+    /// Data the quantizer takes activation ranges from, as `hone quantize --data` does
+    /// (default: the training samples); give the same file to simulate exactly the exported
+    /// model.
     #[arg(long)]
+    calib: Option<PathBuf>,
+    /// Passes over the training samples (default: the config's epochs).
+    #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
     epochs: Option<u32>,
     /// Record every step, not only every epoch.
     #[arg(long)]
@@ -199,8 +204,13 @@ struct PlanArgs {
     /// Evaluation samples for the drift cost.
     #[arg(long, requires_all = ["model", "train"])]
     eval: Option<PathBuf>,
+    /// Data the quantizer takes activation ranges from, as `hone quantize --data` does
+    /// (default: --train); give the same file to simulate exactly the exported
+    /// model.
+    #[arg(long)]
+    calib: Option<PathBuf>,
     /// Passes over the calibration samples for each drift cost.
-    #[arg(long, default_value_t = 10)]
+    #[arg(long, default_value_t = 10, value_parser = clap::value_parser!(u32).range(1..))]
     epochs: u32,
     /// Print JSON.
     #[arg(long)]
@@ -217,6 +227,11 @@ struct SweepArgs {
     /// Samples to evaluate on.
     #[arg(long)]
     eval: PathBuf,
+    /// Data the quantizer takes activation ranges from, as `hone quantize --data` does
+    /// (default: the training samples); give the same file to simulate exactly the exported
+    /// model.
+    #[arg(long)]
+    calib: Option<PathBuf>,
     /// Weight words to try, in bits: 8, 16, 32.
     #[arg(long, value_delimiter = ',')]
     weights: Vec<u32>,
@@ -236,7 +251,7 @@ struct SweepArgs {
     #[arg(long, value_delimiter = ',')]
     mode: Vec<String>,
     /// Passes over the training samples (default: the config's epochs).
-    #[arg(long)]
+    #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
     epochs: Option<u32>,
     /// Worker threads (default: every core).
     #[arg(long)]
@@ -451,25 +466,38 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
         } => {
             let base = load_base(&model, &data)?;
             let q = &base.quant;
-            if let Some(p) = &blob {
-                let bytes = hone_host::export::model_blob(&q.desc, &q.params, &base.float.scaling)
-                    .map_err(|e| anyhow!("{e}"))?;
-                hone_host::fsutil::write_atomic(p, &bytes)
+            // Render every output before writing any, so a failure leaves no partial set.
+            let blob_bytes = match &blob {
+                Some(_) => Some(
+                    hone_host::export::model_blob(&q.desc, &q.params, &base.float.scaling)
+                        .map_err(|e| anyhow!("{e}"))?,
+                ),
+                None => None,
+            };
+            let rust_src = match &rust {
+                Some(_) => {
+                    let origin = format!(
+                        "{} quantized with {}",
+                        model.model.display(),
+                        model.cfg.config.display()
+                    );
+                    Some(
+                        hone_host::export::rust_source(
+                            &q.desc,
+                            &q.params,
+                            &base.float.scaling,
+                            &origin,
+                        )
+                        .map_err(|e| anyhow!("{e}"))?,
+                    )
+                }
+                None => None,
+            };
+            if let (Some(p), Some(bytes)) = (&blob, &blob_bytes) {
+                hone_host::fsutil::write_atomic(p, bytes)
                     .with_context(|| p.display().to_string())?;
             }
-            if let Some(p) = &rust {
-                let origin = format!(
-                    "{} quantized with {}",
-                    model.model.display(),
-                    model.cfg.config.display()
-                );
-                let src = hone_host::export::rust_source(
-                    &q.desc,
-                    &q.params,
-                    &base.float.scaling,
-                    &origin,
-                )
-                .map_err(|e| anyhow!("{e}"))?;
+            if let (Some(p), Some(src)) = (&rust, &rust_src) {
                 hone_host::fsutil::write_atomic(p, src.as_bytes())
                     .with_context(|| p.display().to_string())?;
             }
@@ -542,9 +570,9 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
 }
 
 fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
-    let base = load_base(&a.model, &a.train)?;
-    let train = base.prepare(&a.train).map_err(|e| anyhow!("{e}"))?;
-    let eval = base.prepare(&a.eval).map_err(|e| anyhow!("{e}"))?;
+    let base = load_base(&a.model, a.calib.as_ref().unwrap_or(&a.train))?;
+    let train = prepare(&base, &a.train)?;
+    let eval = prepare(&base, &a.eval)?;
     let epochs = a.epochs.unwrap_or(base.config.epochs());
     let opts = RunOptions {
         epochs,
@@ -623,7 +651,7 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
     use hone_host::memplan::{plan_report, render_table, AdviceOptions, Budget, Reserve};
     let config = load_config(&a.cfg)?;
     let base = match (&a.model, &a.train) {
-        (Some(model), Some(train)) => Some(load_base(&ModelArgs { cfg: ConfigArg { config: a.cfg.config.clone() }, model: model.clone() }, train)?),
+        (Some(model), Some(train)) => Some(load_base(&ModelArgs { cfg: ConfigArg { config: a.cfg.config.clone() }, model: model.clone() }, a.calib.as_ref().unwrap_or(train))?),
         (Some(_), None) => return Err(anyhow!("--model without --train and --eval: give calibration and evaluation samples, or leave out --model")),
         _ => None,
     };
@@ -636,10 +664,7 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
             .map_err(|e| anyhow!("{e}"))?,
     };
     let data = match (&base, &a.train, &a.eval) {
-        (Some(b), Some(t), Some(e)) => Some((
-            b.prepare(t).map_err(|e| anyhow!("{e}"))?,
-            b.prepare(e).map_err(|e| anyhow!("{e}"))?,
-        )),
+        (Some(b), Some(t), Some(e)) => Some((prepare(b, t)?, prepare(b, e)?)),
         _ => None,
     };
     let drift_cost = |d: &hone_core::model::ModelDesc| -> Option<hone_host::memplan::DriftCost> {
@@ -663,8 +688,7 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
         )
         .ok()?;
         let last = run.epochs.last()?;
-        let gap = 100.0 * (last.fixed_eval_loss - last.float_eval_loss).abs()
-            / last.float_eval_loss.abs().max(f64::MIN_POSITIVE);
+        let gap = hone_host::drift::gap_pct(last.fixed_eval_loss, last.float_eval_loss);
         Some(hone_host::memplan::DriftCost {
             what: format!("eval loss gap after {} calibration passes", a.epochs),
             value: gap,
@@ -717,6 +741,29 @@ fn parse_rounding(s: &str) -> Result<Rounding> {
     }
 }
 
+/// Loads and quantizes `csv` for the model; warns on stderr about values the model's
+/// formats cannot hold.
+fn prepare(base: &Base, csv: &Path) -> Result<hone_host::sim::Prepared> {
+    let p = base.prepare(csv).map_err(|e| anyhow!("{e}"))?;
+    if p.input_saturations > 0 {
+        eprintln!(
+            "warning: {}: {} input values saturated the model's input format {}",
+            csv.display(),
+            p.input_saturations,
+            base.quant.desc.input_format
+        );
+    }
+    if p.target_saturations > 0 {
+        eprintln!(
+            "warning: {}: {} target values saturated the output format; the fixed-point model \
+             cannot reach them",
+            csv.display(),
+            p.target_saturations
+        );
+    }
+    Ok(p)
+}
+
 fn parse_mode(s: &str) -> Result<TrainMode> {
     match s {
         "full" => Ok(TrainMode::Full),
@@ -728,6 +775,23 @@ fn parse_mode(s: &str) -> Result<TrainMode> {
     }
 }
 
+/// A sweep learning rate must be positive and survive the description's learning-rate
+/// format without saturating or rounding to zero.
+fn check_sweep_lr(lr: f64, frac: u8) -> Result<f64> {
+    if !lr.is_finite() || lr <= 0.0 {
+        bail!("--lr: {lr} is not a positive learning rate");
+    }
+    match QScalar::from_f64(lr, frac) {
+        Ok(q) if q.raw != 0 => Ok(lr),
+        Ok(_) => bail!(
+            "--lr: {lr} rounds to zero with {frac} fraction bits (the model's train.lr format); \
+             the smallest step is {}",
+            (-(frac as f64)).exp2()
+        ),
+        Err(_) => bail!("--lr: {lr} does not fit an i32 with {frac} fraction bits"),
+    }
+}
+
 fn parse_word(bits: u32, what: &str) -> Result<Word> {
     Word::from_bits(bits)
         .ok_or_else(|| anyhow!("--{what}: {bits} bits is not a word size; use 8, 16 or 32"))
@@ -735,9 +799,9 @@ fn parse_word(bits: u32, what: &str) -> Result<Word> {
 
 fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
     use hone_host::sweep::{plot, run, table, Grid};
-    let base = load_base(&a.model, &a.train)?;
-    let train = base.prepare(&a.train).map_err(|e| anyhow!("{e}"))?;
-    let eval = base.prepare(&a.eval).map_err(|e| anyhow!("{e}"))?;
+    let base = load_base(&a.model, a.calib.as_ref().unwrap_or(&a.train))?;
+    let train = prepare(&base, &a.train)?;
+    let eval = prepare(&base, &a.eval)?;
     let grid = Grid {
         weight_words: a
             .weights
@@ -755,7 +819,11 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
             .iter()
             .map(|s| parse_rounding(s))
             .collect::<Result<_>>()?,
-        learning_rates: a.lr.clone(),
+        learning_rates: a
+            .lr
+            .iter()
+            .map(|&lr| check_sweep_lr(lr, base.quant.desc.train.lr.frac))
+            .collect::<Result<_>>()?,
         modes: a
             .mode
             .iter()

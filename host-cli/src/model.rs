@@ -14,7 +14,7 @@
 //! | `scaling` | per input channel `{ "offset": o, "gain": g }`: `x = (raw − o)·g` before the model (empty: none) |
 //! | `features` | input column names in input order |
 //! | `outputs` | target column names (regression) or class names in output order (classification) |
-//! | `history` | per epoch of the training that made it: `{ "epoch", "loss", "metric" }` |
+//! | `history` | per epoch of the training that made it: `{ "epoch", "loss", "metric", "eval_loss", "eval_metric" }` (the last two on the rows held out, or null) |
 //!
 //! Numbers are written with Rust's shortest round-trip formatting, so reading a file back gives
 //! the very same `f64` weights.
@@ -52,6 +52,12 @@ pub struct EpochRecord {
     pub loss: f64,
     /// Accuracy in % (classification) or mean absolute error (regression) on the training data.
     pub metric: f64,
+    /// Mean loss on the rows held out of training (`data.holdout`), if any.
+    #[serde(default)]
+    pub eval_loss: Option<f64>,
+    /// The metric on the held-out rows, if any.
+    #[serde(default)]
+    pub eval_metric: Option<f64>,
 }
 
 /// A trained float model. See the [module docs](self).

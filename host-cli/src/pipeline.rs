@@ -9,6 +9,61 @@ use crate::model::FloatModel;
 use crate::quant::{quantize, Quantized};
 use crate::sim::Prepared;
 
+/// Checks that a float model has the architecture the config describes: input, loss, the
+/// layer kinds in order, and (for regression) the target names.
+///
+/// # Errors
+/// A message naming the config and the first difference.
+pub fn check_model_matches(config: &Config, float: &FloatModel) -> Result<(), String> {
+    let cfg = config.source().display();
+    let differs = |what: String| {
+        format!("{cfg}: the float model {what}; train a model with this config, or use the config it was trained with")
+    };
+    if float.input != config.input() {
+        return Err(differs(format!(
+            "takes {} × {} inputs, the config {} × {}",
+            float.input.channels,
+            float.input.len,
+            config.input().channels,
+            config.input().len
+        )));
+    }
+    if float.loss != config.loss() {
+        return Err(differs(format!(
+            "was trained with {:?}, the config says {:?}",
+            float.loss,
+            config.loss()
+        )));
+    }
+    let layers = config.layers();
+    if float.layers.len() != layers.len() {
+        return Err(differs(format!(
+            "has {} layers, the config {}",
+            float.layers.len(),
+            layers.len()
+        )));
+    }
+    for (k, (f, c)) in float.layers.iter().zip(layers).enumerate() {
+        if f.kind != c.kind {
+            return Err(differs(format!(
+                "has {} as layer {k}, the config {}",
+                crate::config::kind_name(f.kind),
+                crate::config::kind_name(c.kind)
+            )));
+        }
+    }
+    if config.data().spec.task == crate::data::Task::Regression
+        && float.outputs != config.data().spec.target
+    {
+        return Err(differs(format!(
+            "predicts {:?}, the config's targets are {:?}",
+            float.outputs,
+            config.data().spec.target
+        )));
+    }
+    Ok(())
+}
+
 /// A float base model with its quantized form, as one config describes them.
 #[derive(Clone, Debug)]
 pub struct Base {
@@ -56,6 +111,7 @@ impl Base {
             .map_err(|e| e.to_string())?;
         data.check_features(&float.features)
             .map_err(|e| e.to_string())?;
+        check_model_matches(&config, &float)?;
         let quant = quantize(&config, &float, &data)?;
         Ok(Base {
             config,

@@ -103,6 +103,8 @@ pub struct QuantReport {
     pub fixed_metric: f64,
     /// Input values that saturated when quantized.
     pub input_saturations: usize,
+    /// Regression targets that saturated the output format when quantized.
+    pub target_saturations: usize,
     /// Samples evaluated.
     pub samples: usize,
 }
@@ -271,6 +273,7 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         fixed_loss,
         fixed_metric,
         input_saturations: prepared.input_saturations,
+        target_saturations: prepared.target_saturations,
         samples: prepared.len(),
     };
     Ok(Quantized {
@@ -340,6 +343,12 @@ pub fn render(r: &QuantReport) -> String {
         s.push_str(&format!(
             "  {} input values saturated the input format\n",
             r.input_saturations
+        ));
+    }
+    if r.target_saturations > 0 {
+        s.push_str(&format!(
+            "  {} target values saturated the output format: the quantized model cannot reach them\n",
+            r.target_saturations
         ));
     }
     s

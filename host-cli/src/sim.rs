@@ -160,6 +160,9 @@ pub struct Prepared {
     pub target: PreparedTargets,
     /// Input values that saturated when quantized.
     pub input_saturations: usize,
+    /// Regression targets that saturated the last layer's output format when quantized: the
+    /// fixed-point model cannot reach them, so its loss cannot fall to the float model's.
+    pub target_saturations: usize,
 }
 
 /// Targets of [`Prepared`] samples.
@@ -193,13 +196,18 @@ impl Prepared {
             input_saturations += s;
             xq.push(q);
         }
+        let mut target_saturations = 0;
         let target = match (&data.target, desc.loss) {
             (Targets::Values { y, .. }, Loss::SquaredError) => {
                 let format = desc.layers.last().map(|l| l.out).unwrap_or(QFormat::Q0_7);
-                let yq = y
-                    .iter()
-                    .map(|t| OwnedRaw::quantize(t, format).map(|(q, _)| q))
-                    .collect::<Result<Vec<_>, _>>()?;
+                let mut yq = Vec::with_capacity(y.len());
+                for (i, t) in y.iter().enumerate() {
+                    let (q, s) = OwnedRaw::quantize(t, format).map_err(|e| {
+                        format!("{}: row {}: target: {e}", data.source.display(), i + 1)
+                    })?;
+                    target_saturations += s;
+                    yq.push(q);
+                }
                 PreparedTargets::Values {
                     y: y.clone(),
                     yq,
@@ -222,6 +230,7 @@ impl Prepared {
             xq,
             target,
             input_saturations,
+            target_saturations,
         })
     }
 
@@ -574,12 +583,16 @@ pub fn run_side_by_side(
 
     let (eq, ef, mq, mf) = evaluate_both(&mut fixed, &mut float, eval, in_fmt)?;
     let g0 = grad_sqnr(desc, &mut fixed, &mut float, train, opts.probe)?;
+    // Before any step the weights differ by the quantization error alone.
+    let (rms0, max0) = divergence(desc, &plan, &fixed, &float);
     epochs.push(EpochDrift {
         epoch: 0,
         fixed_eval_loss: eq,
         float_eval_loss: ef,
         fixed_metric: mq,
         float_metric: mf,
+        weight_rms_steps: rms0,
+        weight_max_steps: max0,
         grad_sqnr_db: g0,
         ..Default::default()
     });

@@ -22,11 +22,13 @@ use crate::sim::{run_side_by_side, Prepared, QuantParams, RunOptions};
 /// description's setting.
 #[derive(Clone, Debug, Default)]
 pub struct Grid {
-    /// Word of weights and biases (fraction bits re-chosen by the quantizer's rule).
+    /// Word of weights and biases (fraction bits re-chosen by the quantizer's rule). Empty:
+    /// the base description's formats, as the config or the quantizer fixed them.
     pub weight_words: Vec<Word>,
     /// Word of activations (integer bits kept, fraction bits follow the word).
     pub activation_words: Vec<Word>,
-    /// Fraction bits added to the quantizer's choice for weights (negative: more headroom).
+    /// Fraction bits added to the weights' format (negative: more headroom); biases keep
+    /// theirs.
     pub frac_deltas: Vec<i8>,
     /// Rounding of gradients and updates.
     pub roundings: Vec<Rounding>,
@@ -131,12 +133,20 @@ pub fn variant(
             continue;
         }
         let (w, b) = &float[k];
-        for (p, vals) in [(&mut l.weight, w), (&mut l.bias, b)] {
-            let word = weights.unwrap_or(p.value.word);
-            let max = vals.iter().fold(0f64, |m, v| m.max(v.abs()));
-            let frac =
-                (frac_for(max, WEIGHT_MARGIN, word) as i32 + frac_delta as i32).clamp(0, 31) as u8;
-            p.value = QFormat::new(word, frac).map_err(|e| e.to_string())?;
+        // A new word gets its fraction bits from the quantizer's rule; the fraction-bit offset
+        // moves the weights only. Without either, the base description's formats stay.
+        for (is_weight, p, vals) in [(true, &mut l.weight, w), (false, &mut l.bias, b)] {
+            let delta = if is_weight { frac_delta as i32 } else { 0 };
+            let frac = match weights {
+                Some(word) => {
+                    let max = vals.iter().fold(0f64, |m, v| m.max(v.abs()));
+                    Some((word, frac_for(max, WEIGHT_MARGIN, word) as i32 + delta))
+                }
+                None if delta != 0 => Some((p.value.word, p.value.frac as i32 + delta)),
+                None => None,
+            };
+            let Some((word, frac)) = frac else { continue };
+            p.value = QFormat::new(word, frac.clamp(0, 31) as u8).map_err(|e| e.to_string())?;
             if let Some(m) = p.master {
                 if m.frac < p.value.frac {
                     p.master = Some(QFormat::new(m.word, p.value.frac).map_err(|e| e.to_string())?);
@@ -293,11 +303,13 @@ fn point(
     // Inputs are quantized in the base input format, which the sweep does not change.
     let run = run_side_by_side(&d, &q, float, train, eval, opts, &mut |_| {})?;
     let last = run.epochs.last().copied().unwrap_or_default();
-    let drift = if last.float_eval_loss.abs() > 0.0 {
-        100.0 * (last.fixed_eval_loss - last.float_eval_loss).abs() / last.float_eval_loss.abs()
-    } else {
-        0.0
-    };
+    let drift = crate::drift::gap_pct(last.fixed_eval_loss, last.float_eval_loss);
+    if !drift.is_finite() {
+        return Err(format!(
+            "training diverged (evaluation loss fixed {}, float {}); lower the learning rate",
+            last.fixed_eval_loss, last.float_eval_loss
+        ));
+    }
     Ok(PointResult {
         settings: PointSettings {
             weights: String::new(),

@@ -79,6 +79,39 @@ pub fn fit_scaling(
     Ok(s.scales)
 }
 
+/// Mean loss and metric (accuracy in % or mean absolute error) of the twin on `data`.
+fn score(twin: &mut Twin<'_, f64>, data: &Dataset) -> Result<(f64, f64), String> {
+    let (mut loss, mut metric, mut count) = (0f64, 0f64, 0usize);
+    for (i, x) in data.x.iter().enumerate() {
+        match &data.target {
+            Targets::Classes { labels, .. } => {
+                let o = twin
+                    .evaluate(x, FloatTarget::Class(labels[i]))
+                    .map_err(|e| e.to_string())?;
+                loss += o.loss;
+                metric += (o.predicted == Some(labels[i])) as u8 as f64;
+                count += 1;
+            }
+            Targets::Values { y, .. } => {
+                let o = twin
+                    .evaluate(x, FloatTarget::Values(&y[i]))
+                    .map_err(|e| e.to_string())?;
+                loss += o.loss;
+                for (p, t) in twin.output().iter().zip(y[i].iter()) {
+                    metric += (p - t).abs();
+                    count += 1;
+                }
+            }
+        }
+    }
+    let n = data.x.len().max(1) as f64;
+    let metric = match &data.target {
+        Targets::Classes { .. } => 100.0 * metric / n,
+        Targets::Values { .. } => metric / count.max(1) as f64,
+    };
+    Ok((loss / n, metric))
+}
+
 /// Trains a float base model on `data` (unscaled, as loaded). `progress` is called with
 /// (epoch, epochs, mean loss) after each epoch.
 ///
@@ -94,10 +127,25 @@ pub fn train_float(
         .model_desc_with(provisional_frac)
         .map_err(|e| e.to_string())?;
     let train_desc = all_trainable(&desc);
-    let scaling = fit_scaling(cfg, data)?;
-    let mut scaled = data.clone();
-    crate::data::apply(&scaling, &mut scaled).map_err(|e| e.to_string())?;
     let seed = cfg.train().seed;
+    // Rows held out of training (data.holdout) are scored after every epoch.
+    let (fit_rows, held) = if cfg.data().holdout > 0.0 {
+        crate::data::split(data, cfg.data().holdout, seed).map_err(|e| e.to_string())?
+    } else {
+        (
+            data.clone(),
+            Dataset {
+                x: Vec::new(),
+                target: data.target.select(&[]),
+                ..data.clone()
+            },
+        )
+    };
+    let scaling = fit_scaling(cfg, &fit_rows)?;
+    let mut scaled = fit_rows;
+    crate::data::apply(&scaling, &mut scaled).map_err(|e| e.to_string())?;
+    let mut held = held;
+    crate::data::apply(&scaling, &mut held).map_err(|e| e.to_string())?;
     let params = glorot_init(&train_desc, seed)?;
     let plan = Plan::new_float(
         train_desc.input,
@@ -115,8 +163,15 @@ pub fn train_float(
     let mut twin = Twin::new(&train_desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
     let n = scaled.len();
     let mut history = Vec::new();
+    let diverged = || {
+        format!(
+            "{}: training diverged (a loss or weight is no longer a finite number); lower train.learning-rate (now {}) or add train.clip",
+            cfg.source().display(),
+            crate::report::short_decimal(cfg.train().lr.to_f64())
+        )
+    };
     for epoch in 1..=cfg.epochs() {
-        let (mut loss, mut metric) = (0f64, 0f64);
+        let mut loss = 0f64;
         for i in epoch_order(n, epoch, seed) {
             let x = &scaled.x[i];
             let out = match &scaled.target {
@@ -125,32 +180,25 @@ pub fn train_float(
             }
             .map_err(|e| format!("{}: row {}: {e}", data.source.display(), i + 1))?;
             loss += out.loss;
-            metric += match (&scaled.target, out.predicted) {
-                (Targets::Classes { labels, .. }, Some(p)) => (p == labels[i]) as u8 as f64,
-                _ => 0.0,
-            };
         }
         twin.flush();
         let loss = loss / n.max(1) as f64;
-        let metric = match &scaled.target {
-            Targets::Classes { .. } => 100.0 * metric / n.max(1) as f64,
-            Targets::Values { y, .. } => {
-                let mut se = 0.0;
-                let mut count = 0usize;
-                for (i, row) in scaled.x.iter().enumerate() {
-                    let out = twin.predict(row).map_err(|e| e.to_string())?;
-                    for (o, t) in out.iter().zip(y[i].iter()) {
-                        se += (o - t).abs();
-                        count += 1;
-                    }
-                }
-                se / count.max(1) as f64
-            }
+        if !loss.is_finite() {
+            return Err(diverged());
+        }
+        let (_, metric) = score(&mut twin, &scaled)?;
+        let (eval_loss, eval_metric) = if held.is_empty() {
+            (None, None)
+        } else {
+            let (l, m) = score(&mut twin, &held)?;
+            (Some(l), Some(m))
         };
         history.push(EpochRecord {
             epoch,
             loss,
             metric,
+            eval_loss,
+            eval_metric,
         });
         progress(epoch, cfg.epochs(), loss);
     }
@@ -182,6 +230,6 @@ pub fn train_float(
         outputs,
         history,
     };
-    model.check()?;
+    model.check().map_err(|_| diverged())?;
     Ok(model)
 }

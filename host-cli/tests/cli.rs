@@ -1175,6 +1175,30 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
             ])
             .stderr(&["--weights: 12 bits is not a word size"])
             .absent(&["sweep"]),
+        case("sweep-zero-learning-rate")
+            .file("model.json", fx.soil_model.clone())
+            .args(&[
+                "sweep", "--config", &soil, "--model", "in/model.json", "--train", &cal,
+                "--eval", &hold, "--lr", "0.01,0", "--epochs", "1", "--out", "out/sweep",
+            ])
+            .stderr(&["--lr: 0 is not a positive learning rate"])
+            .absent(&["sweep"]),
+        case("sweep-learning-rate-below-one-step")
+            .file("model.json", fx.soil_model.clone())
+            .args(&[
+                "sweep", "--config", &soil, "--model", "in/model.json", "--train", &cal,
+                "--eval", &hold, "--lr", "1e-12", "--epochs", "1", "--out", "out/sweep",
+            ])
+            .stderr(&["--lr: 0.000000000001 rounds to zero"])
+            .absent(&["sweep"]),
+        case("drift-zero-epochs")
+            .file("model.json", fx.soil_model.clone())
+            .args(&[
+                "drift", "--config", &soil, "--model", "in/model.json", "--train", &cal,
+                "--eval", &hold, "--epochs", "0", "--report", "out/report",
+            ])
+            .stderr(&["--epochs", "0"])
+            .absent(&["report"]),
         // ---- checkpoint images ----
         case("checkpoint-image-not-whole-sectors")
             .file("odd.img", fx.image[..5000].to_vec())

@@ -481,6 +481,11 @@ fn parse_size_units_and_errors() {
         parse_size("99999999999999999999999"),
         Err(SizeError::TooLarge { .. })
     ));
+    // 20 integer digits, 18 fraction digits and a MiB multiplier pass u128 unless checked.
+    assert!(matches!(
+        parse_size("99999999999999999999.999999999999999999M"),
+        Err(SizeError::TooLarge { .. })
+    ));
     assert!(matches!(
         parse_size("1.3k"),
         Err(SizeError::Fractional { .. })

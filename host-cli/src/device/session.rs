@@ -319,8 +319,8 @@ impl Session {
                 return Err(format!(
                     "{} is not what the generator writes now (first difference at line {line}); \
                      regenerate the board's session files with \
-                     `hone_host::device::session::generate` (see boards/README.md, \
-                     \"Session files\")",
+                     `cargo run -p hone -- device session --board <board>` (see \
+                     boards/README.md, \"Session files\")",
                     path.display()
                 ));
             }
