@@ -21,6 +21,9 @@ pub enum LayerFault {
     /// A setting of the layer is out of its range (leaky-ReLU shift 1 to 15, clipped-ReLU
     /// ceiling at least 1).
     Parameter,
+    /// The layer kind or the loss is not built into this core: its cargo feature (`conv1d`,
+    /// `pool1d`, `table-activations` or `cross-entropy`) is off.
+    NotBuilt,
 }
 
 /// Which parameter tensor of a layer.
@@ -119,6 +122,7 @@ impl fmt::Display for LayerFault {
             LayerFault::Format => "a Q-format has more than 31 fraction bits",
             LayerFault::LossOutput => "the loss needs a different output size",
             LayerFault::ModeWithoutParams => "a train mode is set on a layer without parameters",
+            LayerFault::NotBuilt => "the layer kind or loss is not built into this core (its cargo feature is off)",
         })
     }
 }

@@ -30,6 +30,11 @@
 //! # Features
 //! - `std`: the `f64` float twin's transcendental functions and `std::error::Error`.
 //! - `defmt`: `defmt::Format` on errors and small public types.
+//! - `all-layers` (default) = `conv1d`, `pool1d`, `table-activations` (sigmoid and tanh),
+//!   `cross-entropy` (softmax cross-entropy). A firmware that uses fewer turns default features
+//!   off and names the ones it needs: the others are not linked, and a description that uses
+//!   one is rejected with [`error::LayerFault::NotBuilt`] (at compile time for a `const` plan).
+//!   Dense, the shift and clamp activations, squared error and the trainer are always built.
 #![cfg_attr(not(any(test, feature = "std")), no_std)]
 #![forbid(unsafe_code)]
 #![deny(missing_docs)]

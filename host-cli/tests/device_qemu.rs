@@ -14,16 +14,25 @@
 //! host's weights bit for bit; per multiply-accumulate it costs less than the small model and
 //! more than the bare dot product, and its RAM stays within the prediction it was chosen with.
 //!
+//! The lean build (boards/lean): the core with every optional layer kind off trains a dense,
+//! ReLU, squared-error model with SGD on the micro:bit, ends with the host's weights bit for
+//! bit, and links less engine code than the full firmware.
+//!
 //! Needs `qemu-system-arm` and `qemu-system-riscv32` (Debian packages `qemu-system-arm` and
 //! `qemu-system-misc`) and the rustup targets of the boards; a missing emulator fails the test
 //! with a message saying what to install.
 
 use std::time::{Duration, Instant};
 
+/// The lean firmware's session, compiled here with the core built for the host (all features;
+/// the arithmetic of the kinds the lean build keeps is the same code).
+#[path = "../../boards/lean/src/session.rs"]
+mod lean_session;
+
 use hone_host::device::report::TickUnit;
 use hone_host::device::session::{self, Session, BOARD_SESSIONS};
 use hone_host::device::throughput;
-use hone_host::device::verify::{verify_board, SessionCheck, VerifyOptions};
+use hone_host::device::verify::{flash_figures, verify_board, SessionCheck, VerifyOptions};
 use hone_host::device::{
     build_bin, build_firmware, decode, default_boards_dir, reference, run_elf, run_qemu,
     DeviceError, QemuBoard, DEFAULT_TIMEOUT,
@@ -344,4 +353,70 @@ fn panic_and_fault_end_the_run_with_their_codes() {
             }
         }
     }
+}
+
+/// The lean build trains on the micro:bit and prints exactly the weights the same session
+/// computes on the host; its engine code (the core and the calls into it) is smaller than the
+/// full micro:bit firmware's, which links every layer kind, the blob codec, the checkpoint
+/// store and the guard.
+#[test]
+fn lean_build_trains_bit_exact_and_links_less_engine() {
+    let boards = default_boards_dir();
+    let elf = build_bin(&boards.join("lean"), "hone-lean").unwrap_or_else(|e| panic!("{e}"));
+    let out =
+        run_qemu(QemuBoard::Microbit, &elf, DEFAULT_TIMEOUT).unwrap_or_else(|e| panic!("{e}"));
+    let device = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert_eq!(
+        out.exit_code, 0,
+        "lean firmware failed:\n{device}\n{}",
+        out.stderr
+    );
+
+    let mut arena = vec![0u32; lean_session::ARENA_WORDS];
+    let mut host = String::new();
+    let summary = lean_session::run(&mut arena, |name, values| {
+        host.push_str("lean ");
+        host.push_str(name);
+        for v in values {
+            host.push_str(&format!(" {v}"));
+        }
+        host.push('\n');
+    })
+    .unwrap_or_else(|e| panic!("host run of the lean session: {e}"));
+    host.push_str(&format!("lean loss {} {}\n", summary.before, summary.after));
+    assert_eq!(device, host, "device and host differ");
+    // The session must have learned something for the comparison to mean much: the summed
+    // loss falls at least tenfold (it falls about fiftyfold).
+    assert!(
+        summary.after * 10 < summary.before,
+        "loss {} -> {}",
+        summary.before,
+        summary.after
+    );
+
+    let lean = flash_figures(&std::fs::read(&elf).expect("read lean ELF"), &elf)
+        .unwrap_or_else(|e| panic!("{e}"));
+    let full_elf = build_firmware(QemuBoard::Microbit, &boards).unwrap_or_else(|e| panic!("{e}"));
+    let full = flash_figures(&std::fs::read(&full_elf).expect("read ELF"), &full_elf)
+        .unwrap_or_else(|e| panic!("{e}"));
+    eprintln!(
+        "lean build (thumbv6m: dense, ReLU, squared error, SGD): engine code {} B ({} B .text, {} B \
+         .rodata), whole .text {} B; full micro:bit firmware: engine code {} B, whole .text {} B",
+        lean.engine_code(),
+        lean.engine_text,
+        lean.engine_rodata,
+        lean.text_section,
+        full.engine_code(),
+        full.text_section
+    );
+    assert!(
+        lean.engine_text > 0,
+        "no engine symbols found in the lean ELF"
+    );
+    assert!(
+        lean.engine_code() < full.engine_code(),
+        "the lean build links {} B of engine code, the full firmware {} B",
+        lean.engine_code(),
+        full.engine_code()
+    );
 }

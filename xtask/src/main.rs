@@ -23,7 +23,14 @@ const CORE_TARGETS: [&str; 3] = [
 /// Debian packages with the QEMU system emulators the firmware tests run on.
 const QEMU_PACKAGES: [&str; 2] = ["qemu-system-arm", "qemu-system-misc"];
 /// Board crates built in release mode (the QEMU ones also run in the tests).
-const BOARDS: [&str; 5] = ["lm3s6965evb", "microbit", "mps2-an386", "sifive-e", "pico"];
+const BOARDS: [&str; 6] = [
+    "lm3s6965evb",
+    "microbit",
+    "mps2-an386",
+    "sifive-e",
+    "pico",
+    "lean",
+];
 
 fn root() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR"))
@@ -155,6 +162,41 @@ fn test(steps: &mut Vec<Step>) -> Result<(), String> {
             "thumbv6m-none-eabi",
             "--features",
             "defmt",
+        ],
+    )?;
+    // The smallest core: every optional layer kind off. Clippy and the tests that check what
+    // a build without them accepts and trains (the lean firmware runs it on a board).
+    run(
+        steps,
+        "clippy hone-core without optional layers",
+        &root,
+        "cargo",
+        &[
+            "clippy",
+            "-p",
+            "hone-core",
+            "--no-default-features",
+            "--locked",
+            "--target",
+            "thumbv6m-none-eabi",
+            "--",
+            "-D",
+            "warnings",
+        ],
+    )?;
+    run(
+        steps,
+        "hone-core tests without optional layers",
+        &root,
+        "cargo",
+        &[
+            "test",
+            "-p",
+            "hone-core",
+            "--no-default-features",
+            "--locked",
+            "--lib",
+            "built_",
         ],
     )?;
     for b in BOARDS {

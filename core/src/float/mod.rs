@@ -460,6 +460,8 @@ impl<'a, R: Real> Twin<'a, R> {
                 }
                 (loss, None)
             }
+            // Not built: the plan rejects the loss, so never reached.
+            FloatTarget::Class(_) if !cfg!(feature = "cross-entropy") => (R::ZERO, None),
             FloatTarget::Class(c) => {
                 let best = argmax(y);
                 let zmax = y.get(best).copied().unwrap_or(R::ZERO);
@@ -636,7 +638,7 @@ pub fn forward<R: Real>(
                 *yj = s;
             }
         }
-        LayerKind::Conv1d { kernel, stride, .. } => {
+        LayerKind::Conv1d { kernel, stride, .. } if cfg!(feature = "conv1d") => {
             let (k, st) = (kernel as usize, stride as usize);
             for o in 0..c_out {
                 for t in 0..l_out {
@@ -652,7 +654,9 @@ pub fn forward<R: Real>(
                 }
             }
         }
-        LayerKind::AvgPool1d { window, stride } | LayerKind::MaxPool1d { window, stride } => {
+        LayerKind::AvgPool1d { window, stride } | LayerKind::MaxPool1d { window, stride }
+            if cfg!(feature = "pool1d") =>
+        {
             let (wn, st) = (window as usize, stride as usize);
             let avg = matches!(kind, LayerKind::AvgPool1d { .. });
             for c in 0..c_in {
@@ -672,6 +676,8 @@ pub fn forward<R: Real>(
                 }
             }
         }
+        // Not built: the plan rejects these kinds, so never reached.
+        LayerKind::Conv1d { .. } | LayerKind::AvgPool1d { .. } | LayerKind::MaxPool1d { .. } => {}
         _ => {
             for (i, yi) in y.iter_mut().enumerate() {
                 let v = at(x, i);
@@ -694,8 +700,8 @@ pub fn forward<R: Real>(
                     LayerKind::ClippedRelu { ceiling } => {
                         clamp(v, R::ZERO, R::from_f64(ceiling as f64))
                     }
-                    LayerKind::Sigmoid => v.sigmoid(),
-                    LayerKind::Tanh => v.tanh(),
+                    LayerKind::Sigmoid if cfg!(feature = "table-activations") => v.sigmoid(),
+                    LayerKind::Tanh if cfg!(feature = "table-activations") => v.tanh(),
                     _ => v,
                 };
             }
@@ -752,7 +758,7 @@ pub fn backward<R: Real>(
                 *a += at(gy, j);
             }
         }
-        LayerKind::Conv1d { kernel, stride, .. } => {
+        LayerKind::Conv1d { kernel, stride, .. } if cfg!(feature = "conv1d") => {
             let (k, st) = (kernel as usize, stride as usize);
             for c in 0..c_in {
                 for i in 0..l_in {
@@ -791,7 +797,9 @@ pub fn backward<R: Real>(
                 *a += s;
             }
         }
-        LayerKind::AvgPool1d { window, stride } | LayerKind::MaxPool1d { window, stride } => {
+        LayerKind::AvgPool1d { window, stride } | LayerKind::MaxPool1d { window, stride }
+            if cfg!(feature = "pool1d") =>
+        {
             let (wn, st) = (window as usize, stride as usize);
             let avg = matches!(kind, LayerKind::AvgPool1d { .. });
             for c in 0..c_in {
@@ -809,6 +817,8 @@ pub fn backward<R: Real>(
                 }
             }
         }
+        // Not built: the plan rejects these kinds, so never reached.
+        LayerKind::Conv1d { .. } | LayerKind::AvgPool1d { .. } | LayerKind::MaxPool1d { .. } => {}
         _ => {
             for (i, v) in gx.iter_mut().enumerate() {
                 let (xv, yv, gv) = (at(x, i), at(y, i), at(gy, i));
@@ -841,8 +851,12 @@ pub fn backward<R: Real>(
                             R::ZERO
                         }
                     }
-                    LayerKind::Sigmoid => yv * (R::ONE - yv) * gv,
-                    LayerKind::Tanh => (R::ONE - yv * yv) * gv,
+                    LayerKind::Sigmoid if cfg!(feature = "table-activations") => {
+                        yv * (R::ONE - yv) * gv
+                    }
+                    LayerKind::Tanh if cfg!(feature = "table-activations") => {
+                        (R::ONE - yv * yv) * gv
+                    }
                     _ => gv,
                 };
             }

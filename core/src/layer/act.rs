@@ -47,9 +47,15 @@ pub fn forward(
             }
             LayerKind::HardTanh => (v.clamp(-one(fx), one(fx)), fx),
             LayerKind::ClippedRelu { ceiling } => (v.clamp(0, (ceiling as i64) << fx), fx),
-            LayerKind::Sigmoid => (approx::sigmoid::sigmoid(v, fx) as i64, approx::OUT_FRAC),
-            LayerKind::Tanh => (approx::tanh::tanh(v, fx) as i64, approx::OUT_FRAC),
-            // Not element-wise; never dispatched here.
+            // Without the `table-activations` feature the plan rejects these kinds, and the
+            // guards keep their tables out of the build.
+            LayerKind::Sigmoid if cfg!(feature = "table-activations") => {
+                (approx::sigmoid::sigmoid(v, fx) as i64, approx::OUT_FRAC)
+            }
+            LayerKind::Tanh if cfg!(feature = "table-activations") => {
+                (approx::tanh::tanh(v, fx) as i64, approx::OUT_FRAC)
+            }
+            // Not element-wise, or not built; never dispatched here.
             _ => (v, fx),
         };
         r.store(y, i, out, f, false, t);
@@ -95,11 +101,11 @@ pub fn backward(
                     fg,
                 )
             }
-            LayerKind::Sigmoid => {
+            LayerKind::Sigmoid if cfg!(feature = "table-activations") => {
                 let yv = y.at(i) as i64;
                 (deriv(yv * (one(fy) - yv), 2 * fy, r) * g, DERIV_FRAC + fg)
             }
-            LayerKind::Tanh => {
+            LayerKind::Tanh if cfg!(feature = "table-activations") => {
                 let yv = y.at(i) as i64;
                 (deriv(one(2 * fy) - yv * yv, 2 * fy, r) * g, DERIV_FRAC + fg)
             }

@@ -266,15 +266,18 @@ pub fn forward(
 ) {
     match kind {
         LayerKind::Dense { .. } => dense::forward(g, p, x, y, r, tally),
-        LayerKind::Conv1d { kernel, stride, .. } => {
+        // The `cfg!` guards leave a kind that is not built without code; the plan rejects its
+        // descriptions (`LayerFault::NotBuilt`), so those arms below are never reached.
+        LayerKind::Conv1d { kernel, stride, .. } if cfg!(feature = "conv1d") => {
             conv::forward(g, kernel, stride, p, x, y, r, tally)
         }
-        LayerKind::AvgPool1d { window, stride } => {
+        LayerKind::AvgPool1d { window, stride } if cfg!(feature = "pool1d") => {
             pool::avg_forward(g, window, stride, x, y, r, tally)
         }
-        LayerKind::MaxPool1d { window, stride } => {
+        LayerKind::MaxPool1d { window, stride } if cfg!(feature = "pool1d") => {
             pool::max_forward(g, window, stride, x, y, r, tally)
         }
+        LayerKind::Conv1d { .. } | LayerKind::AvgPool1d { .. } | LayerKind::MaxPool1d { .. } => {}
         _ => act::forward(kind, g.input.size() as usize, x, y, r, tally),
     }
 }
@@ -296,19 +299,21 @@ pub fn backward(
 ) {
     match kind {
         LayerKind::Dense { .. } => dense::backward(g, p, x, gy, out, r, t),
-        LayerKind::Conv1d { kernel, stride, .. } => {
+        LayerKind::Conv1d { kernel, stride, .. } if cfg!(feature = "conv1d") => {
             conv::backward(g, kernel, stride, p, x, gy, out, r, t)
         }
-        LayerKind::AvgPool1d { window, stride } => {
+        LayerKind::AvgPool1d { window, stride } if cfg!(feature = "pool1d") => {
             if let Some(gx) = out.gx {
                 pool::avg_backward(g, window, stride, gy, gx, r, &mut t.gx);
             }
         }
-        LayerKind::MaxPool1d { window, stride } => {
+        LayerKind::MaxPool1d { window, stride } if cfg!(feature = "pool1d") => {
             if let Some(gx) = out.gx {
                 pool::max_backward(g, window, stride, x, gy, gx, r, &mut t.gx);
             }
         }
+        // Not built (see `forward`): never reached.
+        LayerKind::Conv1d { .. } | LayerKind::AvgPool1d { .. } | LayerKind::MaxPool1d { .. } => {}
         _ => {
             if let Some(gx) = out.gx {
                 act::backward(kind, g.input.size() as usize, x, y, gy, gx, r, &mut t.gx);

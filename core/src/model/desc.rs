@@ -99,6 +99,21 @@ impl LayerKind {
     pub const fn has_params(self) -> bool {
         matches!(self, LayerKind::Dense { .. } | LayerKind::Conv1d { .. })
     }
+
+    /// Whether this build of the core includes the layer kind. Convolution, pooling and the
+    /// table activations each have a cargo feature (`conv1d`, `pool1d`, `table-activations`,
+    /// all on by default); a firmware that turns one off does not link its code, and a
+    /// description that uses it is rejected with [`LayerFault::NotBuilt`].
+    // Which arms are `true` depends on the features, so `matches!` would not read better.
+    #[allow(clippy::match_like_matches_macro)]
+    pub const fn is_built(self) -> bool {
+        match self {
+            LayerKind::Conv1d { .. } => cfg!(feature = "conv1d"),
+            LayerKind::AvgPool1d { .. } | LayerKind::MaxPool1d { .. } => cfg!(feature = "pool1d"),
+            LayerKind::Sigmoid | LayerKind::Tanh => cfg!(feature = "table-activations"),
+            _ => true,
+        }
+    }
 }
 
 /// Which parameters of a layer training may change.
@@ -220,6 +235,19 @@ pub enum Loss {
     /// Softmax over the outputs followed by cross-entropy with a class label:
     /// `L = −ln softmax(z)_t`, gradient `softmax(z) − onehot(t)`.
     SoftmaxCrossEntropy,
+}
+
+impl Loss {
+    /// Whether this build of the core includes the loss (softmax cross-entropy has the cargo
+    /// feature `cross-entropy`, on by default); see [`LayerKind::is_built`].
+    // Which arms are `true` depends on the features, so `matches!` would not read better.
+    #[allow(clippy::match_like_matches_macro)]
+    pub const fn is_built(self) -> bool {
+        match self {
+            Loss::SquaredError => true,
+            Loss::SoftmaxCrossEntropy => cfg!(feature = "cross-entropy"),
+        }
+    }
 }
 
 /// The overflow-rate rule of dynamic fixed point (Courbariaux, Bengio, David 2014, section 4):
@@ -435,6 +463,9 @@ pub const fn layer_geometry(
     if !layer.weight.is_valid() || !layer.bias.is_valid() {
         return Err(lf(index, LayerFault::Format));
     }
+    if !layer.kind.is_built() {
+        return Err(lf(index, LayerFault::NotBuilt));
+    }
     if !layer.kind.has_params() && !matches!(layer.mode, TrainMode::Frozen) {
         return Err(lf(index, LayerFault::ModeWithoutParams));
     }
@@ -556,6 +587,12 @@ pub const fn shapes(input: Shape, layers: &[LayerDesc], loss: Loss) -> Result<Sh
         i += 1;
     }
     out.output = shape;
+    if !loss.is_built() {
+        return Err(Error::Layer {
+            layer: (layers.len() - 1) as u8,
+            fault: LayerFault::NotBuilt,
+        });
+    }
     if matches!(loss, Loss::SoftmaxCrossEntropy) && shape.size() < 2 {
         return Err(Error::Layer {
             layer: (layers.len() - 1) as u8,
@@ -582,6 +619,87 @@ mod tests {
             bias: p,
             out: q(Word::I16, 10),
             grad: q(Word::I16, 12),
+        }
+    }
+
+    /// A kind or loss is accepted exactly when its cargo feature is built, and otherwise
+    /// rejected as `NotBuilt` at the layer that uses it. `cargo xtask test` runs the `built_`
+    /// tests with the default features and again with none.
+    #[test]
+    fn built_kinds_follow_features() {
+        let act = q(Word::I16, 10);
+        let input = Shape {
+            channels: 2,
+            len: 8,
+        };
+        let conv = LayerDesc {
+            kind: LayerKind::Conv1d {
+                filters: 2,
+                kernel: 3,
+                stride: 1,
+            },
+            ..dense(1)
+        };
+        let simple = |kind| LayerDesc::simple(kind, act, act);
+        let cases = [
+            (conv, cfg!(feature = "conv1d")),
+            (
+                simple(LayerKind::AvgPool1d {
+                    window: 2,
+                    stride: 2,
+                }),
+                cfg!(feature = "pool1d"),
+            ),
+            (
+                simple(LayerKind::MaxPool1d {
+                    window: 2,
+                    stride: 1,
+                }),
+                cfg!(feature = "pool1d"),
+            ),
+            (
+                simple(LayerKind::Sigmoid),
+                cfg!(feature = "table-activations"),
+            ),
+            (simple(LayerKind::Tanh), cfg!(feature = "table-activations")),
+            (simple(LayerKind::Relu), true),
+            (simple(LayerKind::LeakyRelu { shift: 3 }), true),
+            (simple(LayerKind::HardTanh), true),
+            (simple(LayerKind::ClippedRelu { ceiling: 6 }), true),
+            (dense(4), true),
+        ];
+        for (layer, built) in cases {
+            assert_eq!(layer.kind.is_built(), built, "{:?}", layer.kind);
+            let layers = [layer, dense(1)];
+            let r = shapes(input, &layers, Loss::SquaredError);
+            if built {
+                assert!(r.is_ok(), "{:?}: {r:?}", layer.kind);
+            } else {
+                assert_eq!(
+                    r.err(),
+                    Some(Error::Layer {
+                        layer: 0,
+                        fault: LayerFault::NotBuilt
+                    }),
+                    "{:?}",
+                    layer.kind
+                );
+            }
+        }
+        let xent = cfg!(feature = "cross-entropy");
+        assert!(Loss::SquaredError.is_built());
+        assert_eq!(Loss::SoftmaxCrossEntropy.is_built(), xent);
+        let r = shapes(input, &[dense(4), dense(3)], Loss::SoftmaxCrossEntropy);
+        if xent {
+            assert!(r.is_ok(), "{r:?}");
+        } else {
+            assert_eq!(
+                r.err(),
+                Some(Error::Layer {
+                    layer: 1,
+                    fault: LayerFault::NotBuilt
+                })
+            );
         }
     }
 

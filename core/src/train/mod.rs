@@ -637,6 +637,9 @@ impl<'a> Trainer<'a> {
         let mut r = Rounder { mode, rng };
         let out = match target {
             Target::Values(t) => (loss::squared_error(y, t, n, gy, &mut r, &mut tally), None),
+            // Without the `cross-entropy` feature the plan rejects the loss, so a class target
+            // never gets here (`check_sample` pairs it with that loss).
+            Target::Class(_) if !cfg!(feature = "cross-entropy") => (LossValue::default(), None),
             Target::Class(c) => {
                 let p = loss::argmax(y, n) as u16;
                 (
@@ -950,6 +953,88 @@ mod tests {
     use super::*;
     use crate::model::{LayerKind, ParamFormats, Shape, TrainDesc, TrainMode};
     use crate::num::{QScalar, Word};
+
+    /// The smallest build (no optional layer kinds) trains: a 2-8-1 dense, ReLU, squared-error
+    /// model fits y = x0 − x1 on four samples with SGD. `cargo xtask test` also runs this with
+    /// `--no-default-features`, where it is the build whose code size the README reports.
+    #[test]
+    fn built_dense_relu_squared_error_trains() {
+        let act = QFormat::new_unchecked(Word::I16, 10);
+        let p = ParamFormats::plain(QFormat::new_unchecked(Word::I16, 12), 24);
+        let dense = |units| LayerDesc {
+            kind: LayerKind::Dense { units },
+            mode: TrainMode::Full,
+            weight: p,
+            bias: p,
+            out: act,
+            grad: act,
+        };
+        let layers = [
+            dense(8),
+            LayerDesc::simple(LayerKind::Relu, act, act),
+            dense(1),
+        ];
+        let t = TrainDesc::sgd(QScalar { raw: 13, frac: 8 });
+        let desc = ModelDesc::new(Shape::vector(2), act, &layers, Loss::SquaredError, t).unwrap();
+        let plan = Plan::of(&desc).unwrap();
+        let mut arena = std::vec![0u32; plan.ram_words()];
+        // Fixed, varied starting weights (Q3.12): positive and negative so that some hidden
+        // units are active for every sample.
+        let w1: std::vec::Vec<i16> = (0..16).map(|i| ((i * 997) % 3001 - 1500) as i16).collect();
+        let b1 = [400i16; 8];
+        let w2: std::vec::Vec<i16> = (0..8).map(|i| ((i * 613) % 2001 - 1000) as i16).collect();
+        let b2 = [0i16];
+        let init = [
+            LayerParams {
+                weight: Raw::I16(&w1),
+                bias: Raw::I16(&b1),
+            },
+            LayerParams::NONE,
+            LayerParams {
+                weight: Raw::I16(&w2),
+                bias: Raw::I16(&b2),
+            },
+        ];
+        let mut tr = Trainer::new(&desc, &plan, &mut arena, &init).unwrap();
+        // Inputs in Q5.10 (1024 = 1.0); targets x0 − x1.
+        let samples: [([i16; 2], i16); 4] = [
+            ([1024, 0], 1024),
+            ([0, 1024], -1024),
+            ([512, 512], 0),
+            ([1024, 512], 512),
+        ];
+        let epoch_loss = |tr: &mut Trainer<'_>, train: bool| {
+            let mut sum = 0i64;
+            for (x, y) in &samples {
+                let x = Tensor {
+                    raw: Raw::I16(x),
+                    fmt: act,
+                };
+                let y = [*y];
+                let target = Target::Values(Tensor {
+                    raw: Raw::I16(&y),
+                    fmt: act,
+                });
+                let out = if train {
+                    tr.step(x, target)
+                } else {
+                    tr.evaluate(x, target)
+                };
+                sum += out.unwrap().loss.0;
+            }
+            sum
+        };
+        let before = epoch_loss(&mut tr, false);
+        for _ in 0..200 {
+            epoch_loss(&mut tr, true);
+        }
+        let after = epoch_loss(&mut tr, false);
+        assert!(before > 0, "the start must be off the target");
+        assert!(
+            after * 20 < before,
+            "loss only fell from {before} to {after}"
+        );
+    }
 
     #[test]
     fn outside_formats_are_checked_not_trusted() {

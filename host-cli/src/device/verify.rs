@@ -880,8 +880,12 @@ pub fn code_part(name: &str) -> CodePart {
     {
         return CodePart::Float;
     }
+    // The lean build's calls into the core (boards/lean/src/session.rs), out of line as the
+    // full firmware's are.
+    let lean_engine = "9hone_lean7session6engine";
     if has("hone_core")
         || name.contains(fw_engine)
+        || name.contains(lean_engine)
         || ["postcard", "serde", "heapless", "crc", "fixed", "bytemuck"]
             .iter()
             .any(|k| has(k))
@@ -1274,6 +1278,14 @@ mod tests {
         assert_eq!(
             code_part("_ZN7hone_fw5train6engine10train_twin17h0123E"),
             CodePart::Float
+        );
+        assert_eq!(
+            code_part("_ZN9hone_lean7session6engine4step17h0123E"),
+            CodePart::Engine
+        );
+        assert_eq!(
+            code_part("_ZN9hone_lean7session3run17h0123E"),
+            CodePart::Other
         );
         assert_eq!(code_part("_ZN8postcard2de5take17h0E"), CodePart::Engine);
         assert_eq!(code_part("__aeabi_fmul"), CodePart::Runtime);
