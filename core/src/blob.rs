@@ -32,8 +32,10 @@ use crate::num::{QFormat, RawMut, MAX_FRAC};
 
 /// First four bytes of every blob.
 pub const MAGIC: [u8; 4] = *b"HONB";
-/// The format version this crate writes and reads.
-pub const FORMAT_VERSION: u16 = 1;
+/// The format version this crate writes and reads. Version 2 added the outer-half counts of
+/// dynamic fixed point to a checkpoint's training state; a version-1 blob is rejected with
+/// [`BlobError::UnsupportedVersion`] (export the model again).
+pub const FORMAT_VERSION: u16 = 2;
 /// The most input channels a scaling entry list may hold.
 pub const MAX_SCALED_CHANNELS: usize = 64;
 /// The most tensors a blob may carry: value, master and momentum of weight and bias per layer.
@@ -195,11 +197,12 @@ pub struct TrainState {
     /// Current fraction bits per layer: output, gradient, weight accumulator, bias
     /// accumulator.
     pub fracs: [[u8; 4]; MAX_LAYERS],
-    /// Dynamic fixed point: values written and values saturated since the last adjustment,
-    /// per layer, for output, gradient, weight accumulator and bias accumulator (in that
-    /// order, values then saturations), so a restored trainer adjusts at the same moment and
-    /// in the same way as the one that wrote the checkpoint.
-    pub window: [[u32; 8]; MAX_LAYERS],
+    /// Dynamic fixed point: values written, values saturated and values in the outer half
+    /// of the range ([`crate::kernel::Tally::high`]) since the last adjustment, per layer, for
+    /// output, gradient, weight accumulator and bias accumulator (in that order: four values,
+    /// four saturations, four outer-half counts), so a restored trainer adjusts at the same
+    /// moment and in the same way as the one that wrote the checkpoint.
+    pub window: [[u32; 12]; MAX_LAYERS],
 }
 
 /// One tensor as carried in a blob.
@@ -453,6 +456,29 @@ pub fn decode(bytes: &[u8]) -> Result<CheckedBlob<'_>, Error> {
 
 /// Checks a parsed blob: description, scaling, state, every tensor, required tensors, and
 /// that the tensor list ends exactly at the end of the body.
+///
+/// The state's fraction bits must be the description's wherever they cannot have moved: every
+/// one when dynamic fixed point is off, and for the unused layer slots always (a trainer
+/// writes zeros there). With dynamic fixed point a moving tensor may sit anywhere up to
+/// [`MAX_FRAC`].
+pub(crate) fn state_fracs_fit(desc: &ModelDesc, st: &TrainState) -> bool {
+    st.fracs
+        .iter()
+        .enumerate()
+        .all(|(k, f)| match desc.layers.get(k) {
+            None => *f == [0; 4],
+            Some(l) if desc.train.dynamic.is_none() => {
+                *f == [
+                    l.out.frac,
+                    l.grad.frac,
+                    l.weight.accum.frac,
+                    l.bias.accum.frac,
+                ]
+            }
+            Some(_) => f.iter().all(|&b| b <= MAX_FRAC),
+        })
+}
+
 fn check(b: &CheckedBlob<'_>) -> Result<(), Error> {
     let desc = &b.desc;
     desc.check()?;
@@ -469,9 +495,7 @@ fn check(b: &CheckedBlob<'_>) -> Result<(), Error> {
     match (b.kind, b.state.as_ref()) {
         (BlobKind::Model, None) => {}
         (BlobKind::Checkpoint, Some(st)) => {
-            if crate::num::Rng::from_state(st.rng).is_none()
-                || st.fracs.iter().flatten().any(|&f| f > MAX_FRAC)
-            {
+            if crate::num::Rng::from_state(st.rng).is_none() || !state_fracs_fit(desc, st) {
                 return Err(BlobError::StateMismatch.into());
             }
         }

@@ -8,8 +8,12 @@
 //! 3. evaluate the held-back samples again: the *candidate*;
 //! 4. [`judge`] the two: reject when the mean loss rose by more than the allowed margin, or
 //!    when activation saturations spiked; otherwise accept;
-//! 5. on rejection, reload the last good weights ([`crate::train::Trainer::load`]); on
-//!    acceptance, commit them (for example to the [`crate::store`]).
+//! 5. on rejection, put back the last good model and the trainer's state as they were before
+//!    step 2 (the parameters from the last good blob with
+//!    [`crate::train::Trainer::restore`] or `load`, then
+//!    [`crate::train::Trainer::set_train_state`] with the state saved before training, so the
+//!    fraction bits, generator and counters are those of before too); on acceptance, commit
+//!    them (for example to the [`crate::store`]). [`calibrate`] does all of this.
 //!
 //! Everything is integer: losses are [`LossValue`]s, rates are parts per million.
 
@@ -104,7 +108,10 @@ pub fn evaluate<'s, I>(trainer: &mut Trainer<'_>, samples: I) -> Result<Evaluati
 where
     I: IntoIterator<Item = (Tensor<'s>, Target<'s>)>,
 {
-    let per_sample: u64 = trainer.plan().shapes.layers[..trainer.plan().count()]
+    let layers = &trainer.plan().shapes.layers;
+    let per_sample: u64 = layers
+        .get(..trainer.plan().count())
+        .unwrap_or(layers)
         .iter()
         .map(|g| g.output.size() as u64)
         .sum();

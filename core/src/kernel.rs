@@ -12,7 +12,7 @@
 //! The 32-bit path is what makes `i8` weights cheap on a Cortex-M0; on a Cortex-M3 or M4 the
 //! 64-bit path compiles to `SMLAL`, one instruction per multiply-accumulate.
 
-use crate::num::{Raw, Sample};
+use crate::num::{Raw, Sample, Word};
 
 /// Counts of what happened to the values written into one tensor.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
@@ -24,15 +24,34 @@ pub struct Tally {
     pub saturations: u32,
     /// Updates lost to rounding: the exact update was not zero, the applied one was.
     pub lost_updates: u32,
+    /// Values in the outer half of the word's range, saturated ones included: the values that
+    /// would have saturated with one more fraction bit. Dynamic fixed point gains a bit only
+    /// when these are rare (see [`crate::train`]'s `dynamic` rule).
+    pub high: u32,
 }
 
 impl Tally {
-    /// Records one written value, saturated or not.
+    /// Records one written value, saturated or not, without its magnitude (for values that
+    /// never move format: weights, masters, momentum).
     #[inline]
     pub fn note(&mut self, saturated: bool) {
         self.values = self.values.saturating_add(1);
         if saturated {
             self.saturations = self.saturations.saturating_add(1);
+            self.high = self.high.saturating_add(1);
+        }
+    }
+
+    /// Records one written raw value `q` of a tensor stored in `word`: saturated or not, and
+    /// whether it lies in the outer half of the range ([`Tally::high`]).
+    #[inline]
+    pub fn note_value(&mut self, q: i32, word: Word, saturated: bool) {
+        self.values = self.values.saturating_add(1);
+        if saturated {
+            self.saturations = self.saturations.saturating_add(1);
+        }
+        if saturated || outer_half(q, word) {
+            self.high = self.high.saturating_add(1);
         }
     }
 
@@ -41,7 +60,17 @@ impl Tally {
         self.values = self.values.saturating_add(o.values);
         self.saturations = self.saturations.saturating_add(o.saturations);
         self.lost_updates = self.lost_updates.saturating_add(o.lost_updates);
+        self.high = self.high.saturating_add(o.high);
     }
+}
+
+/// Whether the raw value `q` of `word` would saturate if the format had one more fraction bit
+/// (its raw value doubled): `2q > max` or `2q < min`, that is `q ≥ 2^(b−2)` or `q < −2^(b−2)`
+/// for a `b`-bit word.
+#[inline]
+pub const fn outer_half(q: i32, word: Word) -> bool {
+    let h = 1i32 << (word.bits() - 2);
+    q >= h || q < -h
 }
 
 /// Which accumulator a dot product of `n` terms of these words needs.

@@ -65,7 +65,7 @@ pub const FLOAT_PLAN: hone_core::plan::Plan =
 pub const FLOAT_ARENA_WORDS: usize = FLOAT_PLAN.ram_words();
 
 /// Bytes of the buffer a checkpoint is written into (the longest checkpoint of this model).
-pub const CHECKPOINT_BYTES: usize = 909;
+pub const CHECKPOINT_BYTES: usize = 1149;
 
 pub static SESSION: hone_fw::train::Session<'static> = hone_fw::train::Session {
     input: INPUT,

@@ -470,7 +470,7 @@ impl<'a, R: Real> Twin<'a, R> {
                     sum += (v - zmax).exp();
                 }
                 for (j, g) in gy.iter_mut().enumerate() {
-                    let p = (y[j] - zmax).exp() / sum;
+                    let p = (y.get(j).copied().unwrap_or(zmax) - zmax).exp() / sum;
                     *g = if j == c as usize { p - R::ONE } else { p };
                 }
                 let zc = y.get(c as usize).copied().unwrap_or(R::ZERO);

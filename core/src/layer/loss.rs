@@ -145,7 +145,7 @@ pub fn softmax_cross_entropy(
             };
             let (v, sat_word) = g.fmt.word.saturate(q);
             g.raw.put(j, v);
-            t.note(sat || sat_word);
+            t.note_value(v, g.fmt.word, sat || sat_word);
         }
     }
     // −ln p = ln S' + (zmax − z_label), with S' = sum · 2^-30 ≥ 1.

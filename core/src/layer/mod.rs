@@ -97,7 +97,7 @@ impl Rounder<'_> {
     ) {
         let (q, sat) = requantize(v, from_frac, out.fmt, self.mode, self.rng);
         out.raw.put(i, q);
-        tally.note(sat || sat_before);
+        tally.note_value(q, out.fmt.word, sat || sat_before);
     }
 
     /// Adds the outer-product row `g · x[0..n]` into `acc[start..start + n]`, each product
@@ -156,7 +156,7 @@ impl Rounder<'_> {
         let (q, sat) =
             crate::num::round::requantize_wide(v, from_frac, out.fmt, self.mode, self.rng);
         out.raw.put(i, q);
-        tally.note(sat || sat_before);
+        tally.note_value(q, out.fmt.word, sat || sat_before);
     }
 
     /// Like [`Rounder::store`] for `v / den`, rounded once.
@@ -172,7 +172,7 @@ impl Rounder<'_> {
     ) {
         let (q, sat) = requantize_div(v, from_frac, den, out.fmt, self.mode, self.rng);
         out.raw.put(i, q);
-        tally.note(sat);
+        tally.note_value(q, out.fmt.word, sat);
     }
 
     /// Adds `v` (with `from_frac` fraction bits) into the accumulator `acc[i]`: the addend is
@@ -193,7 +193,11 @@ impl Rounder<'_> {
         let (sum, sat_add) = crate::kernel::add_sat(acc.raw.at(i) as i64, add);
         let (q, sat_word) = acc.fmt.word.saturate(sum);
         acc.raw.put(i, q);
-        tally.note(sat_before || sat_shift || sat_add || sat_word);
+        tally.note_value(
+            q,
+            acc.fmt.word,
+            sat_before || sat_shift || sat_add || sat_word,
+        );
     }
 }
 
@@ -211,17 +215,20 @@ fn outer_row<A: Sample, X: Sample>(
     rng: &mut Rng,
     tally: &mut Tally,
 ) {
-    let mut sats = 0u32;
+    let (mut sats, mut high) = (0u32, 0u32);
     for (a, xi) in acc.iter_mut().zip(x.iter()) {
         let (add, s1) =
             crate::num::round::rescale(g * xi.to_i32() as i64, from_frac, to_frac, mode, rng);
         let (sum, s2) = crate::kernel::add_sat(a.to_i32() as i64, add);
         let (q, s3) = A::WORD.saturate(sum);
         *a = A::from_i32_in_range(q);
-        sats += (s1 || s2 || s3) as u32;
+        let sat = s1 || s2 || s3;
+        sats += sat as u32;
+        high += (sat || crate::kernel::outer_half(q, A::WORD)) as u32;
     }
     tally.values = tally.values.saturating_add(acc.len().min(x.len()) as u32);
     tally.saturations = tally.saturations.saturating_add(sats);
+    tally.high = tally.high.saturating_add(high);
 }
 
 /// The parameters of a layer as read by forward and backward.

@@ -39,20 +39,15 @@ impl Trainer<'_> {
         for (f, l) in fracs.iter_mut().zip(self.live.iter()) {
             *f = [l.out, l.grad, l.accum_weight, l.accum_bias];
         }
-        let mut window = [[0u32; 8]; MAX_LAYERS];
+        let mut window = [[0u32; 12]; MAX_LAYERS];
         for (w, (now, mark)) in window
             .iter_mut()
             .zip(self.stats.iter().zip(self.marks.iter()))
         {
-            let pairs = [
-                (now.out, mark.out),
-                (now.grad, mark.grad),
-                (now.accum_weight, mark.accum_weight),
-                (now.accum_bias, mark.accum_bias),
-            ];
-            for (i, (n, m)) in pairs.iter().enumerate() {
+            for (i, (n, m)) in now.moving().iter().zip(mark.iter()).enumerate() {
                 w[i] = n.values.saturating_sub(m.values);
                 w[4 + i] = n.saturations.saturating_sub(m.saturations);
+                w[8 + i] = n.high.saturating_sub(m.high);
             }
         }
         TrainState {
@@ -194,16 +189,13 @@ impl Trainer<'_> {
     /// interval. Statistics restart from those counts; the history before them is not kept.
     ///
     /// # Errors
-    /// [`BlobError::StateMismatch`] for the all-zero generator state or fraction bits above
-    /// [`crate::num::MAX_FRAC`]; nothing is changed then.
+    /// [`BlobError::StateMismatch`] for the all-zero generator state, or fraction bits the
+    /// description rules out (other than its own where they cannot move: every tensor without
+    /// dynamic fixed point, and the unused layer slots; above [`crate::num::MAX_FRAC`]);
+    /// nothing is changed then.
     pub fn set_train_state(&mut self, state: &TrainState) -> Result<(), Error> {
         let rng = Rng::from_state(state.rng).ok_or(BlobError::StateMismatch)?;
-        if state
-            .fracs
-            .iter()
-            .flatten()
-            .any(|&f| f > crate::num::MAX_FRAC)
-        {
+        if !crate::blob::state_fracs_fit(self.desc, state) {
             return Err(BlobError::StateMismatch.into());
         }
         self.steps = state.steps;
@@ -235,9 +227,10 @@ impl Trainer<'_> {
             {
                 t.values = w[i];
                 t.saturations = w[4 + i];
+                t.high = w[8 + i];
             }
             *st = s;
-            *mark = super::LayerStats::default();
+            *mark = [crate::kernel::Tally::default(); 4];
         }
         Ok(())
     }
@@ -258,7 +251,7 @@ impl Trainer<'_> {
         }
         self.reinit_from_values();
         // A new interval of dynamic fixed point starts from the factory weights.
-        self.marks = self.stats;
+        self.mark_interval();
         Ok(())
     }
 
@@ -334,6 +327,58 @@ mod tests {
             ],
             [(i * 13 % 1024) as i16, -300],
         )
+    }
+
+    /// A state cannot move a format the description fixes: without dynamic fixed point every
+    /// fraction bit must be the description's, and unused layer slots must be zero, both for
+    /// `set_train_state` and for a decoded checkpoint.
+    #[test]
+    fn state_fracs_must_fit_the_description() {
+        let dynamic = desc();
+        let mut fixed = desc();
+        fixed.train.dynamic = None;
+        let w0 = [1i8; 18];
+        let (b0, w2, b2) = ([0i8; 6], [2i8; 12], [0i8; 2]);
+        let init = [
+            LayerParams {
+                weight: Raw::I8(&w0),
+                bias: Raw::I8(&b0),
+            },
+            LayerParams::NONE,
+            LayerParams {
+                weight: Raw::I8(&w2),
+                bias: Raw::I8(&b2),
+            },
+        ];
+        for (d, moves) in [(&dynamic, true), (&fixed, false)] {
+            let plan = Plan::of(d).unwrap();
+            let mut arena = vec![0u32; plan.ram_words()];
+            let mut t = Trainer::new(d, &plan, &mut arena, &init).unwrap();
+            let good = t.train_state();
+            assert_eq!(good.fracs[2], [11, 13, 24, 24]);
+            let mut moved = good;
+            moved.fracs[2][0] += 1;
+            let mut stray = good;
+            stray.fracs[5] = [1, 0, 0, 0];
+            let mismatch = Err(crate::Error::Blob(blob::BlobError::StateMismatch));
+            for (state, ok) in [(good, true), (moved, moves), (stray, false)] {
+                let want = if ok { Ok(()) } else { mismatch };
+                assert_eq!(
+                    t.set_train_state(&state),
+                    want,
+                    "dynamic {moves}: {state:?}"
+                );
+                let mut body = t.checkpoint_body(&[]).unwrap();
+                body.state = Some(state);
+                let mut buf = [0u8; 2048];
+                let n = blob::encode(&body, &mut buf).unwrap();
+                assert_eq!(
+                    blob::decode(&buf[..n]).map(|_| ()),
+                    want,
+                    "decode, dynamic {moves}"
+                );
+            }
+        }
     }
 
     #[test]

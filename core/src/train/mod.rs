@@ -71,6 +71,14 @@ pub struct LayerStats {
     pub accum_bias: Tally,
 }
 
+impl LayerStats {
+    /// The tallies of the tensors dynamic fixed point moves: output, gradient, weight
+    /// accumulator, bias accumulator.
+    pub fn moving(&self) -> [Tally; 4] {
+        [self.out, self.grad, self.accum_weight, self.accum_bias]
+    }
+}
+
 /// The result of one training step.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
@@ -97,7 +105,9 @@ pub struct Trainer<'a> {
     steps: u32,
     updates: u32,
     stats: [LayerStats; MAX_LAYERS],
-    marks: [LayerStats; MAX_LAYERS],
+    /// The moving tensors' tallies at the start of the current dynamic-fixed-point interval:
+    /// output, gradient, weight accumulator, bias accumulator ([`LayerStats::moving`]).
+    marks: [[Tally; 4]; MAX_LAYERS],
 }
 
 /// Cuts disjoint mutable pieces out of the arena, one per slot (see [`split_disjoint`]).
@@ -128,7 +138,9 @@ impl<'a> Trainer<'a> {
     /// (one entry per layer).
     ///
     /// # Errors
-    /// [`Error::PlanMismatch`] if `plan` is not the plan of `desc`; [`Error::ArenaTooSmall`];
+    /// [`Error::PlanMismatch`] if `plan` was not made for `desc` (the fingerprint of the
+    /// description it carries differs; a plan is made by [`Plan::of`] or [`Plan::new`], and its
+    /// layout is trusted, not re-derived); [`Error::ArenaTooSmall`];
     /// [`Error::Params`] if an initial tensor has the wrong word or length; the description's
     /// own errors.
     pub fn new(
@@ -189,7 +201,7 @@ impl<'a> Trainer<'a> {
             steps: 0,
             updates: 0,
             stats: [LayerStats::default(); MAX_LAYERS],
-            marks: [LayerStats::default(); MAX_LAYERS],
+            marks: [[Tally::default(); 4]; MAX_LAYERS],
         };
         t.load(init)?;
         Ok(t)
@@ -831,19 +843,18 @@ impl<'a> Trainer<'a> {
     fn adjust_fracs(&mut self, rule: crate::model::DynamicRule) {
         for k in 0..self.desc.layers.len() {
             let now = self.stats[k];
-            let mark = self.marks[k];
+            let [m_out, m_grad, m_acc_w, m_acc_b] = self.marks[k];
             let l = *self.layer(k);
             let live = &mut self.live[k];
-            live.out = dynamic::adjust(live.out, &now.out, &mark.out, rule);
-            live.grad = dynamic::adjust(live.grad, &now.grad, &mark.grad, rule);
+            live.out = dynamic::adjust(live.out, &now.out, &m_out, rule);
+            live.grad = dynamic::adjust(live.grad, &now.grad, &m_grad, rule);
             let s = self.plan.layers[k];
             let old = (live.accum_weight, live.accum_bias);
             if s.accum_weight.is_some() {
-                live.accum_weight =
-                    dynamic::adjust(old.0, &now.accum_weight, &mark.accum_weight, rule);
+                live.accum_weight = dynamic::adjust(old.0, &now.accum_weight, &m_acc_w, rule);
             }
             if s.accum_bias.is_some() {
-                live.accum_bias = dynamic::adjust(old.1, &now.accum_bias, &mark.accum_bias, rule);
+                live.accum_bias = dynamic::adjust(old.1, &now.accum_bias, &m_acc_b, rule);
             }
             let new = (live.accum_weight, live.accum_bias);
             // Momentum lives in the accumulator format: rescale it with the accumulator.
@@ -875,10 +886,22 @@ impl<'a> Trainer<'a> {
             }
             // Momentum clipped by a finer format is counted with its accumulator.
             let st = &mut self.stats[k];
-            st.accum_weight.saturations = st.accum_weight.saturations.saturating_add(sats[0]);
-            st.accum_bias.saturations = st.accum_bias.saturations.saturating_add(sats[1]);
+            for (t, n) in [
+                (&mut st.accum_weight, sats[0]),
+                (&mut st.accum_bias, sats[1]),
+            ] {
+                t.saturations = t.saturations.saturating_add(n);
+                t.high = t.high.saturating_add(n);
+            }
         }
-        self.marks = self.stats;
+        self.mark_interval();
+    }
+
+    /// Starts a new dynamic-fixed-point interval from the current tallies.
+    fn mark_interval(&mut self) {
+        for (m, s) in self.marks.iter_mut().zip(self.stats.iter()) {
+            *m = s.moving();
+        }
     }
 }
 
@@ -1034,6 +1057,67 @@ mod tests {
             after * 20 < before,
             "loss only fell from {before} to {after}"
         );
+    }
+
+    /// Dynamic fixed point settles instead of swinging: an output that fills more than half
+    /// its range keeps its format, and a small one gains bits only while doubling it would
+    /// not saturate. A rule on the saturation rate alone would move the first between 12 and
+    /// 13 fraction bits on every interval.
+    #[test]
+    fn dynamic_formats_settle() {
+        let settle = |bias: i16| -> std::vec::Vec<u8> {
+            let input = QFormat::new_unchecked(Word::I16, 10);
+            let p = ParamFormats::plain(QFormat::new_unchecked(Word::I16, 12), 24);
+            let layers = [LayerDesc {
+                kind: LayerKind::Dense { units: 1 },
+                mode: TrainMode::Full,
+                weight: p,
+                bias: p,
+                out: QFormat::new_unchecked(Word::I16, 12),
+                grad: QFormat::new_unchecked(Word::I16, 12),
+            }];
+            // Learning rate zero: the output stays `bias` while the formats move.
+            let mut t = TrainDesc::sgd(QScalar::ZERO);
+            t.dynamic = Some(crate::model::DynamicRule {
+                max_rate_ppm: 100,
+                interval: 1,
+            });
+            let desc =
+                ModelDesc::new(Shape::vector(1), input, &layers, Loss::SquaredError, t).unwrap();
+            let plan = Plan::of(&desc).unwrap();
+            let mut arena = std::vec![0u32; plan.ram_words()];
+            let (w, b) = ([0i16], [bias]);
+            let init = [LayerParams {
+                weight: Raw::I16(&w),
+                bias: Raw::I16(&b),
+            }];
+            let mut tr = Trainer::new(&desc, &plan, &mut arena, &init).unwrap();
+            let (x, y) = ([1024i16], [0i16]);
+            let mut fracs = std::vec::Vec::new();
+            for _ in 0..30 {
+                tr.step(
+                    Tensor {
+                        raw: Raw::I16(&x),
+                        fmt: input,
+                    },
+                    Target::Values(Tensor {
+                        raw: Raw::I16(&y),
+                        fmt: input,
+                    }),
+                )
+                .unwrap();
+                fracs.push(tr.live_fracs(0).unwrap().out);
+            }
+            fracs
+        };
+        // 5.0 in Q3.12 is 20 480, in the outer half of i16 (≥ 2^14): 13 bits would saturate.
+        let big = settle(5 << 12);
+        assert!(big.iter().all(|&f| f == 12), "{big:?}");
+        // 0.3 (1 229 in Q3.12): 0.3 · 2^16 = 19 661 < 2^15 fits, 0.3 · 2^17 does not, and
+        // from 16 bits on the value is in the outer half, so the format stops at 16.
+        let small = settle(1229);
+        assert_eq!(small[..4], [13, 14, 15, 16], "{small:?}");
+        assert!(small[4..].iter().all(|&f| f == 16), "{small:?}");
     }
 
     #[test]

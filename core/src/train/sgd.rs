@@ -15,7 +15,10 @@
 //!    into the value format.
 //!
 //! Steps 1, 3, 4 and 5 round with the plan's *updates* rounding. An update is **lost** when
-//! the exact `lr·g` is not zero and the rounded `Δ` is: the weight could not move.
+//! the weight had a reason to move (the accumulated gradient `acc`, or the exact `lr·g` after
+//! decay and momentum, is not zero) and the rounded `Δ` is zero: the weight could not move,
+//! whether the step vanished in the batch division (step 1) or in the final rounding (step 5).
+//! Products that vanish while they are summed into `acc` are not updates and are not counted.
 
 use crate::kernel::{add_sat, Tally};
 use crate::layer::TensorMut;
@@ -85,7 +88,8 @@ pub fn update(
     } = t;
     let n = value.raw.len();
     for i in 0..n {
-        let mut g = div_round(accum.raw.at(i) as i64, cfg.samples as i64, cfg.mode, rng);
+        let sum = accum.raw.at(i) as i64;
+        let mut g = div_round(sum, cfg.samples as i64, cfg.mode, rng);
         accum.raw.put(i, 0);
         if let Some(c) = clip {
             g = g.clamp(-c, c);
@@ -106,6 +110,7 @@ pub fn update(
             g = sum;
             if sat {
                 accum_tally.saturations = accum_tally.saturations.saturating_add(1);
+                accum_tally.high = accum_tally.high.saturating_add(1);
             }
         }
         if let Some(m) = momentum.as_deref_mut() {
@@ -119,19 +124,20 @@ pub fn update(
             );
             let (v, sat) = acc_word.saturate(add_sat(decayed, g).0);
             m.raw.put(i, v);
-            accum_tally.note(sat);
+            accum_tally.note_value(v, acc_word, sat);
             g = v as i64;
         } else {
             let (v, sat) = acc_word.saturate(g);
             if sat {
                 accum_tally.saturations = accum_tally.saturations.saturating_add(1);
+                accum_tally.high = accum_tally.high.saturating_add(1);
             }
             g = v as i64;
         }
         // |lr| < 2^31 and |g| ≤ 2^31, so the exact product fits in 63 bits.
         let exact = cfg.lr.raw as i64 * g;
         let (delta, sat_delta) = rescale(exact, cfg.lr.frac as u32 + fa, fw, cfg.mode, rng);
-        if exact != 0 && delta == 0 {
+        if (sum != 0 || exact != 0) && delta == 0 {
             tally.lost_updates = tally.lost_updates.saturating_add(1);
         }
         let (sum, sat_sub) = add_sat(w, delta.saturating_neg());
@@ -145,6 +151,7 @@ pub fn update(
                 value.raw.put(i, v);
                 if sat_v {
                     tally.saturations = tally.saturations.saturating_add(1);
+                    tally.high = tally.high.saturating_add(1);
                 }
             }
             None => {
@@ -153,5 +160,68 @@ pub fn update(
                 tally.note(sat || sat_delta || sat_sub);
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::num::{QFormat, RawMut, Word};
+
+    /// One update of a single weight from an accumulated gradient `sum` over `samples`.
+    fn lost_after(sum: i32, samples: u32, lr: QScalar) -> (Tally, i16) {
+        let mut w = [1000i16];
+        let mut a = [sum];
+        let mut value = TensorMut {
+            raw: RawMut::I16(&mut w),
+            fmt: QFormat::new_unchecked(Word::I16, 12),
+        };
+        let mut accum = TensorMut {
+            raw: RawMut::I32(&mut a),
+            fmt: QFormat::new_unchecked(Word::I32, 24),
+        };
+        let cfg = UpdateConfig {
+            lr,
+            momentum: QScalar::ZERO,
+            decay: QScalar::ZERO,
+            clip: QScalar::ZERO,
+            samples,
+            mode: Rounding::NearestEven,
+        };
+        let (mut tally, mut accum_tally) = (Tally::default(), Tally::default());
+        let t = UpdateTensors {
+            value: &mut value,
+            master: None,
+            accum: &mut accum,
+            momentum: None,
+        };
+        update(t, &cfg, &mut Rng::new(1), &mut tally, &mut accum_tally);
+        (tally, w[0])
+    }
+
+    #[test]
+    fn updates_lost_in_the_batch_division_or_the_final_rounding_are_counted() {
+        let one = QScalar { raw: 1, frac: 0 };
+        // A gradient sum of one accumulator step over 4 samples rounds to 0 at the division.
+        assert_eq!(
+            lost_after(1, 4, one),
+            (
+                Tally {
+                    values: 1,
+                    lost_updates: 1,
+                    ..Tally::default()
+                },
+                1000
+            )
+        );
+        // 2^12 steps of the accumulator are one step of the weight: it moves, nothing lost.
+        assert_eq!(lost_after(4 << 12, 4, one).0.lost_updates, 0);
+        assert_eq!(lost_after(4 << 12, 4, one).1, 999);
+        // The division keeps 2^10 accumulator steps, but the learning rate 1/8 leaves 1/32 of
+        // a weight step: lost in the final rounding.
+        let eighth = QScalar { raw: 1, frac: 3 };
+        assert_eq!(lost_after(4 << 10, 4, eighth).0.lost_updates, 1);
+        // No gradient: nothing to lose.
+        assert_eq!(lost_after(0, 4, one).0.lost_updates, 0);
     }
 }
