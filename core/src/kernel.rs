@@ -98,8 +98,9 @@ pub const fn acc_kind(bits_a: u32, bits_b: u32, n: usize) -> AccKind {
 }
 
 /// Exact (or saturating, and then flagged) dot product of two strided sequences.
-/// `a` is read at `a_off + i·a_step`, `b` at `b_off + i·b_step`, for `i < n`; indices past
-/// the end of either slice end the sum early (callers check bounds beforehand).
+/// `a` is read at `a_off + i·a_step`, `b` at `b_off + i·b_step`, for `i < n` (a step of 0
+/// counts as 1); indices past the end of either slice end the sum early (callers check bounds
+/// beforehand).
 /// Returns the sum and whether it saturated.
 #[inline]
 pub fn dot_typed<A: Sample, B: Sample>(

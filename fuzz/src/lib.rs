@@ -79,7 +79,11 @@ pub fn check_round_trip(body: &BlobBody<'_>) {
 /// Decodes `bytes` as a blob and, if it is valid, runs [`check_round_trip`].
 pub fn check_blob(bytes: &[u8]) -> Option<CheckedBlob<'_>> {
     let checked = blob::decode(bytes).ok()?;
-    check_round_trip(&checked.to_body().expect("a decoded blob gathers its tensors"));
+    check_round_trip(
+        &checked
+            .to_body()
+            .expect("a decoded blob gathers its tensors"),
+    );
     Some(checked)
 }
 
@@ -259,7 +263,8 @@ fn snapshot(t: &Trainer<'_>) -> Vec<Option<(Owned, Owned)>> {
 /// Restores a trainer from a checked blob and runs it, if the blob's model fits the budget
 /// ([`MAX_ARENA_WORDS`], [`MAX_FORWARD_MACS`]). Invariants checked:
 ///
-/// - a trainer builds for every checked description (from deterministic initial values);
+/// - a trainer builds for every checked description (from deterministic initial values), and
+///   restores from the blob;
 /// - a guarded calibration session with the blob as last good runs without error, and on
 ///   rejection leaves the parameters bit-identical to those right after the restore;
 /// - the checkpoint the trainer then writes decodes, and a fresh trainer restored from it
@@ -280,11 +285,14 @@ pub fn exercise_trainer(checked: &CheckedBlob<'_>, input: &[u8]) -> bool {
     let init = layer_params(&init);
     let mut arena = vec![0u32; plan.ram_words()];
     let mut t = Trainer::new(desc, &plan, &mut arena, &init).expect("a checked model builds");
-    // The blob may carry a tensor the trainer keeps no buffer for (a frozen layer's values in a
-    // checkpoint); `restore` refuses that with a typed error, which is fine.
-    if t.restore(checked).is_err() {
-        return false;
-    }
+    // `blob::decode` admits only the tensors a blob of its kind may carry for its own
+    // description (a checkpoint carries the trained tensors alone, so never a frozen layer's
+    // values), each in the format the description or the state gives it, and the trainer was
+    // built from that description: restoring must succeed. A failure means the decoder and
+    // the trainer disagree about what a valid blob is; the panic is the crash the fuzzer
+    // reports.
+    t.restore(checked)
+        .expect("a checked blob restores into a trainer of its own description");
     let last_good = snapshot(&t);
     let outputs = plan.shapes.output.size();
     let mut s = Stream::new(input);

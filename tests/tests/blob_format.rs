@@ -331,9 +331,20 @@ fn random_body(genome: &[u8]) -> OwnedBody {
         Vec::new()
     };
     let state = (kind == BlobKind::Checkpoint).then(|| {
+        // Where formats can move (dynamic fixed point on), any fraction bits up to MAX_FRAC;
+        // else exactly the description's. Unused layer slots are zero, as a trainer writes.
         let mut fracs = [[0u8; 4]; MAX_LAYERS];
-        for f in fracs.iter_mut().flatten() {
-            *f = g.pick(u32::from(MAX_FRAC) + 1) as u8;
+        for (f, l) in fracs.iter_mut().zip(desc.layers.iter()) {
+            *f = if desc.train.dynamic.is_some() {
+                std::array::from_fn(|_| g.pick(u32::from(MAX_FRAC) + 1) as u8)
+            } else {
+                [
+                    l.out.frac,
+                    l.grad.frac,
+                    l.weight.accum.frac,
+                    l.bias.accum.frac,
+                ]
+            };
         }
         TrainState {
             steps: u32::from_le_bytes(std::array::from_fn(|_| g.byte())),
@@ -499,6 +510,10 @@ fn reference(kind: BlobKind) -> OwnedBody {
     ];
     let mut t = TrainDesc::sgd(QScalar::from_f64(0.1, 16).unwrap());
     t.momentum = QScalar::from_f64(0.5, 8).unwrap();
+    t.dynamic = Some(DynamicRule {
+        max_rate_ppm: 100,
+        interval: 4,
+    });
     let desc = ModelDesc::new(Shape::vector(3), v, &layers, Loss::SquaredError, t).unwrap();
     let bytes = |n: usize, seed: u8| -> Vec<u8> {
         (0..n)
@@ -533,14 +548,13 @@ fn reference(kind: BlobKind) -> OwnedBody {
             rng: [1, 2, 3, 4],
             // Layer 0's weight accumulator has moved to 22 fraction bits (dynamic fixed
             // point); its momentum tensor carries that format.
-            fracs: std::array::from_fn(|k| {
-                if k == 0 {
-                    [11, 13, 22, 24]
-                } else {
-                    [11, 13, 24, 24]
-                }
+            // Unused layer slots are zero, as a trainer writes them.
+            fracs: std::array::from_fn(|k| match k {
+                0 => [11, 13, 22, 24],
+                1 | 2 => [11, 13, 24, 24],
+                _ => [0; 4],
             }),
-            window: [[0; 8]; MAX_LAYERS],
+            window: [[0; 12]; MAX_LAYERS],
         }),
         tensors,
     }
@@ -713,8 +727,20 @@ fn state_must_match_the_kind() {
     b.state.as_mut().unwrap().rng = [0; 4];
     assert_eq!(decode_err(&b), mismatch, "all-zero generator state");
     let mut b = reference(BlobKind::Checkpoint);
-    b.state.as_mut().unwrap().fracs[3][2] = MAX_FRAC + 1;
+    b.state.as_mut().unwrap().fracs[2][0] = MAX_FRAC + 1;
     assert_eq!(decode_err(&b), mismatch, "fraction bits out of range");
+    let mut b = reference(BlobKind::Checkpoint);
+    b.state.as_mut().unwrap().fracs[3][2] = 1;
+    assert_eq!(
+        decode_err(&b),
+        mismatch,
+        "fraction bits in an unused layer slot"
+    );
+    // Without dynamic fixed point no format may move: layer 0's accumulator at 22 bits (the
+    // reference's moved format, its momentum tensor following it) is refused.
+    let mut b = reference(BlobKind::Checkpoint);
+    b.desc.train.dynamic = None;
+    assert_eq!(decode_err(&b), mismatch, "a fixed format moved");
 }
 
 #[test]

@@ -5,7 +5,7 @@
 //!    every layer kind, to 1e-9 relative;
 //! 2. the f64 twin against central finite differences of its own loss;
 //! 3. the fixed-point path against the f64 twin, in wide (32-bit) formats, within a tolerance
-//!    set by the formats and the lookup tables.
+//!    picked by hand from measured errors, not derived (see the test).
 
 use candle_core::{DType, Device, Tensor as Ct, Var, D};
 use hone_core::float::{FloatParams, FloatTarget, Twin};
@@ -68,7 +68,7 @@ fn every_kind(
             stride: 2,
         }), // (2, 25) -> (3, 12)
         simple(LayerKind::LeakyRelu { shift: 3 }),
-        // -> (3, 5) either way
+        // -> (3, 5) with overlap (window 3, stride 2), (3, 6) without (window 2, stride 2)
         simple(if overlap {
             LayerKind::MaxPool1d {
                 window: 3,
@@ -80,7 +80,7 @@ fn every_kind(
                 stride: 2,
             }
         }),
-        // -> (3, 3) with overlap, (3, 2) without
+        // -> (3, 3) either way: (5 − 3)/1 + 1 with overlap, (6 − 2)/2 + 1 without
         simple(if overlap {
             LayerKind::AvgPool1d {
                 window: 3,
@@ -395,6 +395,10 @@ fn fixed_point_gradients_track_the_twin() {
     // In 32-bit formats the fixed path's only sizeable errors are the sigmoid and tanh
     // tables (at most 2^-16 each, see core/src/approx) and roundings of 2^-25 and below, so
     // every gradient must agree with the twin to a small fraction of the largest gradient.
+    // How those errors add up through twelve layers is not worked out here: the tolerance,
+    // 1e-4 of the largest gradient, was picked by hand. On these seeds the worst error is
+    // below 8e-6 of the largest gradient (printed), a margin of more than 12; a gradient value
+    // off by a factor of two is caught whenever the value exceeds 1e-4 of the largest.
     for seed in 20..24u64 {
         for (loss, overlap) in [
             (Loss::SquaredError, true),
@@ -460,8 +464,13 @@ fn fixed_point_gradients_track_the_twin() {
                     }
                 }
             }
+            eprintln!(
+                "seed {seed} {loss:?}: worst gradient error {worst:.3e}, {:.3e} of the largest \
+                 gradient {scale:.3e}",
+                worst / scale
+            );
             assert!(
-                worst <= 2e-3 * scale,
+                worst <= 1e-4 * scale,
                 "seed {seed} {loss:?}: worst gradient error {worst} against scale {scale}"
             );
             assert!(

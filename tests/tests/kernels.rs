@@ -4,19 +4,33 @@
 //!   `round_ties_even` and `round_to_zero` for our rounding of a value with `k` fraction bits,
 //!   its float conversion `saturating_from_num` (documented as rounding to nearest, ties to
 //!   even) for our `from_f64_saturating`, and its `saturating_add` for accumulator adds;
-//! - exact `i128` arithmetic for everything else (rescaling, division, dot products, a whole
-//!   dense layer).
+//! - exact `i128` arithmetic for everything else: rescaling, division (`div_round`,
+//!   `requantize_div`), contiguous and strided dot products, and the dense, 1-D convolution,
+//!   average-pooling and max-pooling layers forward and the dense layer backward (input
+//!   gradient, weight- and bias-gradient accumulation), in every word size and under every
+//!   rounding mode.
+//!
+//! The layer references below are written from the core's documentation, not from its code:
+//! each layer sums exactly and rounds once per written value into the output format, with the
+//! named rounding (`core/src/layer/mod.rs`); an accumulator add rounds the addend into the
+//! accumulator's format and saturates the sum to its word (`Rounder::accumulate`); a dot
+//! product is exact unless its `i64` accumulator saturates, and then the saturation is counted
+//! (`core/src/kernel.rs`). Under stochastic rounding (Gupta et al. 2015, eq. 3) a result must
+//! be one of the two neighbours of the exact value, and the exact value itself when that is
+//! representable. Every written value and every saturation must be counted in the tallies.
 //!
 //! Proptest drives the inputs; every call must also return rather than panic.
 
 use fixed::types::extra::{U0, U1, U12, U15, U16, U24, U31, U40, U62, U7, U8};
 use fixed::{FixedI16, FixedI32, FixedI64, FixedI8};
 use hone_core::kernel::{dot, Tally};
-use hone_core::layer::{dense, Params, Rounder, Tensor, TensorMut};
+use hone_core::layer::{conv, dense, pool, BackOut, BackTally, Params, Rounder, Tensor, TensorMut};
 use hone_core::model::{LayerGeometry, Shape};
-use hone_core::num::round::{div_round, requantize, shift_right};
+use hone_core::num::round::{div_round, requantize, requantize_div, shift_right};
 use hone_core::num::{QFormat, Raw, RawMut, Rng, Rounding, Word};
+use hone_tests::Owned;
 use proptest::prelude::*;
+use proptest::test_runner::TestCaseError;
 
 /// `v / 2^s` rounded to nearest, ties to even, in exact integer arithmetic.
 fn oracle_shift_nearest(v: i64, s: u32) -> i128 {
@@ -161,36 +175,479 @@ proptest! {
         prop_assert_eq!(got_sat, sat);
         prop_assert_eq!(got as i128, acc);
     }
+}
+
+// Exact references for division and for the layers, written from the documentation.
+
+/// Every rounding mode.
+const MODES: [Rounding; 3] = [
+    Rounding::NearestEven,
+    Rounding::TowardZero,
+    Rounding::Stochastic,
+];
+
+/// `n / d` (`d > 0`) rounded by `mode`, exactly, before any clamp to a word: the same value
+/// twice for nearest-even and toward zero; for stochastic rounding the two neighbours
+/// `⌊n/d⌋` and `⌊n/d⌋ + 1`, or the exact quotient twice when `d` divides `n`.
+fn rounded(n: i128, d: i128, mode: Rounding) -> [i128; 2] {
+    assert!(d > 0);
+    match mode {
+        Rounding::NearestEven => [oracle_div_nearest(n, d); 2],
+        Rounding::TowardZero => [oracle_div_toward_zero(n, d); 2],
+        Rounding::Stochastic => {
+            let q = n.div_euclid(d);
+            if n.rem_euclid(d) == 0 {
+                [q, q]
+            } else {
+                [q, q + 1]
+            }
+        }
+    }
+}
+
+/// The real number `(Σ t·2^-f over the terms (t, f)) / den`, counted in steps of `2^-to` and
+/// rounded by `mode` (see [`rounded`]). All terms are brought to the finest scale first, so
+/// the sum and the one rounding are exact. Magnitudes in these tests stay below 2^101.
+fn exact_in_steps(terms: &[(i128, u32)], den: i128, to: u32, mode: Rounding) -> [i128; 2] {
+    let g = terms.iter().map(|&(_, f)| f).fold(to, u32::max);
+    let num: i128 = terms.iter().map(|&(t, f)| t << (g - f)).sum();
+    rounded(num, den << (g - to), mode)
+}
+
+/// What the documentation allows for one written value.
+#[derive(Clone, Copy, Debug)]
+struct Allowed {
+    /// The rounded exact value (or its two neighbours), before the clamp to the word.
+    cands: [i128; 2],
+    /// Whether the terms of the exact sum behind the value have magnitudes adding up past
+    /// `i64::MAX`, so that the kernel's `i64` accumulator may saturate: the value is then
+    /// free, but the saturation must be counted.
+    may_saturate: bool,
+}
+
+impl Allowed {
+    fn exact(cands: [i128; 2]) -> Allowed {
+        Allowed {
+            cands,
+            may_saturate: false,
+        }
+    }
+
+    /// The value `cands` of a sum of `products`.
+    fn sum(cands: [i128; 2], products: &[i128]) -> Allowed {
+        Allowed {
+            cands,
+            may_saturate: products.iter().map(|p| p.abs()).sum::<i128>() > i64::MAX as i128,
+        }
+    }
+}
+
+/// Checks the values written into a tensor of `word` against what the documentation allows,
+/// and the tally of those writes: every value is counted, and the saturations counted lie
+/// between those that must have been counted (the value is the clamp of an out-of-range
+/// result, or no allowed result at all) and those that may have been (stochastic rounding
+/// with one neighbour out of range, or an accumulator that may have saturated).
+fn check_written(
+    what: &str,
+    got: &[i32],
+    word: Word,
+    allowed: &[Allowed],
+    tally: &Tally,
+) -> Result<(), TestCaseError> {
+    prop_assert_eq!(got.len(), allowed.len());
+    let (lo, hi) = (word.min_raw() as i128, word.max_raw() as i128);
+    let (mut must, mut may) = (0u32, 0u32);
+    for (i, (&g, a)) in got.iter().zip(allowed).enumerate() {
+        // For each allowed result that clamps to the value: whether it was out of range.
+        let out: Vec<bool> = a
+            .cands
+            .iter()
+            .filter(|&&c| c.clamp(lo, hi) == g as i128)
+            .map(|&c| c < lo || c > hi)
+            .collect();
+        if out.is_empty() {
+            prop_assert!(
+                a.may_saturate,
+                "{} value {}: got {}, allowed {:?} clamped to {:?}",
+                what,
+                i,
+                g,
+                a.cands,
+                word
+            );
+            must += 1;
+            may += 1;
+        } else {
+            must += out.iter().all(|&o| o) as u32;
+            may += (a.may_saturate || out.iter().any(|&o| o)) as u32;
+        }
+    }
+    prop_assert_eq!(tally.values, got.len() as u32, "{}: values counted", what);
+    prop_assert!(
+        must <= tally.saturations && tally.saturations <= may,
+        "{}: {} saturations counted, expected {} to {}",
+        what,
+        tally.saturations,
+        must,
+        may
+    );
+    Ok(())
+}
+
+/// One drawn raw value: (kind, bits, shift), see [`draw`].
+type Spec = (u8, u32, u8);
+
+/// Values drawn per tensor; the shapes below need at most this many.
+const POOL: usize = 128;
+
+/// A raw value of `word`: its minimum or maximum, a value in −2..=2, or the low bits of `bits`
+/// sign-extended and shifted right by up to the word's width, so that every magnitude occurs.
+fn draw(word: Word, (kind, bits, shift): Spec) -> i32 {
+    let b = word.bits();
+    match kind % 8 {
+        0 => word.min_raw(),
+        1 => word.max_raw(),
+        2 => (bits % 5) as i32 - 2,
+        _ => ((bits as i32) << (32 - b)) >> (32 - b + shift as u32 % b),
+    }
+}
+
+fn specs() -> impl Strategy<Value = Vec<Spec>> {
+    prop::collection::vec(any::<Spec>(), POOL)
+}
+
+/// `n` values of `word` drawn from the first `n` specs.
+fn tensor(word: Word, specs: &[Spec], n: usize) -> Owned {
+    let v = specs[..n].iter().map(|&s| draw(word, s));
+    match word {
+        Word::I8 => Owned::I8(v.map(|x| x as i8).collect()),
+        Word::I16 => Owned::I16(v.map(|x| x as i16).collect()),
+        Word::I32 => Owned::I32(v.collect()),
+    }
+}
+
+fn zeros(word: Word, n: usize) -> Owned {
+    tensor(word, &vec![(2, 2, 0); n], n)
+}
+
+fn raw_mut(o: &mut Owned) -> RawMut<'_> {
+    match o {
+        Owned::I8(v) => RawMut::I8(v),
+        Owned::I16(v) => RawMut::I16(v),
+        Owned::I32(v) => RawMut::I32(v),
+    }
+}
+
+fn values(o: &Owned) -> Vec<i32> {
+    let r = o.raw();
+    (0..r.len()).map(|i| r.at(i)).collect()
+}
+
+fn fmt(word: Word, frac: u8) -> QFormat {
+    QFormat::new(word, frac).unwrap()
+}
+
+fn arb_i64() -> impl Strategy<Value = i64> {
+    prop_oneof![
+        any::<i64>(),
+        (any::<i64>(), 0u32..64).prop_map(|(v, s)| v >> s),
+        Just(i64::MIN),
+        Just(i64::MAX),
+    ]
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 4000, .. ProptestConfig::default() })]
+
+    #[test]
+    fn requantize_div_matches_exact_math(
+        v in arb_i64(),
+        word in arb_word(),
+        to_frac in arb_frac(),
+        delta in -31i32..=31,
+        den in prop_oneof![0u32..=20, any::<u32>()],
+        seed in any::<u64>(),
+    ) {
+        // `requantize_div` is documented exact for a shift `from − to` of at most 31 (formats
+        // have at most 31 fraction bits), which `delta` keeps; `den ≤ 1` is plain requantize.
+        let from = (to_frac as i32 + delta).max(0) as u32;
+        let to = fmt(word, to_frac);
+        let mut rng = Rng::new(seed);
+        for mode in MODES {
+            let (got, sat) = requantize_div(v, from, den, to, mode, &mut rng);
+            let den_exact = den.max(1) as i128;
+            let exact = exact_in_steps(&[(v as i128, from)], den_exact, to_frac as u32, mode);
+            let t = Tally { values: 1, saturations: sat as u32, ..Tally::default() };
+            let what = format!("{v} at {from} / {den} into {to} {mode:?}");
+            check_written(&what, &[got], word, &[Allowed::exact(exact)], &t)?;
+        }
+    }
+
+    #[test]
+    fn strided_dot_matches_exact_sum(
+        (wa, wb) in (arb_word(), arb_word()),
+        (sa, sb) in (specs(), specs()),
+        (la, lb) in (0usize..40, 0usize..40),
+        (a_off, b_off) in (0usize..44, 0usize..44),
+        (a_step, b_step) in (0usize..6, 0usize..6),
+        n in 0usize..48,
+    ) {
+        let (a, b) = (tensor(wa, &sa, la), tensor(wb, &sb, lb));
+        let (av, bv) = (values(&a), values(&b));
+        // Documented (core/src/kernel.rs): `a` is read at a_off + i·a_step and `b` at
+        // b_off + i·b_step for i < n, an index past the end of either ends the sum, and the
+        // products are added in that order, exactly, except that where the word sizes and
+        // length allow a sum beyond i64 (i32 × i32) the adds saturate and say so. A step of 0
+        // counts as 1.
+        let (step_a, step_b) = (a_step.max(1), b_step.max(1));
+        let mut acc: i128 = 0;
+        let mut sat = false;
+        for i in 0..n {
+            let (Some(&x), Some(&y)) = (av.get(a_off + i * step_a), bv.get(b_off + i * step_b))
+            else {
+                break;
+            };
+            acc += x as i128 * y as i128;
+            if acc > i64::MAX as i128 || acc < i64::MIN as i128 {
+                acc = acc.clamp(i64::MIN as i128, i64::MAX as i128);
+                sat = true;
+            }
+        }
+        let got = dot(a.raw(), a_off, a_step, b.raw(), b_off, b_step, n);
+        prop_assert_eq!(got, (acc as i64, sat));
+    }
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig { cases: 2000, .. ProptestConfig::default() })]
 
     #[test]
     fn dense_forward_matches_exact_math(
-        n_in in 1usize..24,
-        n_out in 1usize..6,
+        (n_in, n_out) in (1usize..24, 1usize..6),
+        (ww, wx, wb, wy) in (arb_word(), arb_word(), arb_word(), arb_word()),
+        (fw, fx, fb, fy) in (arb_frac(), arb_frac(), arb_frac(), arb_frac()),
+        (sw, sx, sb) in (specs(), specs(), specs()),
         seed in any::<u64>(),
-        fw in arb_frac(), fx in arb_frac(), fb in arb_frac(), fy in arb_frac(),
     ) {
-        let mut r = Rng::new(seed);
-        let w: Vec<i8> = (0..n_in * n_out).map(|_| r.next_u32() as i8).collect();
-        let x: Vec<i16> = (0..n_in).map(|_| r.next_u32() as i16).collect();
-        let b: Vec<i32> = (0..n_out).map(|_| r.next_u32() as i32 >> (r.next_u32() % 24)).collect();
-        let (wf, xf, bf, yf) = (QFormat::new(Word::I8, fw).unwrap(), QFormat::new(Word::I16, fx).unwrap(), QFormat::new(Word::I32, fb).unwrap(), QFormat::new(Word::I16, fy).unwrap());
-        let g = LayerGeometry { input: Shape::vector(n_in as u16), output: Shape::vector(n_out as u16), weights: (n_in * n_out) as u32, biases: n_out as u32, macs: 0 };
-        let mut y = vec![0i16; n_out];
-        let mut out = TensorMut { raw: RawMut::I16(&mut y), fmt: yf };
-        let mut rng = Rng::new(5);
-        let mut t = Tally::default();
-        let p = Params { w: Tensor { raw: Raw::I8(&w), fmt: wf }, b: Tensor { raw: Raw::I32(&b), fmt: bf } };
-        dense::forward(&g, p, Tensor { raw: Raw::I16(&x), fmt: xf }, &mut out, &mut Rounder { mode: Rounding::NearestEven, rng: &mut rng }, &mut t);
-        for j in 0..n_out {
-            // Exact: (Σ w x)·2^-(fw+fx) + b·2^-fb, as a fraction over 2^F with F the larger scale.
-            let fs = fw as u32 + fx as u32;
-            let f = fs.max(fb as u32);
-            let dotv: i128 = (0..n_in).map(|i| w[j * n_in + i] as i128 * x[i] as i128).sum();
-            let num = (dotv << (f - fs)) + ((b[j] as i128) << (f - fb as u32));
-            let exact = if f >= fy as u32 { oracle_div_nearest(num, 1i128 << (f - fy as u32)) } else { num << (fy as u32 - f) };
-            let clamped = exact.clamp(i16::MIN as i128, i16::MAX as i128);
-            prop_assert_eq!(y[j] as i128, clamped, "unit {}", j);
+        let (wf, xf, bf, yf) = (fmt(ww, fw), fmt(wx, fx), fmt(wb, fb), fmt(wy, fy));
+        let w = tensor(ww, &sw, n_in * n_out);
+        let (x, b) = (tensor(wx, &sx, n_in), tensor(wb, &sb, n_out));
+        let (wv, xv, bv) = (values(&w), values(&x), values(&b));
+        let g = LayerGeometry {
+            input: Shape::vector(n_in as u16),
+            output: Shape::vector(n_out as u16),
+            weights: (n_in * n_out) as u32,
+            biases: n_out as u32,
+            macs: 0,
+        };
+        let p = Params {
+            w: Tensor { raw: w.raw(), fmt: wf },
+            b: Tensor { raw: b.raw(), fmt: bf },
+        };
+        let xt = Tensor { raw: x.raw(), fmt: xf };
+        for mode in MODES {
+            let mut y = zeros(wy, n_out);
+            let mut rng = Rng::new(seed);
+            let mut r = Rounder { mode, rng: &mut rng };
+            let mut t = Tally::default();
+            let mut out = TensorMut { raw: raw_mut(&mut y), fmt: yf };
+            dense::forward(&g, p, xt, &mut out, &mut r, &mut t);
+            // y_j = Σ_i W_ji x_i + b_j (weights [unit][input]), rounded once.
+            let allowed: Vec<Allowed> = (0..n_out)
+                .map(|j| {
+                    let prods: Vec<i128> =
+                        (0..n_in).map(|i| wv[j * n_in + i] as i128 * xv[i] as i128).collect();
+                    let dot = prods.iter().sum();
+                    let terms = [(dot, (fw + fx) as u32), (bv[j] as i128, fb as u32)];
+                    Allowed::sum(exact_in_steps(&terms, 1, fy as u32, mode), &prods)
+                })
+                .collect();
+            check_written(&format!("dense forward {mode:?}"), &values(&y), wy, &allowed, &t)?;
         }
-        prop_assert_eq!(t.values, n_out as u32);
+    }
+
+    #[test]
+    fn dense_backward_matches_exact_math(
+        (n_in, n_out) in (1usize..=12, 1usize..=6),
+        (ww, wx, wg) in (arb_word(), arb_word(), arb_word()),
+        (wgx, waw, wab) in (arb_word(), arb_word(), arb_word()),
+        (fw, fx, fg) in (arb_frac(), arb_frac(), arb_frac()),
+        (fgx, faw, fab) in (arb_frac(), arb_frac(), arb_frac()),
+        (sw, sx, sg, saw, sab) in (specs(), specs(), specs(), specs(), specs()),
+        seed in any::<u64>(),
+    ) {
+        let (wf, xf, gf) = (fmt(ww, fw), fmt(wx, fx), fmt(wg, fg));
+        let (gxf, awf, abf) = (fmt(wgx, fgx), fmt(waw, faw), fmt(wab, fab));
+        let w = tensor(ww, &sw, n_in * n_out);
+        let (x, gy) = (tensor(wx, &sx, n_in), tensor(wg, &sg, n_out));
+        let (wv, xv, gv) = (values(&w), values(&x), values(&gy));
+        // The accumulators start from drawn values, so that adds can saturate.
+        let (aw0, ab0) = (tensor(waw, &saw, n_in * n_out), tensor(wab, &sab, n_out));
+        let (awv, abv) = (values(&aw0), values(&ab0));
+        let g = LayerGeometry {
+            input: Shape::vector(n_in as u16),
+            output: Shape::vector(n_out as u16),
+            weights: (n_in * n_out) as u32,
+            biases: n_out as u32,
+            macs: 0,
+        };
+        // The bias values do not enter the backward pass.
+        let p = Params { w: Tensor { raw: w.raw(), fmt: wf }, b: Tensor::EMPTY };
+        let (xt, gt) = (Tensor { raw: x.raw(), fmt: xf }, Tensor { raw: gy.raw(), fmt: gf });
+        for mode in MODES {
+            let (mut gx, mut aw, mut ab) = (zeros(wgx, n_in), aw0.clone(), ab0.clone());
+            let mut rng = Rng::new(seed);
+            let mut r = Rounder { mode, rng: &mut rng };
+            let mut t = BackTally::default();
+            let out = BackOut {
+                gx: Some(&mut TensorMut { raw: raw_mut(&mut gx), fmt: gxf }),
+                acc_w: Some(&mut TensorMut { raw: raw_mut(&mut aw), fmt: awf }),
+                acc_b: Some(&mut TensorMut { raw: raw_mut(&mut ab), fmt: abf }),
+            };
+            dense::backward(&g, p, xt, gt, out, &mut r, &mut t);
+            // ∂L/∂x_i = Σ_j W_ji g_j, exact, rounded once into the input gradient's format.
+            let want: Vec<Allowed> = (0..n_in)
+                .map(|i| {
+                    let prods: Vec<i128> =
+                        (0..n_out).map(|j| wv[j * n_in + i] as i128 * gv[j] as i128).collect();
+                    let terms = [(prods.iter().sum(), (fw + fg) as u32)];
+                    Allowed::sum(exact_in_steps(&terms, 1, fgx as u32, mode), &prods)
+                })
+                .collect();
+            let what = format!("dense input gradient {mode:?}");
+            check_written(&what, &values(&gx), wgx, &want, &t.gx)?;
+            // ∂L/∂W_ji += g_j x_i: the addend rounded into the accumulator's format, the sum
+            // saturated to its word.
+            let want: Vec<Allowed> = (0..n_out * n_in)
+                .map(|k| {
+                    let gx_prod = gv[k / n_in] as i128 * xv[k % n_in] as i128;
+                    let add = exact_in_steps(&[(gx_prod, (fg + fx) as u32)], 1, faw as u32, mode);
+                    Allowed::exact(add.map(|a| awv[k] as i128 + a))
+                })
+                .collect();
+            let what = format!("dense weight gradient {mode:?}");
+            check_written(&what, &values(&aw), waw, &want, &t.acc_w)?;
+            // ∂L/∂b_j += g_j, likewise.
+            let want: Vec<Allowed> = (0..n_out)
+                .map(|j| {
+                    let add = exact_in_steps(&[(gv[j] as i128, fg as u32)], 1, fab as u32, mode);
+                    Allowed::exact(add.map(|a| abv[j] as i128 + a))
+                })
+                .collect();
+            let what = format!("dense bias gradient {mode:?}");
+            check_written(&what, &values(&ab), wab, &want, &t.acc_b)?;
+        }
+    }
+
+    #[test]
+    fn conv1d_forward_matches_exact_math(
+        (c_in, f_out, len) in (1usize..=3, 1usize..=3, 1usize..=12),
+        (k_pick, stride) in (any::<u16>(), 1usize..=4),
+        (ww, wx, wb, wy) in (arb_word(), arb_word(), arb_word(), arb_word()),
+        (fw, fx, fb, fy) in (arb_frac(), arb_frac(), arb_frac(), arb_frac()),
+        (sw, sx, sb) in (specs(), specs(), specs()),
+        seed in any::<u64>(),
+    ) {
+        let k = 1 + k_pick as usize % len;
+        // Output length of a convolution without padding: (L − K)/S + 1.
+        let l_out = (len - k) / stride + 1;
+        let (wf, xf, bf, yf) = (fmt(ww, fw), fmt(wx, fx), fmt(wb, fb), fmt(wy, fy));
+        let w = tensor(ww, &sw, f_out * c_in * k);
+        let (x, b) = (tensor(wx, &sx, c_in * len), tensor(wb, &sb, f_out));
+        let (wv, xv, bv) = (values(&w), values(&x), values(&b));
+        let g = LayerGeometry {
+            input: Shape { channels: c_in as u16, len: len as u16 },
+            output: Shape { channels: f_out as u16, len: l_out as u16 },
+            weights: (f_out * c_in * k) as u32,
+            biases: f_out as u32,
+            macs: 0,
+        };
+        let p = Params {
+            w: Tensor { raw: w.raw(), fmt: wf },
+            b: Tensor { raw: b.raw(), fmt: bf },
+        };
+        let xt = Tensor { raw: x.raw(), fmt: xf };
+        for mode in MODES {
+            let mut y = zeros(wy, f_out * l_out);
+            let mut rng = Rng::new(seed);
+            let mut r = Rounder { mode, rng: &mut rng };
+            let mut t = Tally::default();
+            let mut out = TensorMut { raw: raw_mut(&mut y), fmt: yf };
+            conv::forward(&g, k as u16, stride as u16, p, xt, &mut out, &mut r, &mut t);
+            // y[o][t] = b[o] + Σ_c Σ_k w[o][c][k] · x[c][t·S + k], kernel [F][C][K] and input
+            // [C][L] row-major, summed exactly and rounded once.
+            let allowed: Vec<Allowed> = (0..f_out * l_out)
+                .map(|oi| {
+                    let (o, tt) = (oi / l_out, oi % l_out);
+                    let prods: Vec<i128> = (0..c_in * k)
+                        .map(|ck| {
+                            let (c, kk) = (ck / k, ck % k);
+                            let xi = xv[c * len + tt * stride + kk] as i128;
+                            wv[(o * c_in + c) * k + kk] as i128 * xi
+                        })
+                        .collect();
+                    let dot = prods.iter().sum();
+                    let terms = [(dot, (fw + fx) as u32), (bv[o] as i128, fb as u32)];
+                    Allowed::sum(exact_in_steps(&terms, 1, fy as u32, mode), &prods)
+                })
+                .collect();
+            check_written(&format!("conv1d forward {mode:?}"), &values(&y), wy, &allowed, &t)?;
+        }
+    }
+
+    #[test]
+    fn pools_forward_match_exact_math(
+        (chans, len) in (1usize..=3, 1usize..=16),
+        (w_pick, stride) in (any::<u16>(), 1usize..=5),
+        (wx, wy) in (arb_word(), arb_word()),
+        (fx, fy) in (arb_frac(), arb_frac()),
+        sx in specs(),
+        seed in any::<u64>(),
+    ) {
+        let window = 1 + w_pick as usize % len;
+        let l_out = (len - window) / stride + 1;
+        let (xf, yf) = (fmt(wx, fx), fmt(wy, fy));
+        let x = tensor(wx, &sx, chans * len);
+        let xv = values(&x);
+        let g = LayerGeometry {
+            input: Shape { channels: chans as u16, len: len as u16 },
+            output: Shape { channels: chans as u16, len: l_out as u16 },
+            weights: 0,
+            biases: 0,
+            macs: 0,
+        };
+        // The windows, channel by channel: window o of channel c starts at input o·S.
+        let windows = || {
+            (0..chans * l_out).map(|oi| {
+                let start = (oi / l_out) * len + (oi % l_out) * stride;
+                xv[start..start + window].iter().map(|&v| v as i128)
+            })
+        };
+        let xt = Tensor { raw: x.raw(), fmt: xf };
+        let (fx, fy, w16, s16) = (fx as u32, fy as u32, window as u16, stride as u16);
+        for mode in MODES {
+            let mut rng = Rng::new(seed);
+            let mut r = Rounder { mode, rng: &mut rng };
+            // Average: the exact window sum divided by the window length, rounded once.
+            let mut y = zeros(wy, chans * l_out);
+            let mut t = Tally::default();
+            let mut out = TensorMut { raw: raw_mut(&mut y), fmt: yf };
+            pool::avg_forward(&g, w16, s16, xt, &mut out, &mut r, &mut t);
+            let allowed: Vec<Allowed> = windows()
+                .map(|win| exact_in_steps(&[(win.sum(), fx)], window as i128, fy, mode))
+                .map(Allowed::exact)
+                .collect();
+            check_written(&format!("average pool {mode:?}"), &values(&y), wy, &allowed, &t)?;
+            // Max: the largest input of the window, requantized.
+            let mut y = zeros(wy, chans * l_out);
+            let mut t = Tally::default();
+            let mut out = TensorMut { raw: raw_mut(&mut y), fmt: yf };
+            pool::max_forward(&g, w16, s16, xt, &mut out, &mut r, &mut t);
+            let allowed: Vec<Allowed> = windows()
+                .map(|win| exact_in_steps(&[(win.max().unwrap(), fx)], 1, fy, mode))
+                .map(Allowed::exact)
+                .collect();
+            check_written(&format!("max pool {mode:?}"), &values(&y), wy, &allowed, &t)?;
+        }
     }
 }

@@ -23,13 +23,15 @@ use hone_core::plan::Plan;
 use hone_core::train::{LayerParams, Trainer};
 use hone_tests::{dense, q, sigmoid, Interval, Owned};
 
-// Published values (Mazur 2015).
+// The published figures of Matt Mazur, "A Step by Step Backpropagation Example" (2015), as
+// quoted from the post in the project's issue: the total error before the step, w5 and w1
+// after it, and the total error after the first round.
 const E_BEFORE: f64 = 0.298371109;
 const W5_AFTER: f64 = 0.35891648;
 const W1_AFTER: f64 = 0.149780716;
 const E_AFTER: f64 = 0.291027924;
-// The post's full list of updated weights w1..w8 (w1 and w5 as above; the other six are
-// from memory of the post, and agree with an independent f64 recomputation to 1e-9).
+// The post's full list of updated weights w1..w8 (w1 and w5 quoted as above; the other six
+// are from memory of the post, and agree with an independent f64 recomputation to 1e-9).
 const W_AFTER: [f64; 8] = [
     0.149780716,
     0.19956143,

@@ -14,43 +14,61 @@ use hone_core::num::round::{div_round, shift_right};
 use hone_core::num::{QScalar, Rng, Rounding, RoundingPlan};
 use hone_tests::{dense, init_params, iris_split, q, run_pair};
 
+/// Draws of the stochastic rounding of `n / d`.
+const N: i64 = 200_000;
+
+/// Checks that the mean of [`N`] draws of `round` lies within `bound` of `n / d`, and first that
+/// the bound would catch a rounder that always rounds down or always up on this value.
+fn check_unbiased(name: &str, n: i128, d: i128, bound: f64, mut round: impl FnMut() -> i64) {
+    let exact = n as f64 / d as f64;
+    // The biased rounders' means, exactly: ⌊x⌋ (always down) and ⌊x⌋ + 1 (always up).
+    let floor = n.div_euclid(d);
+    let (down, up) = (floor as f64, (floor + 1) as f64);
+    assert!(
+        (down - exact).abs() > bound && (up - exact).abs() > bound,
+        "{name}: the fraction of {exact} is too close to 0 or 1 for the bound to see a bias"
+    );
+    let sum: i128 = (0..N).map(|_| round() as i128).sum();
+    let mean = sum as f64 / N as f64;
+    assert!(
+        (mean - exact).abs() <= bound,
+        "{name}: mean {mean}, exact {exact}"
+    );
+}
+
 #[test]
 fn stochastic_rounding_is_unbiased() {
-    // Each rounding is a Bernoulli draw on top of ⌊x⌋, so the mean of N draws has standard
-    // deviation at most 0.5/√N. With N = 200 000 that is 1.12e-3; the test allows 6 standard
-    // deviations (6.7e-3), a false failure rate near 2e-9 per check.
-    const N: i64 = 200_000;
+    // Each rounding of x is ⌊x⌋ plus a Bernoulli draw with p = x − ⌊x⌋, so one draw has
+    // variance p(1 − p) ≤ 1/4 and the mean of N independent draws has standard deviation at
+    // most 0.5/√N. With N = 200 000 that is 1.12e-3; the test allows 6 standard deviations
+    // (6.7e-3), which a correct rounder exceeds with probability below 2e-9 per case (normal
+    // tail). A rounder that always rounds down has mean ⌊x⌋, off by the fraction x − ⌊x⌋; one
+    // that always rounds up is off by 1 − (x − ⌊x⌋). Every case keeps both above the bound
+    // (`check_unbiased` checks that first), so either biased rounder fails every case.
     let bound = 6.0 * 0.5 / (N as f64).sqrt();
     let mut rng = Rng::new(2015);
-    for &(v, s) in &[
+    // v / 2^s, fractions 0.25, 0.75, 0.375, 0.565, 0.367, 0.437, 0.333 and 0.667; the last two
+    // reach the largest shift the engine makes (62).
+    for (v, s) in [
         (1i64, 2u32),
         (3, 2),
         (-5, 3),
         (1_000_003, 10),
         (-77_777, 7),
         (12_345_678_901, 33),
-        (7, 62),
+        (0x5555_5555_5555_5555, 62),
+        (-0x5555_5555_5555_5555, 62),
     ] {
-        let sum: i128 = (0..N)
-            .map(|_| shift_right(v, s, Rounding::Stochastic, &mut rng) as i128)
-            .sum();
-        let mean = sum as f64 / N as f64;
-        let exact = v as f64 / 2f64.powi(s as i32);
-        assert!(
-            (mean - exact).abs() <= bound,
-            "v {v} >> {s}: mean {mean}, exact {exact}"
-        );
+        check_unbiased(&format!("{v} >> {s}"), v as i128, 1i128 << s, bound, || {
+            shift_right(v, s, Rounding::Stochastic, &mut rng)
+        });
     }
-    // The same for division by a batch size that is not a power of two.
-    for &(n, d) in &[(10i64, 3i64), (-10, 3), (1_000_001, 7), (5, 6)] {
-        let sum: i128 = (0..N)
-            .map(|_| div_round(n, d, Rounding::Stochastic, &mut rng) as i128)
-            .sum();
-        let mean = sum as f64 / N as f64;
-        assert!(
-            (mean - n as f64 / d as f64).abs() <= bound,
-            "{n}/{d}: mean {mean}"
-        );
+    // The same for division by a batch size that is not a power of two: fractions 0.333,
+    // 0.667, 0.286 and 0.833.
+    for (n, d) in [(10i64, 3i64), (-10, 3), (1_000_001, 7), (5, 6)] {
+        check_unbiased(&format!("{n} / {d}"), n as i128, d as i128, bound, || {
+            div_round(n, d, Rounding::Stochastic, &mut rng)
+        });
     }
     // Nearest rounding is biased on the same values (a check that the test can fail).
     let biased: i128 = (0..1000)

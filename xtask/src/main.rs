@@ -222,6 +222,37 @@ fn test(steps: &mut Vec<Step>) -> Result<(), String> {
         "cargo",
         &["test", "--workspace", "--locked"],
     )?;
+    // The fuzz project is a workspace of its own: its helpers (the checks every target runs)
+    // are formatted, linted and unit-tested here; fuzzing itself is run by hand (fuzz/README.md).
+    let fuzz = root.join("fuzz");
+    run(
+        steps,
+        "format check (fuzz)",
+        &fuzz,
+        "cargo",
+        &["fmt", "--", "--check"],
+    )?;
+    run(
+        steps,
+        "clippy fuzz",
+        &fuzz,
+        "cargo",
+        &[
+            "clippy",
+            "--all-targets",
+            "--locked",
+            "--",
+            "-D",
+            "warnings",
+        ],
+    )?;
+    run(
+        steps,
+        "fuzz helper tests",
+        &fuzz,
+        "cargo",
+        &["test", "--lib", "--locked"],
+    )?;
     Ok(())
 }
 
