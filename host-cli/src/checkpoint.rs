@@ -272,6 +272,51 @@ pub enum CheckpointError {
         /// What is wrong.
         problem: ImageError,
     },
+    /// A setting is wrong: the flash geometry, or the size of a fresh region. Named by its
+    /// command-line option (`--erase`, `--write`, `--read`, `--region`).
+    #[error("{option}: {problem}")]
+    Setting {
+        /// The option.
+        option: &'static str,
+        /// What is wrong.
+        problem: ImageError,
+    },
+}
+
+/// The option of the geometry field at fault in `g`, checked in the order [`unit_class`]
+/// checks them.
+fn geometry_option(g: Geometry) -> &'static str {
+    if !g.erase.is_power_of_two() || !(128..=256 * 1024).contains(&g.erase) {
+        "--erase"
+    } else if !g.write.is_power_of_two() || g.write as usize > store::MAX_UNIT {
+        "--write"
+    } else {
+        "--read"
+    }
+}
+
+/// Checks that the host supports geometry `g`.
+///
+/// # Errors
+/// [`CheckpointError::Setting`] naming the option at fault.
+pub fn check_geometry(g: Geometry) -> Result<(), CheckpointError> {
+    unit_class(g)
+        .map(|_| ())
+        .map_err(|problem| CheckpointError::Setting {
+            option: geometry_option(g),
+            problem,
+        })
+}
+
+/// Attaches a geometry error to its option and any other error to `path`.
+fn in_file_or_setting(path: &Path, g: Geometry) -> impl Fn(ImageError) -> CheckpointError + '_ {
+    move |problem| match problem {
+        ImageError::Geometry { .. } => CheckpointError::Setting {
+            option: geometry_option(g),
+            problem,
+        },
+        other => in_file(path)(other),
+    }
 }
 
 /// The checkpoint found, where it is, and what it holds.
@@ -603,7 +648,7 @@ pub fn read_latest_file(
     path: &Path,
     geometry: Geometry,
 ) -> Result<(CheckpointInfo, Vec<u8>), CheckpointError> {
-    read_latest(&read(path)?, geometry).map_err(in_file(path))
+    read_latest(&read(path)?, geometry).map_err(in_file_or_setting(path, geometry))
 }
 
 /// [`append`] with the image and the blob read from files; returns the new image.
@@ -620,21 +665,37 @@ pub fn append_file(
     let b = read(blob_file)?;
     append(&img, geometry, &b).map_err(|e| match e {
         ImageError::BlobRejected { .. } | ImageError::TooLarge { .. } => in_file(blob_file)(e),
-        other => in_file(image)(other),
+        other => in_file_or_setting(image, geometry)(other),
     })
 }
 
 /// [`write_image`] with the blob read from a file.
 ///
 /// # Errors
-/// [`CheckpointError::Io`] if the file cannot be read; [`CheckpointError::Image`] naming the
-/// blob file otherwise.
+/// [`CheckpointError::Io`] if the file cannot be read; [`CheckpointError::Setting`] naming
+/// `--erase`, `--write` or `--read` for a geometry the host does not support, and `--region`
+/// for a region that is not whole sectors, is too small for the store's two slots, or too
+/// small for this blob; [`CheckpointError::Image`] naming the blob file for a blob that does
+/// not validate.
 pub fn write_image_file(
     blob_file: &Path,
     geometry: Geometry,
     region_len: u32,
 ) -> Result<Vec<u8>, CheckpointError> {
-    write_image(&read(blob_file)?, geometry, region_len).map_err(in_file(blob_file))
+    let region = |problem| CheckpointError::Setting {
+        option: "--region",
+        problem,
+    };
+    write_image(&read(blob_file)?, geometry, region_len).map_err(|e| match e {
+        ImageError::ImageSize { .. }
+        | ImageError::TooLarge { .. }
+        | ImageError::Store(
+            StoreError::RegionTooSmall
+            | StoreError::RegionMisaligned
+            | StoreError::RegionOutOfBounds,
+        ) => region(e),
+        other => in_file_or_setting(blob_file, geometry)(other),
+    })
 }
 
 #[cfg(test)]
@@ -857,5 +918,58 @@ mod tests {
             .expect_err("missing file");
         assert!(matches!(e, CheckpointError::Io { .. }));
         std::fs::remove_dir_all(&dir).unwrap();
+    }
+
+    #[test]
+    fn setting_errors_name_the_option_not_the_blob() {
+        let dir = tempfile::tempdir().unwrap();
+        let blob_path = dir.path().join("unit7.honb");
+        std::fs::write(&blob_path, sample_blob(BlobKind::Model, 0)).unwrap();
+        let blob_name = blob_path.display().to_string();
+        let fails = |g: Geometry, region: u32| {
+            write_image_file(&blob_path, g, region)
+                .map(|_| ())
+                .expect_err("a bad setting")
+        };
+        let option = |e: &CheckpointError| match e {
+            CheckpointError::Setting { option, .. } => Some(*option),
+            _ => None,
+        };
+        for (g, want) in [
+            (Geometry { write: 0, ..NRF }, "--write"),
+            (Geometry { write: 3, ..NRF }, "--write"),
+            (Geometry { read: 128, ..NRF }, "--read"),
+            (Geometry { erase: 1000, ..NRF }, "--erase"),
+            (Geometry { erase: 0, ..NRF }, "--erase"),
+        ] {
+            let e = fails(g, 8192);
+            assert_eq!(option(&e), Some(want), "{g:?}: {e}");
+            let text = e.to_string();
+            assert!(text.starts_with(&format!("{want}: ")), "{text}");
+            assert!(!text.contains(&blob_name), "{text}");
+            assert_eq!(
+                check_geometry(g).map_err(|e| option(&e)),
+                Err(Some(want)),
+                "{g:?}"
+            );
+        }
+        assert!(check_geometry(NRF).is_ok());
+        // One sector cannot hold the store's two slots; 1500 B is not whole sectors.
+        for region in [1024, 1500] {
+            let e = fails(NRF, region);
+            assert_eq!(option(&e), Some("--region"), "{region}: {e}");
+            assert!(!e.to_string().contains(&blob_name), "{e}");
+        }
+        // A bad blob is still the blob file's fault.
+        std::fs::write(&blob_path, b"HONBxx").unwrap();
+        let e = fails(NRF, 8192);
+        assert!(e.to_string().starts_with(&blob_name), "{e}");
+        // Reading an image with a bad geometry names the option too.
+        let img = dir.path().join("a.img");
+        std::fs::write(&img, vec![0xFF; 8192]).unwrap();
+        let e = read_latest_file(&img, Geometry { write: 0, ..NRF })
+            .map(|_| ())
+            .expect_err("bad geometry");
+        assert_eq!(option(&e), Some("--write"), "{e}");
     }
 }

@@ -112,11 +112,16 @@ pub struct Chip {
 impl Chip {
     /// Core and FPU as one label, e.g. "Cortex-M4F" or "Cortex-M7 (double-precision FPU)".
     pub fn core_label(&self) -> String {
-        match (self.core, self.fpu) {
-            (_, Fpu::None) => self.core.to_string(),
-            (CoreKind::CortexM4, Fpu::Single) => "Cortex-M4F".to_string(),
-            (core, fpu) => format!("{core} ({fpu}-precision FPU)"),
-        }
+        core_label(self.core, self.fpu)
+    }
+}
+
+/// Core and FPU as one label, e.g. "Cortex-M4F" or "Cortex-M7 (double-precision FPU)".
+pub fn core_label(core: CoreKind, fpu: Fpu) -> String {
+    match (core, fpu) {
+        (_, Fpu::None) => core.to_string(),
+        (CoreKind::CortexM4, Fpu::Single) => "Cortex-M4F".to_string(),
+        (core, fpu) => format!("{core} ({fpu}-precision FPU)"),
     }
 }
 

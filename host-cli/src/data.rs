@@ -398,6 +398,26 @@ pub enum DataError {
         /// What is wrong and what to do.
         message: String,
     },
+    /// A channel's statistics cannot be stored as the device's `f32` scaling.
+    #[error(
+        "{}: column `{columns}` (input channel {channel}): mean {mean:e}, standard deviation \
+         {std:e}: {why}; check the column for wrong values or give it in another unit",
+        path.display()
+    )]
+    Unscalable {
+        /// The file the dataset came from.
+        path: PathBuf,
+        /// Channel index.
+        channel: usize,
+        /// The channel's columns: one name, or `first … last` for a window.
+        columns: String,
+        /// Mean of the channel's values.
+        mean: f64,
+        /// Population standard deviation of the channel's values.
+        std: f64,
+        /// Which of the two cannot be stored.
+        why: String,
+    },
 }
 
 /// The most classes a classification target may have: labels are `u16`.
@@ -1029,7 +1049,10 @@ pub struct Scaling {
 impl Scaling {
     /// Standardizes each feature column on its own: one channel per feature (tabular data,
     /// `channels = features, length = 1`).
-    pub fn fit_standardize(data: &Dataset) -> Scaling {
+    ///
+    /// # Errors
+    /// As [`Scaling::fit_per_channel`].
+    pub fn fit_standardize(data: &Dataset) -> Result<Scaling, DataError> {
         fit(data, data.features.len().max(1))
     }
 
@@ -1041,10 +1064,12 @@ impl Scaling {
     /// the relative amplitude of the samples intact.
     ///
     /// # Errors
-    /// [`DataError::Request`] if `channels` is zero or does not divide the feature count.
+    /// [`DataError::Request`] if `channels` is zero or does not divide the feature count;
+    /// [`DataError::Unscalable`] if a channel's mean or spread cannot be stored as the
+    /// device's `f32` offset and gain (values near the ends of the `f64` range).
     pub fn fit_per_channel(data: &Dataset, channels: usize) -> Result<Scaling, DataError> {
         check_channels(data, channels)?;
-        Ok(fit(data, channels))
+        fit(data, channels)
     }
 
     /// Applies this scaling to `data` in place; see [`apply`].
@@ -1070,66 +1095,101 @@ fn check_channels(data: &Dataset, channels: usize) -> Result<(), DataError> {
     Ok(())
 }
 
+/// Mean and population standard deviation of the values in columns `cols` of every row,
+/// computed so that no intermediate overflows: the values are first multiplied by a power of
+/// two that brings the largest magnitude below 1, which is exact, so the result equals the
+/// direct computation (same order of summation) whenever that one does not overflow. `None`
+/// for no values.
+fn mean_std(rows: &[Vec<f64>], cols: &std::ops::Range<usize>) -> Option<(f64, f64)> {
+    let count = rows.len() * cols.len();
+    if count == 0 {
+        return None;
+    }
+    let max = rows
+        .iter()
+        .flat_map(|r| r[cols.clone()].iter())
+        .fold(0f64, |m, v| m.max(v.abs()));
+    // 2^exp > max, so sums of `count` scaled values, or of their squared deviations, stay far
+    // from overflow. The exponent is bounded so the factor itself stays a normal number.
+    let exp = if max > 0.0 {
+        (max.log2().floor() as i32 + 1).clamp(-1000, 1000)
+    } else {
+        0
+    };
+    let down = 2f64.powi(-exp);
+    let n = count as f64;
+    let mean_s = rows
+        .iter()
+        .map(|r| r[cols.clone()].iter().map(|v| v * down).sum::<f64>())
+        .sum::<f64>()
+        / n;
+    let var_s = rows
+        .iter()
+        .map(|r| {
+            r[cols.clone()]
+                .iter()
+                .map(|v| (v * down - mean_s) * (v * down - mean_s))
+                .sum::<f64>()
+        })
+        .sum::<f64>()
+        / n;
+    let up = 2f64.powi(exp);
+    Some((mean_s * up, var_s.sqrt() * up))
+}
+
+/// The columns of channel `c` as one label: one name, or `first … last` for a window.
+fn channel_columns(data: &Dataset, cols: &std::ops::Range<usize>) -> String {
+    if cols.len() == 1 {
+        data.features[cols.start].clone()
+    } else {
+        format!(
+            "{} … {}",
+            data.features[cols.start],
+            data.features[cols.end - 1]
+        )
+    }
+}
+
 /// Fits `channels` channels; the caller has checked that `channels` divides the features.
-fn fit(data: &Dataset, channels: usize) -> Scaling {
+fn fit(data: &Dataset, channels: usize) -> Result<Scaling, DataError> {
     let len = data.features.len() / channels;
     let mut scales = Vec::with_capacity(channels);
     let mut constant = Vec::new();
     for c in 0..channels {
         let cols = c * len..(c + 1) * len;
-        let count = (data.x.len() * len) as f64;
-        let mean = if count > 0.0 {
-            data.x
-                .iter()
-                .map(|r| r[cols.clone()].iter().sum::<f64>())
-                .sum::<f64>()
-                / count
-        } else {
-            0.0
+        let (mean, std) = mean_std(&data.x, &cols).unwrap_or((0.0, 0.0));
+        let offset = mean as f32;
+        let unscalable = |why: &str| DataError::Unscalable {
+            path: data.source.clone(),
+            channel: c,
+            columns: channel_columns(data, &cols),
+            mean,
+            std,
+            why: why.to_owned(),
         };
-        let var = if count > 0.0 {
-            data.x
-                .iter()
-                .map(|r| {
-                    r[cols.clone()]
-                        .iter()
-                        .map(|v| (v - mean) * (v - mean))
-                        .sum::<f64>()
-                })
-                .sum::<f64>()
-                / count
-        } else {
-            0.0
-        };
-        let std = var.sqrt();
-        let gain = (1.0 / std) as f32;
-        if std <= 1e-9 * mean.abs().max(1.0) || !gain.is_finite() || gain == 0.0 {
-            let columns = if len == 1 {
-                data.features[cols.start].clone()
-            } else {
-                format!(
-                    "{} … {}",
-                    data.features[cols.start],
-                    data.features[cols.end - 1]
-                )
-            };
+        if !offset.is_finite() {
+            return Err(unscalable(
+                "the mean is beyond the f32 range of the stored offset",
+            ));
+        }
+        if std <= 1e-9 * mean.abs().max(1.0) {
             constant.push(ConstantChannel {
                 channel: c,
-                columns,
+                columns: channel_columns(data, &cols),
                 value: mean,
             });
-            scales.push(ChannelScale {
-                offset: mean as f32,
-                gain: 1.0,
-            });
-        } else {
-            scales.push(ChannelScale {
-                offset: mean as f32,
-                gain,
-            });
+            scales.push(ChannelScale { offset, gain: 1.0 });
+            continue;
         }
+        let gain = (1.0 / std) as f32;
+        if !gain.is_normal() {
+            return Err(unscalable(
+                "1 / standard deviation is beyond the f32 range of the stored gain",
+            ));
+        }
+        scales.push(ChannelScale { offset, gain });
     }
-    Scaling { scales, constant }
+    Ok(Scaling { scales, constant })
 }
 
 /// Applies per-channel scaling in place: each feature value `v` of channel `c` becomes
@@ -1392,7 +1452,7 @@ mod tests {
             ],
             &["a", "b"],
         );
-        let s = Scaling::fit_standardize(&d);
+        let s = Scaling::fit_standardize(&d).unwrap();
         assert_eq!(s.scales[0].offset, 3.0);
         assert_eq!(s.scales[0].gain, (1.0 / 3.5f64.sqrt()) as f32);
         assert_eq!(
@@ -1411,6 +1471,69 @@ mod tests {
         assert!(mean.abs() < 1e-6, "{mean}");
         assert!((var - 1.0).abs() < 1e-6, "{var}");
         assert!(d.x.iter().all(|r| r[1] == 0.0));
+    }
+
+    #[test]
+    fn statistics_of_huge_values_do_not_overflow() {
+        // The direct sums of squares would reach 1e600: beyond f64, so the spread was taken
+        // as infinite and the channel as constant. Scaled by a power of two they stay exact.
+        let rows = vec![vec![1e300], vec![-1e300], vec![3e300], vec![-3e300]];
+        let (mean, std) = mean_std(&rows, &(0..1)).unwrap();
+        assert_eq!(mean, 0.0);
+        // Population variance (1 + 1 + 9 + 9) / 4 = 5, times 1e600.
+        let want = 5f64.sqrt() * 1e300;
+        assert!((std - want).abs() <= 1e-15 * want, "{std} vs {want}");
+        // For ordinary values the result is that of the direct computation, bit for bit.
+        let rows = vec![vec![1647.0], vec![2316.0], vec![1980.5], vec![2104.25]];
+        let direct_mean = (1647.0 + 2316.0 + 1980.5 + 2104.25) / 4.0;
+        let direct_var = rows
+            .iter()
+            .map(|r| (r[0] - direct_mean) * (r[0] - direct_mean))
+            .sum::<f64>()
+            / 4.0;
+        assert_eq!(
+            mean_std(&rows, &(0..1)),
+            Some((direct_mean, direct_var.sqrt()))
+        );
+        assert_eq!(mean_std(&[], &(0..1)), None);
+    }
+
+    #[test]
+    fn unscalable_columns_are_errors_naming_file_and_column() {
+        // A spread of 1e200 needs a gain of 1e-200: zero in f32. A mean of 1e300 is beyond the
+        // f32 offset. Neither may pass as a "constant" channel with gain 1.
+        for (values, why) in [
+            ([1e200, -1e200, 0.0], "gain"),
+            ([1e300, 1e300, 1e300], "offset"),
+        ] {
+            let d = data(
+                values
+                    .iter()
+                    .map(|&v: &f64| vec![1.0 + v.signum(), v])
+                    .collect(),
+                &["raw_counts", "temp_c"],
+            );
+            let e = Scaling::fit_standardize(&d).unwrap_err();
+            assert!(
+                matches!(&e, DataError::Unscalable { channel: 1, columns, .. } if columns == "temp_c"),
+                "{e:?}"
+            );
+            let text = e.to_string();
+            assert!(
+                text.starts_with(&format!("{}: column `temp_c`", d.source.display())),
+                "{text}"
+            );
+            assert!(text.contains(why), "{text}");
+        }
+        // Large but storable values scale normally.
+        let d = data(vec![vec![1e30], vec![3e30]], &["a"]);
+        let s = Scaling::fit_standardize(&d).unwrap();
+        let mean = (1e30f64 + 3e30) / 2.0;
+        let std = (((1e30 - mean) * (1e30 - mean) + (3e30 - mean) * (3e30 - mean)) / 2.0).sqrt();
+        assert_eq!(s.scales[0].offset, mean as f32);
+        assert_eq!(s.scales[0].gain, (1.0 / std) as f32);
+        assert!((s.scales[0].gain as f64 * 1e30 - 1.0).abs() < 1e-6);
+        assert!(s.constant.is_empty());
     }
 
     #[test]

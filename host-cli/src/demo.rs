@@ -106,16 +106,24 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     write(out, "base_model.rs", rust.as_bytes(), &mut files)?;
     let quant_text = crate::quant::render(&q.report);
 
+    let cal = base.prepare(&inputs.join("soil_unit_calibration.csv"))?;
+    let hold = base.prepare(&inputs.join("soil_unit_holdout.csv"))?;
+
     progress(&format!("3/5 planning training memory for {chip}"));
     let chip_info = crate::chips::find(chip)
         .ok_or_else(|| format!("unknown chip `{chip}`; `hone chips` lists the built-in ones"))?;
+    // Every alternative of the advice gets its drift cost on the new probe's samples, as
+    // `hone plan --model --train --eval` gives it.
+    let drift_cost = |d: &hone_core::model::ModelDesc| {
+        crate::pipeline::drift_cost(&base, &cal, &hold, crate::pipeline::PLAN_DRIFT_EPOCHS, d)
+    };
     let plan_report = memplan::plan_report(
         &q.desc,
         &Budget::chip(chip_info),
         Reserve::default(),
-        memplan::measured_overhead(chip_info).as_ref(),
+        Some(&memplan::engine_overhead(chip_info)),
         &AdviceOptions::default(),
-        None,
+        Some(&drift_cost),
     )
     .map_err(|e| e.to_string())?;
     let plan_text = memplan::render_table(&plan_report);
@@ -129,8 +137,6 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     )?;
 
     progress("4/5 calibrating the new probe in fixed point beside float");
-    let cal = base.prepare(&inputs.join("soil_unit_calibration.csv"))?;
-    let hold = base.prepare(&inputs.join("soil_unit_holdout.csv"))?;
     let opts = RunOptions {
         epochs: 30,
         order_seed: base.config.train().seed,

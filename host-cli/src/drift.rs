@@ -54,6 +54,41 @@ impl Default for Thresholds {
     }
 }
 
+/// Why a threshold given on the command line was refused.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+pub enum LimitError {
+    /// The text is not a decimal number.
+    #[error("`{0}` is not a number; give a limit of 0 or more, such as 10 or 2.5")]
+    NotANumber(String),
+    /// NaN or an infinity: no measurement could be compared with it.
+    #[error("`{0}` is not a finite number; give a limit of 0 or more, such as 10 or 2.5")]
+    NotFinite(String),
+    /// Below zero: every measured figure (a gap, a divergence, a rate, an SQNR the verdict
+    /// would accept) is compared with a limit of 0 or more.
+    #[error("`{0}` is negative; every limit is 0 or more")]
+    Negative(String),
+}
+
+/// Parses a threshold: a finite decimal number of 0 or more. A gap, divergence or rate
+/// below 0 cannot be measured, and a gradient SQNR below 0 dB means more noise than signal,
+/// so a negative limit is a mistake rather than a choice.
+///
+/// # Errors
+/// [`LimitError`] saying what is wrong with the text.
+pub fn parse_limit(text: &str) -> Result<f64, LimitError> {
+    let v: f64 = text
+        .trim()
+        .parse()
+        .map_err(|_| LimitError::NotANumber(text.to_owned()))?;
+    if !v.is_finite() {
+        return Err(LimitError::NotFinite(text.to_owned()));
+    }
+    if v < 0.0 {
+        return Err(LimitError::Negative(text.to_owned()));
+    }
+    Ok(v)
+}
+
 /// One check of the verdict.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct Check {
@@ -69,13 +104,42 @@ pub struct Check {
     pub pass: bool,
 }
 
+/// A check that could not be made because the run measured nothing to judge.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct NotRun {
+    /// Stable name, as in [`Check::name`].
+    pub name: &'static str,
+    /// What it would have measured.
+    pub description: String,
+    /// Why it was not made.
+    pub reason: String,
+}
+
 /// The verdict: every check, and whether all passed.
 #[derive(Clone, Debug, PartialEq, Serialize)]
 pub struct Verdict {
-    /// All checks passed.
+    /// All checks that were made passed.
     pub pass: bool,
     /// The checks.
     pub checks: Vec<Check>,
+    /// Checks that were not made; the verdict says so beside its result.
+    pub not_run: Vec<NotRun>,
+}
+
+impl Verdict {
+    /// The verdict in one line.
+    pub fn summary(&self) -> String {
+        let base = if self.pass {
+            "within every threshold"
+        } else {
+            "thresholds exceeded (exit status 1)"
+        };
+        if self.not_run.is_empty() {
+            return base.to_owned();
+        }
+        let names: Vec<&str> = self.not_run.iter().map(|n| n.name).collect();
+        format!("{base}; not checked: {}", names.join(", "))
+    }
 }
 
 /// A complete drift report. Field names are stable for `--json`.
@@ -112,11 +176,13 @@ impl DriftReport {
         } else {
             gap_pct(last.fixed_metric, last.float_metric)
         };
+        // `None` when no epoch measured a gradient SQNR; an infinite value (no quantization
+        // noise at all) is a measurement and passes any limit.
         let min_sqnr = run
             .epochs
             .iter()
             .filter_map(|e| e.grad_sqnr_db)
-            .fold(f64::INFINITY, f64::min);
+            .reduce(f64::min);
         let (sat, vals, lost, upd) = run.epochs.iter().fold((0u64, 0u64, 0u64, 0u64), |a, e| {
             (
                 a.0 + e.saturations,
@@ -177,17 +243,26 @@ impl DriftReport {
                 pass: lost_pct <= t.max_lost_updates_pct,
             },
         ];
-        if min_sqnr.is_finite() {
-            checks.insert(
+        let sqnr_description = "lowest gradient SQNR of the probes, dB".to_owned();
+        let mut not_run = Vec::new();
+        match min_sqnr {
+            Some(v) => checks.insert(
                 3,
                 Check {
                     name: "grad_sqnr_db",
-                    description: "lowest gradient SQNR of the probes, dB".into(),
-                    value: min_sqnr,
+                    description: sqnr_description,
+                    value: v,
                     limit: t.min_grad_sqnr_db,
-                    pass: min_sqnr >= t.min_grad_sqnr_db,
+                    pass: v >= t.min_grad_sqnr_db,
                 },
-            );
+            ),
+            None => not_run.push(NotRun {
+                name: "grad_sqnr_db",
+                description: sqnr_description,
+                reason: "no gradient was measured: no probe samples, or every probed \
+                         gradient of the trained layers was zero"
+                    .into(),
+            }),
         }
         let pass = checks.iter().all(|c| c.pass);
         DriftReport {
@@ -201,7 +276,11 @@ impl DriftReport {
             steps: run.steps.clone(),
             tensors: run.tensors.clone(),
             thresholds: t,
-            verdict: Verdict { pass, checks },
+            verdict: Verdict {
+                pass,
+                checks,
+                not_run,
+            },
         }
     }
 
@@ -334,11 +413,10 @@ impl DriftReport {
                 c.limit
             ));
         }
-        s.push_str(if self.verdict.pass {
-            "verdict: within every threshold\n"
-        } else {
-            "verdict: thresholds exceeded (exit status 1)\n"
-        });
+        for n in &self.verdict.not_run {
+            s.push_str(&format!("  not run {:<58} {}\n", n.description, n.reason));
+        }
+        s.push_str(&format!("verdict: {}\n", self.verdict.summary()));
         s
     }
 
@@ -484,13 +562,26 @@ impl DriftReport {
             title: title.into(),
             subtitle: Some("Fixed-point training beside its float twin, same start, same data order".into()),
             sections: vec![
-                Section { heading: "Verdict".into(), blocks: vec![Block::Verdict { pass: self.verdict.pass, text: if self.verdict.pass { "Within every threshold.".into() } else { "Thresholds exceeded.".into() } }, Block::Table(self.check_table())] },
+                Section { heading: "Verdict".into(), blocks: vec![Block::Verdict { pass: self.verdict.pass, text: self.verdict_sentence() }, Block::Table(self.check_table())] },
                 Section { heading: "Setup".into(), blocks: vec![Block::KeyValues(self.setup.clone())] },
                 Section { heading: "Curves".into(), blocks: figures },
                 Section { heading: "Per epoch".into(), blocks: vec![Block::Table(self.epoch_table()), Block::Paragraph("fx: fixed point; fl: float twin. Weight divergence is |fixed − float| of every trained value in steps of its format. Gradient SQNR compares the fixed-point gradients of a probe set with the float gradients.".into())] },
                 Section { heading: "Saturations and lost updates per tensor".into(), blocks: vec![Block::Table(self.tensor_table())] },
             ],
         }
+    }
+
+    /// The verdict as a sentence for documents, naming the checks not made.
+    fn verdict_sentence(&self) -> String {
+        let mut text = if self.verdict.pass {
+            "Within every threshold.".to_owned()
+        } else {
+            "Thresholds exceeded.".to_owned()
+        };
+        for n in &self.verdict.not_run {
+            text.push_str(&format!(" Not checked: {} ({}).", n.description, n.reason));
+        }
+        text
     }
 
     fn check_table(&self) -> crate::report::Table {
@@ -523,5 +614,88 @@ impl DriftReport {
                 .collect(),
             align: vec![Left, Right, Right, Left],
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::sim::{DriftRun, EpochDrift, QuantParams};
+
+    fn run_with_sqnr(sqnr: &[Option<f64>]) -> DriftRun {
+        DriftRun {
+            epochs: sqnr
+                .iter()
+                .enumerate()
+                .map(|(i, &g)| EpochDrift {
+                    epoch: i as u32,
+                    fixed_eval_loss: 1.0,
+                    float_eval_loss: 1.0,
+                    grad_sqnr_db: g,
+                    ..EpochDrift::default()
+                })
+                .collect(),
+            steps: Vec::new(),
+            fixed_params: QuantParams { layers: Vec::new() },
+            float_params: Vec::new(),
+            tensors: Vec::new(),
+            rng_state: [0; 4],
+        }
+    }
+
+    #[test]
+    fn limits_must_be_finite_and_not_negative() {
+        assert_eq!(parse_limit("10"), Ok(10.0));
+        assert_eq!(parse_limit("0"), Ok(0.0));
+        assert_eq!(parse_limit(" 2.5 "), Ok(2.5));
+        for bad in ["NaN", "nan", "inf", "-inf"] {
+            assert_eq!(parse_limit(bad), Err(LimitError::NotFinite(bad.into())));
+        }
+        assert_eq!(parse_limit("-1"), Err(LimitError::Negative("-1".into())));
+        assert_eq!(
+            parse_limit("ten"),
+            Err(LimitError::NotANumber("ten".into()))
+        );
+    }
+
+    #[test]
+    fn unmeasured_sqnr_is_reported_as_not_checked() {
+        let r = DriftReport::from_run(
+            &run_with_sqnr(&[None, None]),
+            false,
+            Vec::new(),
+            Thresholds::default(),
+        );
+        assert!(r.verdict.pass);
+        assert!(r.verdict.checks.iter().all(|c| c.name != "grad_sqnr_db"));
+        assert_eq!(r.verdict.not_run.len(), 1);
+        assert_eq!(r.verdict.not_run[0].name, "grad_sqnr_db");
+        let text = r.verdict_text();
+        assert!(
+            text.contains("verdict: within every threshold; not checked: grad_sqnr_db"),
+            "{text}"
+        );
+        assert!(text.contains("not run lowest gradient SQNR"), "{text}");
+    }
+
+    #[test]
+    fn sqnr_check_uses_the_lowest_measurement_and_passes_exact_gradients() {
+        let t = Thresholds::default();
+        // Exact gradients (no noise) measure as infinite SQNR: a pass, not a skipped check.
+        let r = DriftReport::from_run(&run_with_sqnr(&[Some(f64::INFINITY)]), false, vec![], t);
+        let c = r.verdict.checks.iter().find(|c| c.name == "grad_sqnr_db");
+        assert!(c.is_some_and(|c| c.pass), "{:?}", r.verdict);
+        assert!(r.verdict.not_run.is_empty());
+        // The lowest epoch decides; one below the limit fails the verdict.
+        let low = t.min_grad_sqnr_db - 1.0;
+        let r = DriftReport::from_run(
+            &run_with_sqnr(&[Some(40.0), None, Some(low)]),
+            false,
+            vec![],
+            t,
+        );
+        let c = r.verdict.checks.iter().find(|c| c.name == "grad_sqnr_db");
+        assert_eq!(c.map(|c| (c.value, c.pass)), Some((low, false)));
+        assert!(!r.verdict.pass);
     }
 }

@@ -64,8 +64,20 @@ enum Command {
         json: bool,
     },
     /// Train in fixed point beside the float twin and report the drift.
+    ///
+    /// Exit status 1 when a threshold is exceeded. A check that could not be made (no
+    /// gradient measured for the SQNR check) is named beside the verdict. Every threshold
+    /// (--max-loss-gap … --max-lost-updates) is a finite number of 0 or more: NaN, an
+    /// infinity or a negative value is refused as bad input (exit status 2).
     Drift(DriftArgs),
     /// Memory plan of training on a chip, with advice when it does not fit.
+    ///
+    /// RAM counts the training arena, the trainer object, the engine's stack peak and the
+    /// reserve; flash counts the factory parameters, the engine's code and the reserve. The
+    /// engine's figures are those measured on a board with the chip's core (or the core named
+    /// by --core for a custom --ram/--flash target); for a core that was not measured they are
+    /// the largest figures measured on any core, shown as an estimate and counted in the
+    /// verdict. Exit status 1 when the model does not fit.
     Plan(PlanArgs),
     /// List the built-in microcontrollers.
     Chips {
@@ -74,6 +86,9 @@ enum Command {
         json: bool,
     },
     /// Run a grid of formats, rounding, learning rates and train modes; show the Pareto front.
+    ///
+    /// Exit status 1 when no grid point ran (every one failed); points that failed beside
+    /// others that ran are marked `error` in the table and do not change the status.
     Sweep(SweepArgs),
     /// Validate and describe a model blob or checkpoint.
     Inspect {
@@ -137,9 +152,11 @@ struct DriftArgs {
     /// Record every step, not only every epoch.
     #[arg(long)]
     per_step: bool,
-    /// Training samples used to measure gradient SQNR after each epoch.
-    #[arg(long, default_value_t = 32)]
-    probe: usize,
+    /// Training samples used to measure gradient SQNR after each epoch (at least 1: the
+    /// verdict's gradient-SQNR check is made on them, so 0 is refused rather than skipping
+    /// the check).
+    #[arg(long, default_value_t = 32, value_parser = clap::value_parser!(u32).range(1..))]
+    probe: u32,
     /// Keep the file order instead of shuffling each epoch.
     #[arg(long)]
     no_shuffle: bool,
@@ -153,26 +170,33 @@ struct DriftArgs {
     limits: Limits,
 }
 
+/// The verdict's thresholds. Each is a finite number of 0 or more; NaN, an infinity or a
+/// negative value is refused as bad input (exit status 2).
 #[derive(Args)]
 struct Limits {
     /// Largest evaluation-loss gap, % of the float loss.
-    #[arg(long, default_value_t = Thresholds::default().max_loss_gap_pct)]
+    #[arg(long, default_value_t = Thresholds::default().max_loss_gap_pct, value_parser = limit)]
     max_loss_gap: f64,
     /// Largest metric gap: accuracy points, or % of the float RMSE.
-    #[arg(long, default_value_t = Thresholds::default().max_metric_gap)]
+    #[arg(long, default_value_t = Thresholds::default().max_metric_gap, value_parser = limit)]
     max_metric_gap: f64,
     /// Largest RMS weight divergence, steps of the weight format.
-    #[arg(long, default_value_t = Thresholds::default().max_weight_rms_steps)]
+    #[arg(long, default_value_t = Thresholds::default().max_weight_rms_steps, value_parser = limit)]
     max_weight_rms: f64,
     /// Smallest gradient SQNR, dB.
-    #[arg(long, default_value_t = Thresholds::default().min_grad_sqnr_db)]
+    #[arg(long, default_value_t = Thresholds::default().min_grad_sqnr_db, value_parser = limit)]
     min_grad_sqnr: f64,
     /// Largest saturation rate, parts per million.
-    #[arg(long, default_value_t = Thresholds::default().max_saturation_ppm)]
+    #[arg(long, default_value_t = Thresholds::default().max_saturation_ppm, value_parser = limit)]
     max_saturation_ppm: f64,
     /// Largest share of updates lost to rounding, %.
-    #[arg(long, default_value_t = Thresholds::default().max_lost_updates_pct)]
+    #[arg(long, default_value_t = Thresholds::default().max_lost_updates_pct, value_parser = limit)]
     max_lost_updates: f64,
+}
+
+/// A threshold of `hone drift`: see [`hone_host::drift::parse_limit`].
+fn limit(text: &str) -> Result<f64, hone_host::drift::LimitError> {
+    hone_host::drift::parse_limit(text)
 }
 
 #[derive(Args)]
@@ -180,7 +204,7 @@ struct PlanArgs {
     #[command(flatten)]
     cfg: ConfigArg,
     /// Chip from the built-in table (see `hone chips`).
-    #[arg(long, conflicts_with_all = ["ram", "flash"])]
+    #[arg(long, conflicts_with_all = ["ram", "flash", "core"])]
     chip: Option<String>,
     /// RAM of a custom target, e.g. 20k.
     #[arg(long, requires = "flash")]
@@ -188,6 +212,11 @@ struct PlanArgs {
     /// Flash of a custom target, e.g. 64k.
     #[arg(long, requires = "ram")]
     flash: Option<String>,
+    /// Core of a custom target, so the engine's overhead measured for it is counted:
+    /// cortex-m0, cortex-m0+, cortex-m3, cortex-m4f, rv32imc or rv32imac. Without it the
+    /// largest figures measured on any of these cores are counted, as an estimate.
+    #[arg(long, requires = "ram")]
+    core: Option<String>,
     /// RAM the rest of the firmware already uses.
     #[arg(long, default_value = "0")]
     reserve_ram: String,
@@ -195,7 +224,9 @@ struct PlanArgs {
     #[arg(long, default_value = "0")]
     reserve_flash: String,
     /// Float model from `hone train`: formats are then chosen from data, and with --train and
-    /// --eval every alternative of the advice also gets a drift cost.
+    /// --eval the alternatives of the advice also get a drift cost. Fewer hidden units get
+    /// none (marked "not computed"): a changed layer size needs a float model retrained with
+    /// that shape.
     #[arg(long)]
     model: Option<PathBuf>,
     /// Calibration samples for the drift cost of each alternative.
@@ -210,7 +241,7 @@ struct PlanArgs {
     #[arg(long)]
     calib: Option<PathBuf>,
     /// Passes over the calibration samples for each drift cost.
-    #[arg(long, default_value_t = 10, value_parser = clap::value_parser!(u32).range(1..))]
+    #[arg(long, default_value_t = hone_host::pipeline::PLAN_DRIFT_EPOCHS, value_parser = clap::value_parser!(u32).range(1..))]
     epochs: u32,
     /// Print JSON.
     #[arg(long)]
@@ -430,22 +461,35 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             let config = load_config(&cfg)?;
             let dataset = config.load_data(&data, None).map_err(|e| anyhow!("{e}"))?;
             let b = bar(config.epochs() as u64, "epochs");
-            let model = hone_host::train::train_float(&config, &dataset, &mut |e, _, loss| {
+            let trained = hone_host::train::train_float(&config, &dataset, &mut |e, _, loss| {
                 b.set_position(e as u64);
                 b.set_message(format!("loss {loss:.5}"));
             })
             .map_err(|e| anyhow!("{e}"))?;
             b.finish_and_clear();
+            for c in &trained.constant {
+                eprintln!("warning: {}: {c}", data.display());
+            }
+            let model = &trained.model;
             model.save(&out).map_err(|e| anyhow!("{e}"))?;
             let last = model
                 .history
                 .last()
                 .map(|h| (h.loss, h.metric))
                 .unwrap_or_default();
+            let held = if trained.held_out_rows > 0 {
+                format!(
+                    " ({} held out of {} by data.holdout)",
+                    trained.held_out_rows,
+                    dataset.len()
+                )
+            } else {
+                String::new()
+            };
             outln!(
-                "trained {} epochs on {} rows: final loss {:.6}, {} {:.4}; written to {}",
+                "trained {} epochs on {} rows{held}: final loss {:.6}, {} {:.4}; written to {}",
                 config.epochs(),
-                dataset.len(),
+                trained.trained_rows,
                 last.0,
                 if dataset.classes().is_some() {
                     "accuracy %"
@@ -466,7 +510,8 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
         } => {
             let base = load_base(&model, &data)?;
             let q = &base.quant;
-            // Render every output before writing any, so a failure leaves no partial set.
+            // Render every output before writing any, then write them as one set: a failure
+            // leaves none of them.
             let blob_bytes = match &blob {
                 Some(_) => Some(
                     hone_host::export::model_blob(&q.desc, &q.params, &base.float.scaling)
@@ -493,14 +538,14 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                 }
                 None => None,
             };
+            let mut set: Vec<(&Path, &[u8])> = Vec::new();
             if let (Some(p), Some(bytes)) = (&blob, &blob_bytes) {
-                hone_host::fsutil::write_atomic(p, bytes)
-                    .with_context(|| p.display().to_string())?;
+                set.push((p, bytes));
             }
             if let (Some(p), Some(src)) = (&rust, &rust_src) {
-                hone_host::fsutil::write_atomic(p, src.as_bytes())
-                    .with_context(|| p.display().to_string())?;
+                set.push((p, src.as_bytes()));
             }
+            hone_host::fsutil::write_all(&set)?;
             if json {
                 print_json(&q.report)?;
             } else {
@@ -578,7 +623,7 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
         epochs,
         order_seed: base.config.train().seed,
         per_step: a.per_step,
-        probe: a.probe,
+        probe: a.probe as usize,
         shuffle: !a.no_shuffle,
     };
     let q = &base.quant;
@@ -629,14 +674,13 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
         out!("{}", report.render_text());
     }
     if let Some(dir) = &a.report {
-        let files = report
-            .document("hone drift report")
-            .write(dir, "drift")
-            .with_context(|| dir.display().to_string())?;
-        let json = dir.join("drift.json");
-        hone_host::fsutil::write_atomic(&json, serde_json::to_string_pretty(&report)?.as_bytes())
-            .with_context(|| json.display().to_string())?;
-        for f in files.iter().chain(std::iter::once(&json)) {
+        // The report, its figures and the JSON are one set: all written or none.
+        let mut files = report.document("hone drift report").files("drift")?;
+        files.push((
+            "drift.json".into(),
+            serde_json::to_string_pretty(&report)?.into_bytes(),
+        ));
+        for f in hone_host::fsutil::write_all_in(dir, &files)? {
             eprintln!("written: {}", f.display());
         }
     }
@@ -648,7 +692,7 @@ fn size(s: &str, what: &str) -> Result<u32> {
 }
 
 fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
-    use hone_host::memplan::{plan_report, render_table, AdviceOptions, Budget, Reserve};
+    use hone_host::memplan::{self, plan_report, render_table, AdviceOptions, Budget, Reserve};
     let config = load_config(&a.cfg)?;
     let base = match (&a.model, &a.train) {
         (Some(model), Some(train)) => Some(load_base(&ModelArgs { cfg: ConfigArg { config: a.cfg.config.clone() }, model: model.clone() }, a.calib.as_ref().unwrap_or(train))?),
@@ -667,59 +711,46 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
         (Some(b), Some(t), Some(e)) => Some((prepare(b, t)?, prepare(b, e)?)),
         _ => None,
     };
-    let drift_cost = |d: &hone_core::model::ModelDesc| -> Option<hone_host::memplan::DriftCost> {
-        let (b, (train, eval)) = (base.as_ref()?, data.as_ref()?);
-        let (q, _) = hone_host::sim::QuantParams::quantize(d, &b.quant.float_params).ok()?;
-        let opts = RunOptions {
-            epochs: a.epochs,
-            order_seed: b.config.train().seed,
-            per_step: false,
-            probe: 0,
-            shuffle: true,
-        };
-        let run = run_side_by_side(
-            d,
-            &q,
-            &b.quant.float_params,
-            train,
-            eval,
-            &opts,
-            &mut |_| {},
-        )
-        .ok()?;
-        let last = run.epochs.last()?;
-        let gap = hone_host::drift::gap_pct(last.fixed_eval_loss, last.float_eval_loss);
-        Some(hone_host::memplan::DriftCost {
-            what: format!("eval loss gap after {} calibration passes", a.epochs),
-            value: gap,
-            unit: "% of float".into(),
-        })
+    let drift_cost = |d: &hone_core::model::ModelDesc| match (base.as_ref(), data.as_ref()) {
+        (Some(b), Some((train, eval))) => {
+            hone_host::pipeline::drift_cost(b, train, eval, a.epochs, d)
+        }
+        _ => Err("no calibration data".to_owned()),
     };
-    let budget = match (&a.chip, &a.ram, &a.flash) {
-        (Some(id), _, _) => Budget::chip(hone_host::chips::find(id).ok_or_else(|| anyhow!("--chip: unknown chip `{id}`; `hone chips` lists the built-in ones, or give --ram and --flash"))?),
+    let chip = match &a.chip {
+        Some(id) => Some(hone_host::chips::find(id).ok_or_else(|| anyhow!("--chip: unknown chip `{id}`; `hone chips` lists the built-in ones, or give --ram and --flash"))?),
+        None => None,
+    };
+    let budget = match (chip, &a.ram, &a.flash) {
+        (Some(c), _, _) => Budget::chip(c),
         (None, Some(r), Some(f)) => Budget::custom(size(r, "ram")?, size(f, "flash")?),
-        _ => return Err(anyhow!("give a target: --chip ID, or --ram SIZE and --flash SIZE")),
+        _ => {
+            return Err(anyhow!(
+                "give a target: --chip ID, or --ram SIZE and --flash SIZE"
+            ))
+        }
     };
     let reserve = Reserve {
         ram_bytes: size(&a.reserve_ram, "reserve-ram")?,
         flash_bytes: size(&a.reserve_flash, "reserve-flash")?,
     };
-    // The engine's own code, state and stack, as measured on a board with the chip's core.
-    let overhead = a
-        .chip
-        .as_deref()
-        .and_then(hone_host::chips::find)
-        .and_then(hone_host::memplan::measured_overhead);
+    // The engine's own code, state and stack: measured on a board with the chip's (or the
+    // named) core, or else the largest measured figures, marked as an estimate.
+    let overhead = match (chip, &a.core) {
+        (Some(c), _) => memplan::engine_overhead(c),
+        (None, Some(name)) => memplan::measured_core_overhead(
+            memplan::measured_core(name).map_err(|e| anyhow!("--core: {e}"))?,
+        ),
+        (None, None) => memplan::estimated_overhead(),
+    };
     let report = plan_report(
         &desc,
         &budget,
         reserve,
-        overhead.as_ref(),
+        Some(&overhead),
         &AdviceOptions::default(),
-        data.as_ref().map(|_| {
-            &drift_cost
-                as &dyn Fn(&hone_core::model::ModelDesc) -> Option<hone_host::memplan::DriftCost>
-        }),
+        data.as_ref()
+            .map(|_| &drift_cost as hone_host::memplan::DriftFn<'_>),
     )
     .map_err(|e| anyhow!("{}: {e}", a.cfg.config.display()))?;
     if a.json {
@@ -866,22 +897,28 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
         outln!("● on the Pareto front of training RAM against drift (|fixed − float| evaluation loss, % of float)");
     }
     if let Some(dir) = &a.out {
-        std::fs::create_dir_all(dir).with_context(|| dir.display().to_string())?;
-        for (name, bytes) in [
+        let files = vec![
             (
-                "sweep.json",
+                "sweep.json".to_owned(),
                 serde_json::to_string_pretty(&points)?.into_bytes(),
             ),
-            ("sweep.svg", plot(&points).into_bytes()),
+            ("sweep.svg".to_owned(), plot(&points).into_bytes()),
             (
-                "sweep.txt",
+                "sweep.txt".to_owned(),
                 hone_host::report::render_text_table(&t).into_bytes(),
             ),
-        ] {
-            let p = dir.join(name);
-            hone_host::fsutil::write_atomic(&p, &bytes).with_context(|| p.display().to_string())?;
+        ];
+        for p in hone_host::fsutil::write_all_in(dir, &files)? {
             eprintln!("written: {}", p.display());
         }
+    }
+    if points.iter().all(|p| p.error.is_some()) {
+        eprintln!(
+            "check failed: none of the {} grid points ran, so there is nothing to compare; each \
+             point's error says why",
+            points.len()
+        );
+        return Ok(Some(CheckFailed));
     }
     Ok(None)
 }
@@ -994,7 +1031,9 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
                 }
                 None => {
                     let region_len = size(&region, "region")?;
-                    if g.erase == 0 || !region_len.is_multiple_of(g.erase) {
+                    hone_host::checkpoint::check_geometry(geometry(&g))
+                        .map_err(|e| anyhow!("{e}"))?;
+                    if !region_len.is_multiple_of(g.erase) {
                         return Err(anyhow!(
                             "--region: {region_len} B is not a whole number of {} B erase \
                              sectors; give the size of the device's checkpoint area, a multiple \

@@ -6,9 +6,11 @@
 //!
 //! - a **reserve**: RAM and flash the rest of the firmware already takes;
 //! - the **engine overhead**: the engine's code size, the trainer object's size and its stack
-//!   peak. They depend on the target and the compiler and are measured elsewhere; this module
-//!   takes them as given, prints their source beside them, and counts nothing in their place
-//!   when none is given.
+//!   peak. They depend on the target and the compiler and are measured on the QEMU boards
+//!   ([`MEASURED_OVERHEADS`]). [`engine_overhead`] gives the measured row of a chip's core, or,
+//!   for a core without one, an estimate: the largest figure of each kind over the measured
+//!   cores ([`estimated_overhead`]), marked as such. [`plan_report`] takes the overhead as
+//!   given, prints its source beside it, and counts nothing in its place when none is given.
 //!
 //! The advice lists concrete alternatives (freeze a layer, train only its bias, narrower
 //! words, no master copies, no momentum, fewer hidden units, another batch size). Each one is
@@ -22,7 +24,7 @@ use hone_core::num::{QFormat, QScalar, Word};
 use hone_core::plan::{Plan, Slot};
 use serde::Serialize;
 
-use crate::chips::Chip;
+use crate::chips::{Chip, CoreKind, Fpu};
 
 /// Why a plan report could not be made.
 #[derive(Debug, thiserror::Error)]
@@ -203,10 +205,22 @@ pub struct Reserve {
     pub flash_bytes: u32,
 }
 
+/// How the figures of an [`EngineOverhead`] were obtained.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum OverheadBasis {
+    /// Measured for this core (or stated by the caller from a measurement).
+    Measured,
+    /// Not measured for this core: the largest figure of each kind measured on other cores.
+    Estimated,
+}
+
 /// What the engine itself costs on the target, measured elsewhere (for example from a board
-/// build's section sizes and its stack watermark).
+/// build's section sizes and its stack watermark), or estimated from such measurements.
 #[derive(Clone, Debug, PartialEq, Eq, Serialize)]
 pub struct EngineOverhead {
+    /// Whether the figures were measured for this core or estimated from other cores.
+    pub basis: OverheadBasis,
     /// Flash taken by the engine's code and constant tables, bytes.
     pub code_flash: u32,
     /// RAM taken by the trainer object outside the arena, bytes.
@@ -611,8 +625,11 @@ pub struct Alternative {
     pub flash_spare_bytes: i64,
     /// Whether this change alone makes the model fit.
     pub fits_alone: bool,
-    /// The caller's drift cost, when it gave one.
+    /// The caller's drift cost, when it gave one and could compute it.
     pub drift: Option<DriftCost>,
+    /// Why the caller could not compute the drift cost (for example a changed layer shape
+    /// that needs a retrained float model); `None` when it did, or was not asked.
+    pub drift_not_computed: Option<String>,
 }
 
 /// One change of a [`Combination`].
@@ -641,8 +658,10 @@ pub struct Combination {
     pub flash_spare_bytes: i64,
     /// Whether the model fits with all of them.
     pub fits: bool,
-    /// The caller's drift cost of the combined model, when it gave one.
+    /// The caller's drift cost of the combined model, when it gave one and could compute it.
     pub drift: Option<DriftCost>,
+    /// Why the caller could not compute the drift cost of the combined model.
+    pub drift_not_computed: Option<String>,
 }
 
 /// A summary of the model planned.
@@ -694,8 +713,18 @@ pub struct PlanReport {
     pub combination: Option<Combination>,
 }
 
-/// What the caller may pass to estimate the drift cost of a changed model.
-pub type DriftFn<'a> = &'a dyn Fn(&ModelDesc) -> Option<DriftCost>;
+/// What the caller may pass to estimate the drift cost of a changed model: the cost, or why
+/// it cannot be computed for this change (shown in its place).
+pub type DriftFn<'a> = &'a dyn Fn(&ModelDesc) -> Result<DriftCost, String>;
+
+/// Calls the caller's drift function, if any: the cost, and the reason when there is none.
+fn drift_of(drift: Option<DriftFn<'_>>, d: &ModelDesc) -> (Option<DriftCost>, Option<String>) {
+    match drift.map(|f| f(d)) {
+        None => (None, None),
+        Some(Ok(c)) => (Some(c), None),
+        Some(Err(why)) => (None, Some(why)),
+    }
+}
 
 /// A layer kind in a few characters: "dense 8", "conv1d 4×5/2", "max pool 2/2".
 pub fn kind_label(kind: &LayerKind) -> String {
@@ -997,6 +1026,7 @@ pub fn plan_report(
             continue;
         }
         let (r, f) = uses(&new_plan, budget, reserve, engine);
+        let (drift_cost, drift_not_computed) = drift_of(drift, &changed);
         advice.push(Alternative {
             kind: change.kind(),
             layer: change.layer(),
@@ -1008,7 +1038,8 @@ pub fn plan_report(
             ram_spare_bytes: r.spare_bytes,
             flash_spare_bytes: f.spare_bytes,
             fits_alone: r.fits && f.fits,
-            drift: drift.and_then(|d| d(&changed)),
+            drift: drift_cost,
+            drift_not_computed,
         });
         applied.push(change);
     }
@@ -1106,6 +1137,7 @@ fn combine(
         return None;
     }
     let (r, f) = uses(&cur_plan, budget, reserve, engine);
+    let (drift, drift_not_computed) = drift_of(drift, &cur);
     Some(Combination {
         changes: kept,
         ram_saved_bytes: plan.ram_bytes as i64 - cur_plan.ram_bytes as i64,
@@ -1113,7 +1145,8 @@ fn combine(
         ram_spare_bytes: r.spare_bytes,
         flash_spare_bytes: f.spare_bytes,
         fits: r.fits && f.fits,
-        drift: drift.and_then(|d| d(&cur)),
+        drift,
+        drift_not_computed,
     })
 }
 
@@ -1257,11 +1290,12 @@ fn spare_row(spare: i64, pct: Option<f64>) -> Vec<String> {
     }
 }
 
-fn drift_text(d: &Option<DriftCost>) -> String {
-    match d {
-        Some(d) if d.unit.is_empty() => format!("{} {:+.4}", d.what, d.value),
-        Some(d) => format!("{} {:+.4} {}", d.what, d.value, d.unit),
-        None => String::new(),
+fn drift_text(d: &Option<DriftCost>, not_computed: &Option<String>) -> String {
+    match (d, not_computed) {
+        (Some(d), _) if d.unit.is_empty() => format!("{} {:+.4}", d.what, d.value),
+        (Some(d), _) => format!("{} {:+.4} {}", d.what, d.value, d.unit),
+        (None, Some(why)) => format!("not computed: {why}"),
+        (None, None) => String::new(),
     }
 }
 
@@ -1322,13 +1356,17 @@ pub fn render_table(r: &PlanReport) -> String {
     );
     match &r.engine {
         Some(e) => {
-            let _ = writeln!(
-                o,
-                "Engine: code {} of flash, trainer state {} and stack peak {} of RAM",
+            let line = format!(
+                "Engine{}: code {} of flash, trainer state {} and stack peak {} of RAM",
+                match e.basis {
+                    OverheadBasis::Measured => "",
+                    OverheadBasis::Estimated => " (estimate, not measured for this core)",
+                },
                 bytes(e.code_flash as u64),
                 bytes(e.state_ram as u64),
                 bytes(e.stack as u64)
             );
+            let _ = writeln!(o, "{}", wrap(&line, WIDTH, 8));
             let _ = writeln!(
                 o,
                 "        {}",
@@ -1429,7 +1467,10 @@ pub fn render_table(r: &PlanReport) -> String {
     }
 
     // Totals, RAM and flash side by side in one table each.
-    let measured = "measured";
+    let measured = match r.engine.as_ref().map(|e| e.basis) {
+        Some(OverheadBasis::Estimated) => "estimate: largest measured",
+        _ => "measured",
+    };
     let unmeasured = "not measured, not counted";
     let mut rows = vec![vec![
         "training arena".to_owned(),
@@ -1520,11 +1561,14 @@ pub fn render_table(r: &PlanReport) -> String {
                     signed_bytes(a.ram_saved_bytes),
                     signed_bytes(a.flash_saved_bytes),
                     if a.fits_alone { "yes" } else { "no" }.to_owned(),
-                    drift_text(&a.drift),
+                    drift_text(&a.drift, &a.drift_not_computed),
                 ]
             })
             .collect();
-        let has_drift = r.advice.iter().any(|a| a.drift.is_some());
+        let has_drift = r
+            .advice
+            .iter()
+            .any(|a| a.drift.is_some() || a.drift_not_computed.is_some());
         let head: &[&str] = if has_drift {
             &["change", "RAM saved", "flash saved", "fits alone", "drift"]
         } else {
@@ -1575,8 +1619,12 @@ pub fn render_table(r: &PlanReport) -> String {
                 4
             )
         );
-        if c.drift.is_some() {
-            let _ = writeln!(o, "  drift: {}", drift_text(&c.drift));
+        if c.drift.is_some() || c.drift_not_computed.is_some() {
+            let _ = writeln!(
+                o,
+                "  drift: {}",
+                drift_text(&c.drift, &c.drift_not_computed)
+            );
         }
     }
     o
@@ -1630,9 +1678,9 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         board: "lm3s6965evb",
         target: "thumbv7m-none-eabi",
         config: "examples/soil-moisture.toml",
-        trainer_bytes: 2108,
-        engine_stack_bytes: 7936,
-        engine_code_bytes: 86016,
+        trainer_bytes: 2300,
+        engine_stack_bytes: 8704,
+        engine_code_bytes: 88064,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 128,
     },
@@ -1640,9 +1688,9 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         board: "microbit",
         target: "thumbv6m-none-eabi",
         config: "examples/soil-moisture.toml",
-        trainer_bytes: 2108,
-        engine_stack_bytes: 7936,
-        engine_code_bytes: 88064,
+        trainer_bytes: 2300,
+        engine_stack_bytes: 8960,
+        engine_code_bytes: 90112,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 168,
     },
@@ -1650,9 +1698,9 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         board: "mps2-an386",
         target: "thumbv7em-none-eabihf",
         config: "examples/soil-moisture.toml",
-        trainer_bytes: 2108,
-        engine_stack_bytes: 7936,
-        engine_code_bytes: 86016,
+        trainer_bytes: 2300,
+        engine_stack_bytes: 8704,
+        engine_code_bytes: 88064,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 128,
     },
@@ -1660,18 +1708,17 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         board: "sifive-e",
         target: "riscv32imc-unknown-none-elf",
         config: "examples/soil-moisture-8bit.toml",
-        trainer_bytes: 2108,
-        engine_stack_bytes: 7424,
-        engine_code_bytes: 86016,
+        trainer_bytes: 2300,
+        engine_stack_bytes: 8448,
+        engine_code_bytes: 92160,
         firmware_static_bytes: 24,
         firmware_stack_bytes: 112,
     },
 ];
 
-/// The Rust target whose measured figures apply to `chip`'s core, if one was measured.
-fn measured_target(chip: &Chip) -> Option<&'static str> {
-    use crate::chips::{CoreKind, Fpu};
-    match (chip.core, chip.fpu) {
+/// The Rust target whose measured figures apply to a core, if one was measured.
+fn measured_target_of(core: CoreKind, fpu: Fpu) -> Option<&'static str> {
+    match (core, fpu) {
         (CoreKind::CortexM0 | CoreKind::CortexM0Plus, _) => Some("thumbv6m-none-eabi"),
         (CoreKind::CortexM3, _) => Some("thumbv7m-none-eabi"),
         (CoreKind::CortexM4, Fpu::Single) => Some("thumbv7em-none-eabihf"),
@@ -1680,18 +1727,98 @@ fn measured_target(chip: &Chip) -> Option<&'static str> {
     }
 }
 
-/// The measured row for `chip`'s core, if there is one.
-pub fn measured_row(chip: &Chip) -> Option<&'static MeasuredOverhead> {
-    let target = measured_target(chip)?;
+/// The Rust target whose measured figures apply to `chip`'s core, if one was measured.
+fn measured_target(chip: &Chip) -> Option<&'static str> {
+    measured_target_of(chip.core, chip.fpu)
+}
+
+/// A core with a measured row, as `hone plan --core` names it.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct MeasuredCore {
+    /// The name on the command line: the core's label in lower case, e.g. `cortex-m4f`.
+    pub name: &'static str,
+    /// The core.
+    pub core: CoreKind,
+    /// Its floating-point unit.
+    pub fpu: Fpu,
+}
+
+/// Every core whose engine overhead was measured, by way of a board built for the same Rust
+/// target (see [`MEASURED_OVERHEADS`]).
+pub const MEASURED_CORES: [MeasuredCore; 6] = [
+    MeasuredCore {
+        name: "cortex-m0",
+        core: CoreKind::CortexM0,
+        fpu: Fpu::None,
+    },
+    MeasuredCore {
+        name: "cortex-m0+",
+        core: CoreKind::CortexM0Plus,
+        fpu: Fpu::None,
+    },
+    MeasuredCore {
+        name: "cortex-m3",
+        core: CoreKind::CortexM3,
+        fpu: Fpu::None,
+    },
+    MeasuredCore {
+        name: "cortex-m4f",
+        core: CoreKind::CortexM4,
+        fpu: Fpu::Single,
+    },
+    MeasuredCore {
+        name: "rv32imc",
+        core: CoreKind::Rv32imc,
+        fpu: Fpu::None,
+    },
+    MeasuredCore {
+        name: "rv32imac",
+        core: CoreKind::Rv32imac,
+        fpu: Fpu::None,
+    },
+];
+
+/// A core name that has no measured row.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[error(
+    "`{0}` is not a measured core; use one of {list}, or leave the option out to count the \
+     largest figures measured on any of them",
+    list = measured_core_names()
+)]
+pub struct UnknownCore(pub String);
+
+/// The names of [`MEASURED_CORES`], comma-separated.
+pub fn measured_core_names() -> String {
+    MEASURED_CORES
+        .iter()
+        .map(|c| c.name)
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// The measured core called `name` (case-insensitive).
+///
+/// # Errors
+/// [`UnknownCore`] listing the names that are accepted.
+pub fn measured_core(name: &str) -> Result<&'static MeasuredCore, UnknownCore> {
+    MEASURED_CORES
+        .iter()
+        .find(|c| c.name.eq_ignore_ascii_case(name.trim()))
+        .ok_or_else(|| UnknownCore(name.to_owned()))
+}
+
+fn row_of_target(target: &str) -> Option<&'static MeasuredOverhead> {
     MEASURED_OVERHEADS.iter().find(|m| m.target == target)
 }
 
-/// The engine overhead measured for `chip`'s core (trainer object, engine stack, engine
-/// code), with its source, for [`plan_report`]; `None` when no board with that core was
-/// measured.
-pub fn measured_overhead(chip: &Chip) -> Option<EngineOverhead> {
-    let m = measured_row(chip)?;
-    Some(EngineOverhead {
+/// The measured row for `chip`'s core, if there is one.
+pub fn measured_row(chip: &Chip) -> Option<&'static MeasuredOverhead> {
+    row_of_target(measured_target(chip)?)
+}
+
+fn overhead_of_row(m: &MeasuredOverhead) -> EngineOverhead {
+    EngineOverhead {
+        basis: OverheadBasis::Measured,
         code_flash: m.engine_code_bytes,
         state_ram: m.trainer_bytes,
         stack: m.engine_stack_bytes,
@@ -1699,7 +1826,60 @@ pub fn measured_overhead(chip: &Chip) -> Option<EngineOverhead> {
             "{MEASURED_SOURCE}: board {} ({}), model {}",
             m.board, m.target, m.config
         ),
-    })
+    }
+}
+
+/// The engine overhead measured for `chip`'s core (trainer object, engine stack, engine
+/// code), with its source, for [`plan_report`]; `None` when no board with that core was
+/// measured.
+pub fn measured_overhead(chip: &Chip) -> Option<EngineOverhead> {
+    measured_row(chip).map(overhead_of_row)
+}
+
+/// The engine overhead measured for a core named on the command line.
+pub fn measured_core_overhead(core: &MeasuredCore) -> EngineOverhead {
+    let row = measured_target_of(core.core, core.fpu).and_then(row_of_target);
+    match row {
+        Some(m) => overhead_of_row(m),
+        // Every entry of MEASURED_CORES has a row (checked by a test); should one ever lack
+        // it, the estimate is the safe figure.
+        None => estimated_overhead(),
+    }
+}
+
+/// A conservative stand-in for a core that was not measured: the largest trainer object,
+/// engine stack and engine code over every row of [`MEASURED_OVERHEADS`], each taken on its
+/// own, with a source that says so and names the measured cores.
+pub fn estimated_overhead() -> EngineOverhead {
+    let max = |f: fn(&MeasuredOverhead) -> u32| MEASURED_OVERHEADS.iter().map(f).max();
+    let cores: Vec<String> = MEASURED_OVERHEADS
+        .iter()
+        .map(|m| {
+            let labels: Vec<String> = MEASURED_CORES
+                .iter()
+                .filter(|c| measured_target_of(c.core, c.fpu) == Some(m.target))
+                .map(|c| crate::chips::core_label(c.core, c.fpu))
+                .collect();
+            format!("{} ({})", labels.join("/"), m.board)
+        })
+        .collect();
+    EngineOverhead {
+        basis: OverheadBasis::Estimated,
+        code_flash: max(|m| m.engine_code_bytes).unwrap_or(0),
+        state_ram: max(|m| m.trainer_bytes).unwrap_or(0),
+        stack: max(|m| m.engine_stack_bytes).unwrap_or(0),
+        source: format!(
+            "estimate: this core was not measured, so the largest figure of each kind measured \
+             on {} is counted; {MEASURED_SOURCE}",
+            cores.join(", ")
+        ),
+    }
+}
+
+/// The engine overhead to count for `chip`: its core's measured row, or
+/// [`estimated_overhead`] when its core was not measured.
+pub fn engine_overhead(chip: &Chip) -> EngineOverhead {
+    measured_overhead(chip).unwrap_or_else(estimated_overhead)
 }
 
 /// The RAM of hone's own board firmware around the engine (its statics and the stack depth
@@ -1743,6 +1923,69 @@ mod tests {
         assert_eq!(lines.len(), 3);
         assert_eq!(lines[1], "  xyz      1");
         assert_eq!(lines[2], "  q    1 000");
+    }
+
+    #[test]
+    fn measured_cores_match_their_labels_and_rows() {
+        use crate::chips::core_label;
+        for c in MEASURED_CORES {
+            assert_eq!(c.name, core_label(c.core, c.fpu).to_lowercase());
+            let m = measured_core_overhead(&c);
+            assert_eq!(m.basis, OverheadBasis::Measured, "{}", c.name);
+            assert_eq!(measured_core(&c.name.to_uppercase()), Ok(&c));
+        }
+        // Every measured row serves at least one named core, and every core/FPU pair with a
+        // row is named.
+        for m in &MEASURED_OVERHEADS {
+            assert!(
+                MEASURED_CORES
+                    .iter()
+                    .any(|c| measured_target_of(c.core, c.fpu) == Some(m.target)),
+                "{}",
+                m.board
+            );
+        }
+        // Every chip of the built-in table whose core has a row can be named by --core.
+        for chip in crate::chips::all() {
+            let named = MEASURED_CORES
+                .iter()
+                .any(|c| (c.core, c.fpu) == (chip.core, chip.fpu));
+            assert_eq!(named, measured_row(chip).is_some(), "{}", chip.id);
+        }
+        let e = measured_core("cortex-m7").unwrap_err().to_string();
+        assert!(e.contains("`cortex-m7` is not a measured core"), "{e}");
+        assert!(e.contains("cortex-m0+"), "{e}");
+    }
+
+    #[test]
+    fn estimate_is_the_largest_measured_figure_of_each_kind() {
+        let e = estimated_overhead();
+        assert_eq!(e.basis, OverheadBasis::Estimated);
+        for m in &MEASURED_OVERHEADS {
+            assert!(e.code_flash >= m.engine_code_bytes);
+            assert!(e.state_ram >= m.trainer_bytes);
+            assert!(e.stack >= m.engine_stack_bytes);
+            assert!(e.source.contains(m.board), "{}", e.source);
+        }
+        assert!(MEASURED_OVERHEADS
+            .iter()
+            .any(|m| m.engine_code_bytes == e.code_flash));
+        assert!(MEASURED_OVERHEADS
+            .iter()
+            .any(|m| m.trainer_bytes == e.state_ram));
+        assert!(MEASURED_OVERHEADS
+            .iter()
+            .any(|m| m.engine_stack_bytes == e.stack));
+        assert!(e.source.starts_with("estimate"), "{}", e.source);
+        assert!(e.source.contains("Cortex-M4F"), "{}", e.source);
+        // A chip whose core was measured gets its row; one whose core was not, the estimate.
+        let nrf = crate::chips::find("nrf51822").unwrap();
+        assert_eq!(engine_overhead(nrf).basis, OverheadBasis::Measured);
+        for id in ["ch32v003f4", "stm32h743zi"] {
+            let chip = crate::chips::find(id).unwrap();
+            assert!(measured_row(chip).is_none(), "{id}");
+            assert_eq!(engine_overhead(chip), e, "{id}");
+        }
     }
 
     #[test]

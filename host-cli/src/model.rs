@@ -17,7 +17,9 @@
 //! | `history` | per epoch of the training that made it: `{ "epoch", "loss", "metric", "eval_loss", "eval_metric" }` (the last two on the rows held out, or null) |
 //!
 //! Numbers are written with Rust's shortest round-trip formatting, so reading a file back gives
-//! the very same `f64` weights.
+//! the very same `f64` weights. A key not listed here is an error, as in the config file, so a
+//! misspelt key is not silently ignored. Every scaling offset must be a finite number and every
+//! gain a finite number other than zero.
 
 use std::path::Path;
 
@@ -32,6 +34,7 @@ pub const FORMAT_VERSION: u32 = 1;
 
 /// One layer of a float model.
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct FloatLayer {
     /// What it computes.
     pub kind: LayerKind,
@@ -45,6 +48,7 @@ pub struct FloatLayer {
 
 /// One epoch of the training that produced a model.
 #[derive(Clone, Copy, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct EpochRecord {
     /// Epoch number, from 1.
     pub epoch: u32,
@@ -62,6 +66,7 @@ pub struct EpochRecord {
 
 /// A trained float model. See the [module docs](self).
 #[derive(Clone, Debug, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
 pub struct FloatModel {
     /// Always [`FORMAT_NAME`].
     pub format: String,
@@ -74,6 +79,7 @@ pub struct FloatModel {
     /// Layers.
     pub layers: Vec<FloatLayer>,
     /// Input scaling per channel.
+    #[serde(with = "scaling_entries")]
     pub scaling: Vec<ChannelScale>,
     /// Input column names.
     pub features: Vec<String>,
@@ -81,6 +87,37 @@ pub struct FloatModel {
     pub outputs: Vec<String>,
     /// Training history.
     pub history: Vec<EpochRecord>,
+}
+
+/// The `scaling` entries, read with unknown keys refused (the core's [`ChannelScale`] reads
+/// leniently, as the blob decoder does not need names).
+mod scaling_entries {
+    use hone_core::blob::ChannelScale;
+    use serde::{Deserialize, Deserializer, Serialize, Serializer};
+
+    #[derive(Serialize, Deserialize)]
+    #[serde(deny_unknown_fields)]
+    struct Entry {
+        offset: f32,
+        gain: f32,
+    }
+
+    pub fn serialize<S: Serializer>(v: &[ChannelScale], s: S) -> Result<S::Ok, S::Error> {
+        s.collect_seq(v.iter().map(|c| Entry {
+            offset: c.offset,
+            gain: c.gain,
+        }))
+    }
+
+    pub fn deserialize<'de, D: Deserializer<'de>>(d: D) -> Result<Vec<ChannelScale>, D::Error> {
+        Ok(Vec::<Entry>::deserialize(d)?
+            .into_iter()
+            .map(|e| ChannelScale {
+                offset: e.offset,
+                gain: e.gain,
+            })
+            .collect())
+    }
 }
 
 /// A problem with a float model file.
@@ -226,6 +263,22 @@ impl FloatModel {
                 self.input.channels
             ));
         }
+        for (c, sc) in self.scaling.iter().enumerate() {
+            if !sc.offset.is_finite() {
+                return Err(format!(
+                    "`scaling[{c}].offset` is {}, not a finite number; train the model again \
+                     or correct the entry",
+                    sc.offset
+                ));
+            }
+            if !sc.gain.is_finite() || sc.gain == 0.0 {
+                return Err(format!(
+                    "`scaling[{c}].gain` is {}; a gain must be a finite number other than 0 \
+                     (a zero gain erases the channel); train the model again or correct the entry",
+                    sc.gain
+                ));
+            }
+        }
         if self.features.len() != self.input.size() as usize {
             return Err(format!(
                 "{} feature names for an input of {} values",
@@ -234,5 +287,106 @@ impl FloatModel {
             ));
         }
         Ok(())
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A 2-input, 1-output dense model with two scaled channels.
+    fn small() -> FloatModel {
+        FloatModel {
+            format: FORMAT_NAME.into(),
+            version: FORMAT_VERSION,
+            input: Shape {
+                channels: 2,
+                len: 1,
+            },
+            loss: Loss::SquaredError,
+            layers: vec![FloatLayer {
+                kind: LayerKind::Dense { units: 1 },
+                mode: TrainMode::Full,
+                weights: vec![0.5, -0.25],
+                bias: vec![0.125],
+            }],
+            scaling: vec![
+                ChannelScale {
+                    offset: 2000.0,
+                    gain: 0.002,
+                },
+                ChannelScale {
+                    offset: 20.0,
+                    gain: 0.1,
+                },
+            ],
+            features: vec!["raw_counts".into(), "temp_c".into()],
+            outputs: vec!["vwc".into()],
+            history: Vec::new(),
+        }
+    }
+
+    fn load_text(text: &str) -> Result<FloatModel, ModelError> {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("m.json");
+        std::fs::write(&p, text).unwrap();
+        FloatModel::load(&p)
+    }
+
+    #[test]
+    fn saves_and_loads_the_same_model() {
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("m.json");
+        small().save(&p).unwrap();
+        assert_eq!(FloatModel::load(&p).unwrap(), small());
+    }
+
+    #[test]
+    fn bad_scaling_values_are_refused_naming_the_field() {
+        assert!(small().check().is_ok());
+        for (c, offset, gain, field) in [
+            (0, f32::NAN, 1.0, "`scaling[0].offset`"),
+            (1, f32::INFINITY, 1.0, "`scaling[1].offset`"),
+            (1, 20.0, 0.0, "`scaling[1].gain`"),
+            (0, 20.0, f32::NEG_INFINITY, "`scaling[0].gain`"),
+            (0, 20.0, f32::NAN, "`scaling[0].gain`"),
+        ] {
+            let mut m = small();
+            m.scaling[c] = ChannelScale { offset, gain };
+            let e = m.check().unwrap_err();
+            assert!(e.starts_with(field), "{field}: {e}");
+        }
+        // Through a file: a gain beyond the f32 range reads as infinite and is refused.
+        let text = serde_json::to_string(&small())
+            .unwrap()
+            .replace("\"gain\":0.1", "\"gain\":1e39");
+        let e = load_text(&text).unwrap_err().to_string();
+        assert!(e.contains("m.json: `scaling[1].gain` is inf"), "{e}");
+    }
+
+    #[test]
+    fn unknown_keys_are_refused() {
+        let good = serde_json::to_string(&small()).unwrap();
+        assert!(load_text(&good).is_ok());
+        for (from, to, key) in [
+            (
+                "\"version\":1",
+                "\"version\":1,\"comment\":\"x\"",
+                "comment",
+            ),
+            (
+                "\"bias\":[0.125]",
+                "\"bias\":[0.125],\"biases\":[1]",
+                "biases",
+            ),
+            ("\"gain\":0.1", "\"gain\":0.1,\"gian\":1", "gian"),
+        ] {
+            assert_eq!(good.matches(from).count(), 1, "{from}");
+            let e = load_text(&good.replacen(from, to, 1))
+                .unwrap_err()
+                .to_string();
+            assert!(e.contains("not a hone float model"), "{e}");
+            assert!(e.contains(&format!("unknown field `{key}`")), "{e}");
+        }
     }
 }

@@ -87,7 +87,7 @@ impl Base {
         progress: &mut dyn FnMut(u32, u32, f64),
     ) -> Result<Base, String> {
         let data = config.load_data(factory, None).map_err(|e| e.to_string())?;
-        let float = crate::train::train_float(&config, &data, progress)?;
+        let float = crate::train::train_float(&config, &data, progress)?.model;
         let quant = quantize(&config, &float, &data)?;
         Ok(Base {
             config,
@@ -149,4 +149,61 @@ impl Base {
         crate::data::apply(&self.float.scaling, &mut data).map_err(|e| e.to_string())?;
         Ok(data)
     }
+}
+
+/// Calibration passes of each drift cost in the plan's advice, unless the user gives another
+/// number (`hone plan --epochs`).
+pub const PLAN_DRIFT_EPOCHS: u32 = 10;
+
+/// The drift cost of a changed description for the plan's advice: the float base model's
+/// weights quantized into `desc`'s formats, calibrated for `epochs` passes over `train` in
+/// fixed point beside the float twin, and the gap of the evaluation losses on `eval` at the
+/// end, in % of the float loss.
+///
+/// # Errors
+/// Why the cost is not computed: a change of a layer's shape (its weights would need a float
+/// model trained with that shape), or a quantization or run that fails.
+pub fn drift_cost(
+    base: &Base,
+    train: &Prepared,
+    eval: &Prepared,
+    epochs: u32,
+    desc: &hone_core::model::ModelDesc,
+) -> Result<crate::memplan::DriftCost, String> {
+    let same_shape = desc.input == base.quant.desc.input
+        && desc.layers.len() == base.quant.desc.layers.len()
+        && desc
+            .layers
+            .iter()
+            .zip(&base.quant.desc.layers)
+            .all(|(a, b)| a.kind == b.kind);
+    if !same_shape {
+        return Err(
+            "a changed layer size needs a float model retrained with that shape (hone train)"
+                .into(),
+        );
+    }
+    let (q, _) = crate::sim::QuantParams::quantize(desc, &base.quant.float_params)?;
+    let opts = crate::sim::RunOptions {
+        epochs,
+        order_seed: base.config.train().seed,
+        per_step: false,
+        probe: 0,
+        shuffle: true,
+    };
+    let run = crate::sim::run_side_by_side(
+        desc,
+        &q,
+        &base.quant.float_params,
+        train,
+        eval,
+        &opts,
+        &mut |_| {},
+    )?;
+    let last = run.epochs.last().ok_or("the run recorded no epoch")?;
+    Ok(crate::memplan::DriftCost {
+        what: format!("eval loss gap after {epochs} calibration passes"),
+        value: crate::drift::gap_pct(last.fixed_eval_loss, last.float_eval_loss),
+        unit: "% of float".into(),
+    })
 }

@@ -9,7 +9,7 @@
 //!   external resources, readable on screen and printed in black and white.
 //! - [`Report::to_markdown`] makes GitHub-flavoured Markdown that links its figures as
 //!   separate SVG files and returns them to be written beside it.
-//! - [`Report::write`] writes both, and the figures, atomically.
+//! - [`Report::write`] writes both, and the figures, as one set: all or nothing.
 //! - [`render_text_table`] lays out a [`Table`] in columns for a terminal.
 //!
 //! All text is escaped for its target, so a label such as `a<b | c*` reads the same in every
@@ -17,11 +17,10 @@
 //! Rendering is deterministic: no dates, no host names.
 
 use std::fmt::Write as _;
-use std::fs;
 use std::io;
 use std::path::{Path, PathBuf};
 
-use crate::fsutil::write_atomic;
+use crate::fsutil::write_all_in;
 use crate::plot::escape_xml;
 
 /// A whole report.
@@ -288,18 +287,14 @@ impl Report {
         self.markdown(&prefix, "")
     }
 
-    /// Writes `stem.html`, `stem.md` and the figures into `dir`, creating `dir` if needed.
-    ///
-    /// The figures go beside the Markdown file as `stem-<figure stem>.svg`, so reports of
-    /// different stems can share a directory. Each file is written atomically, figures first,
-    /// so the Markdown never links a figure that is not there yet. Returns the paths written:
-    /// the HTML file, the Markdown file, then the figures in document order.
+    /// The files of the report named by `stem`, rendered and not yet written: `stem.html`,
+    /// `stem.md`, then the figures in document order as `stem-<figure stem>.svg` (beside the
+    /// Markdown file, so reports of different stems can share a directory).
     ///
     /// # Errors
     /// [`io::ErrorKind::InvalidInput`] if `stem` is empty or not a plain file name (it holds a
-    /// path separator, or is `.` or `..`); otherwise any I/O error of creating `dir` or of
-    /// writing a file. Files written before the error stay written.
-    pub fn write(&self, dir: &Path, stem: &str) -> io::Result<Vec<PathBuf>> {
+    /// path separator, or is `.` or `..`).
+    pub fn files(&self, stem: &str) -> io::Result<Vec<(String, Vec<u8>)>> {
         let plain = !stem.is_empty()
             && stem != "."
             && stem != ".."
@@ -311,21 +306,30 @@ impl Report {
                 format!("report name `{stem}` must be a plain file name without a directory"),
             ));
         }
-        fs::create_dir_all(dir)?;
         let (markdown, figures) = self.markdown("", &format!("{stem}-"));
-        let html_path = dir.join(format!("{stem}.html"));
-        let md_path = dir.join(format!("{stem}.md"));
-        let mut figure_paths = Vec::with_capacity(figures.len());
-        for (name, svg) in &figures {
-            let path = dir.join(name);
-            write_atomic(&path, svg.as_bytes())?;
-            figure_paths.push(path);
-        }
-        write_atomic(&md_path, markdown.as_bytes())?;
-        write_atomic(&html_path, self.to_html().as_bytes())?;
-        let mut paths = vec![html_path, md_path];
-        paths.extend(figure_paths);
-        Ok(paths)
+        let mut files = vec![
+            (format!("{stem}.html"), self.to_html().into_bytes()),
+            (format!("{stem}.md"), markdown.into_bytes()),
+        ];
+        files.extend(
+            figures
+                .into_iter()
+                .map(|(name, svg)| (name, svg.into_bytes())),
+        );
+        Ok(files)
+    }
+
+    /// Writes [`Report::files`] into `dir`, creating `dir` if needed, all or nothing (see
+    /// [`write_all_in`]): a failure leaves no file of the report and no directory it created.
+    /// Returns the paths written: the HTML file, the Markdown file, then the figures in
+    /// document order.
+    ///
+    /// # Errors
+    /// As [`Report::files`]; otherwise the I/O error of creating `dir` or of writing a file,
+    /// with the path it concerns in its message.
+    pub fn write(&self, dir: &Path, stem: &str) -> io::Result<Vec<PathBuf>> {
+        let files = self.files(stem)?;
+        write_all_in(dir, &files).map_err(|e| io::Error::new(e.source.kind(), e.to_string()))
     }
 
     /// Markdown with figure links `link_prefix + name_prefix + stem.svg` and figure files
@@ -651,6 +655,8 @@ mod tests {
         assert_eq!(super::short_decimal(0.0), "0");
         assert_eq!(super::short_decimal(2.0e-7), "0.0000002");
     }
+
+    use std::fs;
 
     use super::*;
     use crate::plot::markup_check::check;

@@ -11,7 +11,7 @@ use hone_core::num::Rng;
 use hone_core::plan::Plan;
 
 use crate::config::Config;
-use crate::data::{Dataset, Scaling, Targets};
+use crate::data::{ConstantChannel, Dataset, Scaling, Targets};
 use crate::model::{EpochRecord, FloatLayer, FloatModel, FORMAT_NAME, FORMAT_VERSION};
 use crate::sim::epoch_order;
 
@@ -62,21 +62,34 @@ pub fn provisional_frac(a: crate::config::AutoFormat) -> u8 {
     (a.word.bits() - 4) as u8
 }
 
-/// Scales a dataset as the config says: fits standardization per input channel on `fit_on`
-/// when `standardize` is on, and applies it. Returns the scaling (empty when off).
+/// Fits the input scaling the config asks for on `fit_on`: standardization per input channel
+/// when `data.standardize` is on, nothing (no scales, no constant channels) when it is off.
 ///
 /// # Errors
-/// A message from the scaler.
-pub fn fit_scaling(
-    cfg: &Config,
-    fit_on: &Dataset,
-) -> Result<Vec<hone_core::blob::ChannelScale>, String> {
+/// A message naming the file and, for statistics the device's `f32` scaling cannot hold, the
+/// column.
+pub fn fit_scaling(cfg: &Config, fit_on: &Dataset) -> Result<Scaling, String> {
     if !cfg.data().standardize {
-        return Ok(Vec::new());
+        return Ok(Scaling {
+            scales: Vec::new(),
+            constant: Vec::new(),
+        });
     }
-    let s = Scaling::fit_per_channel(fit_on, cfg.input().channels as usize)
-        .map_err(|e| e.to_string())?;
-    Ok(s.scales)
+    Scaling::fit_per_channel(fit_on, cfg.input().channels as usize).map_err(|e| e.to_string())
+}
+
+/// A float model fresh from [`train_float`], with what its training saw.
+#[derive(Clone, Debug)]
+pub struct Trained {
+    /// The model.
+    pub model: FloatModel,
+    /// Rows the model was trained on.
+    pub trained_rows: usize,
+    /// Rows held out of training (`data.holdout`) and scored after every epoch.
+    pub held_out_rows: usize,
+    /// Input channels that do not vary over the training rows: they were given gain 1 and
+    /// carry no information. The caller should tell the user.
+    pub constant: Vec<ConstantChannel>,
 }
 
 /// Mean loss and metric (accuracy in % or mean absolute error) of the twin on `data`.
@@ -116,12 +129,13 @@ fn score(twin: &mut Twin<'_, f64>, data: &Dataset) -> Result<(f64, f64), String>
 /// (epoch, epochs, mean loss) after each epoch.
 ///
 /// # Errors
-/// A message naming what failed: a description the core rejects, data that do not fit.
+/// A message naming what failed: a description the core rejects, data that do not fit, a
+/// column whose statistics the device's scaling cannot hold.
 pub fn train_float(
     cfg: &Config,
     data: &Dataset,
     progress: &mut dyn FnMut(u32, u32, f64),
-) -> Result<FloatModel, String> {
+) -> Result<Trained, String> {
     cfg.check_dataset(data).map_err(|e| e.to_string())?;
     let desc = cfg
         .model_desc_with(provisional_frac)
@@ -141,7 +155,10 @@ pub fn train_float(
             },
         )
     };
-    let scaling = fit_scaling(cfg, &fit_rows)?;
+    let Scaling {
+        scales: scaling,
+        constant,
+    } = fit_scaling(cfg, &fit_rows)?;
     let mut scaled = fit_rows;
     crate::data::apply(&scaling, &mut scaled).map_err(|e| e.to_string())?;
     let mut held = held;
@@ -231,5 +248,10 @@ pub fn train_float(
         history,
     };
     model.check().map_err(|_| diverged())?;
-    Ok(model)
+    Ok(Trained {
+        model,
+        trained_rows: n,
+        held_out_rows: held.len(),
+        constant,
+    })
 }

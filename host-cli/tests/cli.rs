@@ -212,7 +212,20 @@ fn soil_train_quantize_inspect() {
             "out/m.json",
         ],
     );
-    assert!(said.contains("trained 60 epochs on 2000 rows"), "{said}");
+    // The example holds a fifth of the factory rows out of training (`holdout = 0.2`).
+    let rows = fs::read_to_string(demo_data("soil_factory.csv"))
+        .unwrap()
+        .lines()
+        .count()
+        - 1;
+    let held = (rows as f64 * 0.2).round() as usize;
+    assert!(
+        said.contains(&format!(
+            "trained 60 epochs on {} rows ({held} held out of {rows} by data.holdout)",
+            rows - held
+        )),
+        "{said}"
+    );
     let model = read_json(&dir.join("out/m.json"));
     assert_eq!(model["format"], "hone-float-model");
     assert_eq!(model["version"], 1);
@@ -280,8 +293,12 @@ fn soil_train_quantize_inspect() {
     assert_eq!(fs::read(dir.join("out/again.honb")).unwrap(), blob);
 
     let said = run_ok(dir, &["inspect", "out/m.honb"]);
+    let head = format!(
+        "out/m.honb: hone model, blob format version {}",
+        hone_core::blob::FORMAT_VERSION
+    );
     for want in [
-        "out/m.honb: hone model, blob format version 1",
+        head.as_str(),
         "ok",
         "dense 8",
         "tanh",
@@ -466,6 +483,245 @@ fn plan_fits_a_chip_and_not_one_kilobyte() {
     assert_eq!(entries(dir), Vec::<String>::new(), "plan writes no file");
 }
 
+/// The engine's own RAM and code, from the measured table, or the largest measured figures.
+fn largest_measured() -> (u64, u64, u64) {
+    let rows = hone_host::memplan::MEASURED_OVERHEADS;
+    let max = |f: fn(&hone_host::memplan::MeasuredOverhead) -> u32| {
+        rows.iter().map(f).max().expect("measured rows") as u64
+    };
+    (
+        max(|m| m.trainer_bytes),
+        max(|m| m.engine_stack_bytes),
+        max(|m| m.engine_code_bytes),
+    )
+}
+
+#[test]
+fn plan_counts_the_engine_on_cores_without_measurements() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    let soil = example("soil-moisture.toml");
+    let (state, stack, code) = largest_measured();
+    let totals_add_up = |p: &Value| {
+        let ram = &p["ram"];
+        let sum = [
+            "arena_bytes",
+            "engine_state_bytes",
+            "stack_bytes",
+            "reserve_bytes",
+        ]
+        .iter()
+        .map(|k| ram[k].as_u64().unwrap_or_else(|| panic!("{k}: {ram}")))
+        .sum::<u64>();
+        assert_eq!(ram["total_bytes"].as_u64(), Some(sum), "{ram}");
+        let flash = &p["flash"];
+        let sum = ["parameters_bytes", "engine_code_bytes", "reserve_bytes"]
+            .iter()
+            .map(|k| flash[k].as_u64().unwrap_or_else(|| panic!("{k}: {flash}")))
+            .sum::<u64>();
+        assert_eq!(flash["total_bytes"].as_u64(), Some(sum), "{flash}");
+    };
+
+    // An RV32EC part with 2 KiB of RAM: no board with its core was measured, and the largest
+    // measured trainer object alone is more than its RAM.
+    let args = ["plan", "--config", &soil, "--chip", "ch32v003f4"];
+    let said = run_expect(dir, &args, CHECK_FAILED);
+    assert!(said.contains("Engine (estimate"), "{said}");
+    assert!(said.contains("estimate: largest measured"), "{said}");
+    assert!(said.contains("does not fit: RAM short by"), "{said}");
+    let p = json(&run_expect(
+        dir,
+        &[&args[..], &["--json"]].concat(),
+        CHECK_FAILED,
+    ));
+    assert_eq!(p["engine"]["basis"], "estimated");
+    assert_eq!(p["ram"]["engine_state_bytes"].as_u64(), Some(state));
+    assert_eq!(p["ram"]["stack_bytes"].as_u64(), Some(stack));
+    assert_eq!(p["flash"]["engine_code_bytes"].as_u64(), Some(code));
+    let source = p["engine"]["source"].as_str().unwrap_or_default();
+    for m in hone_host::memplan::MEASURED_OVERHEADS {
+        assert!(source.contains(m.board), "{source}");
+    }
+    totals_add_up(&p);
+    assert!(p["ram"]["budget_bytes"].as_u64().is_some_and(|b| b < state));
+
+    // A custom budget without a core counts the same estimate: 64 KiB of flash cannot hold
+    // the largest measured engine code.
+    let custom = ["plan", "--config", &soil, "--ram", "3k", "--flash", "64k"];
+    let said = run_expect(dir, &custom, CHECK_FAILED);
+    assert!(said.contains("flash short by"), "{said}");
+    let p = json(&run_expect(
+        dir,
+        &[&custom[..], &["--json"]].concat(),
+        CHECK_FAILED,
+    ));
+    assert_eq!(p["engine"]["basis"], "estimated");
+    assert_eq!(p["flash"]["engine_code_bytes"].as_u64(), Some(code));
+    totals_add_up(&p);
+
+    // Naming a measured core counts its own row.
+    let m3 = hone_host::memplan::MEASURED_OVERHEADS
+        .iter()
+        .find(|m| m.target == "thumbv7m-none-eabi")
+        .expect("a Cortex-M3 row");
+    let p = json(&run_ok(
+        dir,
+        &[
+            "plan",
+            "--config",
+            &soil,
+            "--ram",
+            "64k",
+            "--flash",
+            "256k",
+            "--core",
+            "cortex-m3",
+            "--json",
+        ],
+    ));
+    assert_eq!(p["fits"], true, "{p}");
+    assert_eq!(p["engine"]["basis"], "measured");
+    assert_eq!(
+        p["ram"]["engine_state_bytes"].as_u64(),
+        Some(m3.trainer_bytes as u64)
+    );
+    assert_eq!(
+        p["flash"]["engine_code_bytes"].as_u64(),
+        Some(m3.engine_code_bytes as u64)
+    );
+    assert!(
+        p["engine"]["source"]
+            .as_str()
+            .is_some_and(|s| s.contains(m3.board)),
+        "{p}"
+    );
+    totals_add_up(&p);
+}
+
+#[test]
+fn plan_advice_says_which_drift_costs_were_not_computed() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    let (model, _) = soil_model(dir);
+    let args = [
+        "plan",
+        "--config",
+        &example("soil-moisture.toml"),
+        "--chip",
+        "nrf51822",
+        "--model",
+        model,
+        "--train",
+        &demo_data("soil_unit_calibration.csv"),
+        "--eval",
+        &demo_data("soil_unit_holdout.csv"),
+        "--epochs",
+        "2",
+    ];
+    let p = json(&run_ok(dir, &[&args[..], &["--json"]].concat()));
+    let advice = p["advice"].as_array().expect("advice");
+    let (fewer, others): (Vec<&Value>, Vec<&Value>) =
+        advice.iter().partition(|a| a["kind"] == "fewer_units");
+    assert!(
+        !fewer.is_empty(),
+        "the 2-8-1 model can halve its hidden layer: {p}"
+    );
+    assert!(!others.is_empty(), "{p}");
+    for a in fewer {
+        assert!(a["drift"].is_null(), "{a}");
+        let why = a["drift_not_computed"].as_str().unwrap_or_default();
+        assert!(why.contains("retrained"), "{a}");
+    }
+    for a in others {
+        assert!(a["drift"]["value"].as_f64().is_some(), "{a}");
+        assert!(a["drift_not_computed"].is_null(), "{a}");
+    }
+    let said = run_ok(dir, &args);
+    assert!(
+        said.contains("not computed: a changed layer size needs a float model retrained"),
+        "{said}"
+    );
+}
+
+#[test]
+fn train_warns_of_a_constant_column() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    // The factory data with the temperature column held at one value.
+    let factory = fs::read_to_string(demo_data("soil_factory.csv")).unwrap();
+    let mut lines = factory.lines();
+    let header = lines.next().expect("a header");
+    assert_eq!(header, SOIL_HEAD.trim_end());
+    let flat: String = lines
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            format!("{},{},21.5,{}\n", f[0], f[1], f[3])
+        })
+        .collect();
+    fs::write(dir.join("flat.csv"), soil_csv(&flat)).unwrap();
+    let args = [
+        "train",
+        "--config",
+        &example("soil-moisture.toml"),
+        "--data",
+        "flat.csv",
+        "--out",
+        "m.json",
+    ];
+    let out = hone(dir, &args);
+    assert_eq!(out.status.code(), Some(0), "{}", describe(&args, &out));
+    let stderr = text(&out.stderr);
+    assert!(
+        stderr.contains("warning: flat.csv: channel 1 (temp_c) is constant at 21.5"),
+        "{}",
+        describe(&args, &out)
+    );
+    // The varying column is not reported.
+    assert!(!stderr.contains("raw_counts"), "{stderr}");
+}
+
+#[test]
+fn sweep_where_no_point_runs_fails_the_check() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    let (model, _) = soil_model(dir);
+    // Learning rates this large make the float twin diverge: no point can be judged.
+    let args = [
+        "sweep",
+        "--config",
+        &example("soil-moisture.toml"),
+        "--model",
+        model,
+        "--train",
+        &demo_data("soil_unit_calibration.csv"),
+        "--eval",
+        &demo_data("soil_unit_holdout.csv"),
+        "--lr",
+        "100,120",
+        "--epochs",
+        "200",
+        "--jobs",
+        "1",
+        "--json",
+    ];
+    let out = hone(dir, &args);
+    assert_eq!(
+        out.status.code(),
+        Some(CHECK_FAILED),
+        "{}",
+        describe(&args, &out)
+    );
+    let points = json(&text(&out.stdout));
+    let points = points.as_array().expect("an array of points");
+    assert_eq!(points.len(), 2);
+    assert!(points.iter().all(|p| p["error"].is_string()), "{points:?}");
+    assert!(
+        text(&out.stderr).contains("check failed: none of the 2 grid points ran"),
+        "{}",
+        describe(&args, &out)
+    );
+}
+
 #[test]
 fn chips_lists_the_table() {
     let tmp = tempfile::tempdir().unwrap();
@@ -474,14 +730,24 @@ fn chips_lists_the_table() {
     assert!(said.contains("nrf51822"), "{said}");
     let rows = json(&run_ok(tmp.path(), &["chips", "--json"]));
     let rows = rows.as_array().expect("an array of chips");
-    assert!(rows.len() >= 5, "{rows:?}");
+    assert!(rows.len() >= 10, "at least ten microcontrollers: {rows:?}");
     let mut ids: Vec<&str> = rows.iter().filter_map(|r| r["id"].as_str()).collect();
     assert_eq!(ids.len(), rows.len(), "every chip has an id");
     for r in rows {
         assert!(r["ram_bytes"].as_u64().is_some_and(|b| b > 0), "{r}");
         assert!(r["flash_bytes"].as_u64().is_some_and(|b| b > 0), "{r}");
         let id = r["id"].as_str().unwrap_or_default();
-        assert!(said.contains(id), "`{id}` missing from the text table");
+        // Every row names where its figures come from: a document, or "from memory".
+        let source = r["source"].as_str().unwrap_or_default();
+        assert!(!source.trim().is_empty(), "{id} has no source: {r}");
+        let line = said
+            .lines()
+            .find(|l| l.split_whitespace().next() == Some(id))
+            .unwrap_or_else(|| panic!("`{id}` missing from the text table"));
+        assert!(
+            line.trim_end().ends_with(source),
+            "the row of {id} does not show its source `{source}`: {line}"
+        );
     }
     let nrf = rows
         .iter()
@@ -802,6 +1068,20 @@ impl Case {
     }
 }
 
+/// Replaces the value after the first `key` in `text` (up to the next `,` or line end) with
+/// `value`.
+fn with_first_value(text: &str, key: &str, value: &str) -> String {
+    let at = text
+        .find(key)
+        .unwrap_or_else(|| panic!("`{key}` in:\n{text}"))
+        + key.len();
+    let end = at
+        + text[at..]
+            .find([',', '\n'])
+            .unwrap_or_else(|| panic!("a value after `{key}`"));
+    format!("{}{value}{}", &text[..at], &text[end..])
+}
+
 /// Replaces the one occurrence of `from` in `text`.
 fn edit(text: &str, from: &str, to: &str) -> String {
     assert_eq!(text.matches(from).count(), 1, "`{from}` once in:\n{text}");
@@ -965,6 +1245,31 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
         "units = 8",
         "units = 4",
     );
+    let commented_model = edit(
+        &model_text,
+        "\"version\": 1,",
+        "\"version\": 1,\n  \"comment\": \"factory model\",",
+    );
+    let zero_gain_model = with_first_value(&model_text, "\"gain\": ", "0.0");
+    let drift = |extra: &[&str]| {
+        let mut v = owned(&[
+            "drift",
+            "--config",
+            &soil,
+            "--model",
+            "in/model.json",
+            "--train",
+            &cal,
+            "--eval",
+            &hold,
+            "--epochs",
+            "1",
+            "--report",
+            "out/report",
+        ]);
+        v.extend(owned(extra));
+        v
+    };
 
     vec![
         // ---- data files ----
@@ -1028,6 +1333,14 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
             ])
             .stderr(&["in/eval.csv: line 3, column `temp_c`: `wet` is not a number"])
             .absent(&["report"]),
+        case("csv-overflowing-column")
+            .file(
+                "huge.csv",
+                soil_csv("1,1647,1e300,0.38\n1,2316,-1e300,0.14\n1,2000,7.1,0.2\n"),
+            )
+            .args(&train("in/huge.csv"))
+            .stderr(&["in/huge.csv: column `temp_c` (input channel 1)", "f32 range"])
+            .absent(&["m.json"]),
         // ---- dimensions ----
         case("csv-fewer-features-than-the-config-input")
             .file("vibration.toml", fx.vibration_config.clone())
@@ -1068,6 +1381,24 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
             .args(&quantize("in/narrow.toml", "in/model.json", &cal))
             .stderr(&["in/model.json", "layer 0"])
             .absent(&["m.honb", "m.rs"]),
+        // ---- outputs ----
+        case("quantize-second-output-cannot-be-written")
+            .file("model.json", fx.soil_model.clone())
+            .args(&[
+                "quantize",
+                "--config",
+                &soil,
+                "--model",
+                "in/model.json",
+                "--data",
+                &cal,
+                "--blob",
+                "out/m.honb",
+                "--rust",
+                "out/no-such-dir/m.rs",
+            ])
+            .stderr(&["out/no-such-dir/m.rs"])
+            .absent(&["m.honb", "no-such-dir"]),
         // ---- config files ----
         case("toml-unknown-top-level-key")
             .file(
@@ -1116,6 +1447,20 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
             .args(&quantize(&soil, "in/future.json", &cal))
             .stderr(&["in/future.json: `version` is 7, this build reads version 1"])
             .absent(&["m.honb", "m.rs"]),
+        case("model-unknown-key")
+            .file("commented.json", commented_model)
+            .args(&quantize(&soil, "in/commented.json", &cal))
+            .stderr(&[
+                "in/commented.json:",
+                "not a hone float model",
+                "unknown field `comment`",
+            ])
+            .absent(&["m.honb", "m.rs"]),
+        case("model-zero-scaling-gain")
+            .file("gain.json", zero_gain_model)
+            .args(&quantize(&soil, "in/gain.json", &cal))
+            .stderr(&["in/gain.json: `scaling[0].gain` is 0"])
+            .absent(&["m.honb", "m.rs"]),
         // ---- blobs ----
         case("blob-broken-crc")
             .file("crc.honb", crc_broken.clone())
@@ -1150,6 +1495,27 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
                 "plan", "--config", &soil, "--chip", "nrf51822", "--ram", "1k", "--flash", "64k",
             ])
             .stderr(&["--chip", "--ram"]),
+        case("plan-core-not-measured")
+            .args(&[
+                "plan", "--config", &soil, "--ram", "64k", "--flash", "256k", "--core",
+                "cortex-m7",
+            ])
+            .stderr(&["--core: `cortex-m7` is not a measured core", "cortex-m4f"]),
+        case("drift-nan-threshold")
+            .file("model.json", fx.soil_model.clone())
+            .args(&drift(&["--max-loss-gap", "NaN"]))
+            .stderr(&["--max-loss-gap", "`NaN` is not a finite number"])
+            .absent(&["report"]),
+        case("drift-negative-threshold")
+            .file("model.json", fx.soil_model.clone())
+            .args(&drift(&["--min-grad-sqnr=-3"]))
+            .stderr(&["--min-grad-sqnr", "`-3` is negative"])
+            .absent(&["report"]),
+        case("drift-zero-probe")
+            .file("model.json", fx.soil_model.clone())
+            .args(&drift(&["--probe", "0"]))
+            .stderr(&["--probe", "0"])
+            .absent(&["report"]),
         case("demo-unknown-chip")
             .args(&["demo", "--out", "out/demo", "--chip", "nrf99999"])
             .stderr(&["unknown chip `nrf99999`"])
@@ -1231,6 +1597,34 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
                 "out/a.img",
             ])
             .stderr(&["--region", "5000 B"])
+            .absent(&["a.img"]),
+        case("checkpoint-write-unit-zero")
+            .file("m.honb", fx.soil_blob.clone())
+            .args(&[
+                "checkpoint",
+                "write",
+                "in/m.honb",
+                "--write",
+                "0",
+                "--out",
+                "out/a.img",
+            ])
+            .stderr(&["error: --write: flash geometry", "powers of two"])
+            .absent(&["a.img"]),
+        case("checkpoint-region-of-one-sector")
+            .file("m.honb", fx.soil_blob.clone())
+            .args(&[
+                "checkpoint",
+                "write",
+                "in/m.honb",
+                "--erase",
+                "1024",
+                "--region",
+                "1k",
+                "--out",
+                "out/a.img",
+            ])
+            .stderr(&["error: --region: ", "two slots"])
             .absent(&["a.img"]),
         case("checkpoint-blank-image")
             .file("blank.img", vec![0xFF; 16384])

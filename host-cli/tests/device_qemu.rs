@@ -9,7 +9,7 @@
 //! factory weights; the RAM measured while training agrees with the memory plan plus the
 //! measured-overhead table (never below, at most 5 % above), and so does the engine's code.
 //!
-//! The throughput phase: every QEMU board trains a larger model (64-32-8, or 32-16-4 on the
+//! The throughput phase: every QEMU board trains a larger model (64-32-8, or 32-8-4 on the
 //! 16 KiB boards) from values it draws itself, in fixed point and in `f32`, and ends with the
 //! host's weights bit for bit; per multiply-accumulate it costs less than the small model and
 //! more than the bare dot product, and its RAM stays within the prediction it was chosen with.

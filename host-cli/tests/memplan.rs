@@ -8,7 +8,7 @@ use hone_core::plan::Plan;
 use hone_host::chips;
 use hone_host::memplan::{
     parse_size, plan_report, render_table, AdviceOptions, Alternative, Budget, ChangeKind,
-    DriftCost, EngineOverhead, Memory, PlanReport, Reserve, SizeError,
+    DriftCost, EngineOverhead, Memory, OverheadBasis, PlanReport, Reserve, SizeError,
 };
 
 const ACT: QFormat = QFormat::new_unchecked(Word::I16, 10);
@@ -357,6 +357,7 @@ fn engine_overhead_is_counted_and_its_source_shown() {
     let desc = model(4, 8, false, false, 1);
     let plan = Plan::of(&desc).unwrap();
     let engine = EngineOverhead {
+        basis: OverheadBasis::Measured,
         code_flash: 9000,
         state_ram: 300,
         stack: 700,
@@ -428,8 +429,8 @@ fn drift_cost_is_shown_when_given() {
     let desc = medium();
     // A stand-in cost computed from the changed description: its arena in KiB.
     let cost = |d: &ModelDesc| {
-        let p = Plan::of(d).ok()?;
-        Some(DriftCost {
+        let p = Plan::of(d).map_err(|e| e.to_string())?;
+        Ok(DriftCost {
             what: "arena".to_owned(),
             value: p.ram_bytes as f64 / 1024.0,
             unit: "KiB".to_owned(),
@@ -447,8 +448,53 @@ fn drift_cost_is_shown_when_given() {
     for a in &r.advice {
         let d = a.drift.as_ref().unwrap();
         assert_eq!(d.value, a.new_arena_bytes as f64 / 1024.0);
+        assert_eq!(a.drift_not_computed, None);
     }
     assert!(render_table(&r).contains("drift"));
+}
+
+#[test]
+fn drift_cost_not_computed_is_said_with_its_reason() {
+    let desc = medium();
+    // A stand-in that cannot price changes of a layer's size, as the command's cannot.
+    let cost = |d: &ModelDesc| {
+        if d.layers
+            .iter()
+            .zip(&desc.layers)
+            .any(|(a, b)| a.kind != b.kind)
+        {
+            return Err("the shape changed".to_owned());
+        }
+        Ok(DriftCost {
+            what: "gap".to_owned(),
+            value: 1.0,
+            unit: String::new(),
+        })
+    };
+    let r = plan_report(
+        &desc,
+        &chip("nrf51822"),
+        Reserve::default(),
+        None,
+        &AdviceOptions::default(),
+        Some(&cost),
+    )
+    .unwrap();
+    let fewer: Vec<_> = r
+        .advice
+        .iter()
+        .filter(|a| a.kind == ChangeKind::FewerUnits)
+        .collect();
+    assert!(!fewer.is_empty(), "{:?}", r.advice);
+    for a in &r.advice {
+        if a.kind == ChangeKind::FewerUnits {
+            assert_eq!(a.drift, None);
+            assert_eq!(a.drift_not_computed.as_deref(), Some("the shape changed"));
+        } else {
+            assert!(a.drift.is_some() && a.drift_not_computed.is_none(), "{a:?}");
+        }
+    }
+    assert!(render_table(&r).contains("not computed: the shape changed"));
 }
 
 #[test]

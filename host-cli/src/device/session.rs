@@ -375,7 +375,7 @@ fn checkpoint_capacity(
             updates: u32::MAX,
             rng: [u32::MAX; 4],
             fracs: [[u8::MAX; 4]; MAX_LAYERS],
-            window: [[u32::MAX; 8]; MAX_LAYERS],
+            window: [[u32::MAX; _]; MAX_LAYERS],
         }),
         ..body
     };

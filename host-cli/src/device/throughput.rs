@@ -28,7 +28,7 @@ use crate::export::qf;
 use crate::memplan::MeasuredOverhead;
 
 /// The models tried, largest first: inputs, hidden units, outputs.
-pub const CANDIDATES: [(u16, u16, u16); 3] = [(64, 32, 8), (32, 32, 8), (32, 16, 4)];
+pub const CANDIDATES: [(u16, u16, u16); 4] = [(64, 32, 8), (32, 32, 8), (32, 16, 4), (32, 8, 4)];
 /// Distinct samples drawn.
 pub const POOL: u16 = 8;
 /// Passes over them: `POOL · PASSES` samples are trained in each arithmetic.
