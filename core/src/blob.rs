@@ -454,31 +454,40 @@ pub fn decode(bytes: &[u8]) -> Result<CheckedBlob<'_>, Error> {
     Ok(blob)
 }
 
-/// Checks a parsed blob: description, scaling, state, every tensor, required tensors, and
-/// that the tensor list ends exactly at the end of the body.
-///
-/// The state's fraction bits must be the description's wherever they cannot have moved: every
-/// one when dynamic fixed point is off, and for the unused layer slots always (a trainer
-/// writes zeros there). With dynamic fixed point a moving tensor may sit anywhere up to
-/// [`MAX_FRAC`].
+/// Whether a checkpoint state's fraction bits fit `desc`. They must be the description's
+/// wherever they cannot have moved: every one when dynamic fixed point is off; the
+/// accumulator formats of a layer that keeps no such accumulator (no parameters, or the
+/// weights or the bias not training); and the unused layer slots always (a trainer writes
+/// zeros there). With dynamic fixed point a moving tensor may sit anywhere up to [`MAX_FRAC`].
 pub(crate) fn state_fracs_fit(desc: &ModelDesc, st: &TrainState) -> bool {
-    st.fracs
-        .iter()
-        .enumerate()
-        .all(|(k, f)| match desc.layers.get(k) {
-            None => *f == [0; 4],
-            Some(l) if desc.train.dynamic.is_none() => {
-                *f == [
-                    l.out.frac,
-                    l.grad.frac,
-                    l.weight.accum.frac,
-                    l.bias.accum.frac,
-                ]
-            }
-            Some(_) => f.iter().all(|&b| b <= MAX_FRAC),
-        })
+    st.fracs.iter().enumerate().all(|(k, f)| {
+        let Some(l) = desc.layers.get(k) else {
+            return *f == [0; 4];
+        };
+        let own = [
+            l.out.frac,
+            l.grad.frac,
+            l.weight.accum.frac,
+            l.bias.accum.frac,
+        ];
+        let params = l.kind.has_params();
+        let moves = match desc.train.dynamic {
+            None => [false; 4],
+            Some(_) => [
+                true,
+                true,
+                params && l.mode.trains_weight(),
+                params && l.mode.trains_bias(),
+            ],
+        };
+        f.iter()
+            .zip(own.iter().zip(moves))
+            .all(|(&b, (&o, m))| if m { b <= MAX_FRAC } else { b == o })
+    })
 }
 
+/// Checks a parsed blob: description, scaling, state, every tensor, required tensors, and
+/// that the tensor list ends exactly at the end of the body.
 fn check(b: &CheckedBlob<'_>) -> Result<(), Error> {
     let desc = &b.desc;
     desc.check()?;

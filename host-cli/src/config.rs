@@ -89,7 +89,8 @@
 //!
 //! `[train.dynamic]`, present to turn dynamic fixed point on: every `interval` updates
 //! (integer ≥ 1), a tensor whose saturation rate exceeds `max-rate-ppm` (parts per million,
-//! 0 to 1 000 000) gives up a fraction bit, and one at most half that rate gains one.
+//! 0 to 1 000 000) gives up a fraction bit, and one whose values would saturate at no more than
+//! that rate with one more fraction bit (values in the outer half of the range) gains one.
 //!
 //! `[data]`:
 //!

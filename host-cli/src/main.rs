@@ -511,7 +511,8 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             let base = load_base(&model, &data)?;
             let q = &base.quant;
             // Render every output before writing any, then write them as one set: a failure
-            // leaves none of them.
+            // while writing leaves none of them (see `fsutil::write_all` for the rare failed
+            // rename).
             let blob_bytes = match &blob {
                 Some(_) => Some(
                     hone_host::export::model_blob(&q.desc, &q.params, &base.float.scaling)

@@ -331,20 +331,32 @@ fn random_body(genome: &[u8]) -> OwnedBody {
         Vec::new()
     };
     let state = (kind == BlobKind::Checkpoint).then(|| {
-        // Where formats can move (dynamic fixed point on), any fraction bits up to MAX_FRAC;
-        // else exactly the description's. Unused layer slots are zero, as a trainer writes.
+        // Where a format can move (dynamic fixed point on; for an accumulator, only if the
+        // layer keeps one), any fraction bits up to MAX_FRAC; else exactly the description's.
+        // Unused layer slots are zero, as a trainer writes.
         let mut fracs = [[0u8; 4]; MAX_LAYERS];
         for (f, l) in fracs.iter_mut().zip(desc.layers.iter()) {
-            *f = if desc.train.dynamic.is_some() {
-                std::array::from_fn(|_| g.pick(u32::from(MAX_FRAC) + 1) as u8)
-            } else {
-                [
-                    l.out.frac,
-                    l.grad.frac,
-                    l.weight.accum.frac,
-                    l.bias.accum.frac,
-                ]
-            };
+            let own = [
+                l.out.frac,
+                l.grad.frac,
+                l.weight.accum.frac,
+                l.bias.accum.frac,
+            ];
+            let dynamic = desc.train.dynamic.is_some();
+            let params = l.kind.has_params();
+            let moves = [
+                dynamic,
+                dynamic,
+                dynamic && params && l.mode.trains_weight(),
+                dynamic && params && l.mode.trains_bias(),
+            ];
+            for ((b, o), m) in f.iter_mut().zip(own).zip(moves) {
+                *b = if m {
+                    g.pick(u32::from(MAX_FRAC) + 1) as u8
+                } else {
+                    o
+                };
+            }
         }
         TrainState {
             steps: u32::from_le_bytes(std::array::from_fn(|_| g.byte())),
@@ -551,7 +563,10 @@ fn reference(kind: BlobKind) -> OwnedBody {
             // Unused layer slots are zero, as a trainer writes them.
             fracs: std::array::from_fn(|k| match k {
                 0 => [11, 13, 22, 24],
-                1 | 2 => [11, 13, 24, 24],
+                // The ReLU keeps no accumulator: its accumulator formats are the
+                // description's own (those of `LayerDesc::simple`).
+                1 => [11, 13, 0, 0],
+                2 => [11, 13, 24, 24],
                 _ => [0; 4],
             }),
             window: [[0; 12]; MAX_LAYERS],

@@ -246,8 +246,22 @@ impl Allowed {
 /// and the tally of those writes: every value is counted, and the saturations counted lie
 /// between those that must have been counted (the value is the clamp of an out-of-range
 /// result, or no allowed result at all) and those that may have been (stochastic rounding
-/// with one neighbour out of range, or an accumulator that may have saturated).
+/// with one neighbour out of range, or an accumulator that may have saturated); and the
+/// values counted in the outer half of the range ([`check_high`]).
 fn check_written(
+    what: &str,
+    got: &[i32],
+    word: Word,
+    allowed: &[Allowed],
+    tally: &Tally,
+) -> Result<(), TestCaseError> {
+    check_values(what, got, word, allowed, tally)?;
+    check_high(what, got, word, tally)
+}
+
+/// [`check_written`] without the outer-half count, for a function that returns its saturation
+/// flag instead of a tally.
+fn check_values(
     what: &str,
     got: &[i32],
     word: Word,
@@ -290,6 +304,31 @@ fn check_written(
         tally.saturations,
         must,
         may
+    );
+    Ok(())
+}
+
+/// The outer-half count of a tally against the written values.
+fn check_high(what: &str, got: &[i32], word: Word, tally: &Tally) -> Result<(), TestCaseError> {
+    // Documented (core/src/kernel.rs, `Tally::high`): a written value counts as high when it
+    // would saturate with one more fraction bit (twice it leaves the word) or saturated. So
+    // every written value outside half the range counts, and a saturation flagged on a value
+    // inside it (an earlier stage saturated) may add one more.
+    let (lo, hi) = (i64::from(word.min_raw()), i64::from(word.max_raw()));
+    let outer = got
+        .iter()
+        .filter(|&&g| {
+            let twice = 2 * i64::from(g);
+            twice > hi || twice < lo
+        })
+        .count() as u32;
+    prop_assert!(
+        outer <= tally.high && tally.high <= outer + tally.saturations,
+        "{}: {} values counted in the outer half, expected {} to {}",
+        what,
+        tally.high,
+        outer,
+        outer + tally.saturations
     );
     Ok(())
 }
@@ -379,7 +418,7 @@ proptest! {
             let exact = exact_in_steps(&[(v as i128, from)], den_exact, to_frac as u32, mode);
             let t = Tally { values: 1, saturations: sat as u32, ..Tally::default() };
             let what = format!("{v} at {from} / {den} into {to} {mode:?}");
-            check_written(&what, &[got], word, &[Allowed::exact(exact)], &t)?;
+            check_values(&what, &[got], word, &[Allowed::exact(exact)], &t)?;
         }
     }
 
@@ -517,25 +556,36 @@ proptest! {
             let what = format!("dense input gradient {mode:?}");
             check_written(&what, &values(&gx), wgx, &want, &t.gx)?;
             // ∂L/∂W_ji += g_j x_i: the addend rounded into the accumulator's format, the sum
-            // saturated to its word.
-            let want: Vec<Allowed> = (0..n_out * n_in)
+            // saturated to its word. Documented (core/src/layer/mod.rs, `accumulate_outer`):
+            // a unit whose g_j is zero adds nothing and is not counted, so the tally covers
+            // the rows of the other units, and the zero rows must be left as they were.
+            let live = |k: usize| gv[k / n_in] != 0;
+            let (awn, want): (Vec<i32>, Vec<Allowed>) = (0..n_out * n_in)
+                .filter(|&k| live(k))
                 .map(|k| {
                     let gx_prod = gv[k / n_in] as i128 * xv[k % n_in] as i128;
                     let add = exact_in_steps(&[(gx_prod, (fg + fx) as u32)], 1, faw as u32, mode);
-                    Allowed::exact(add.map(|a| awv[k] as i128 + a))
+                    (values(&aw)[k], Allowed::exact(add.map(|a| awv[k] as i128 + a)))
                 })
-                .collect();
+                .unzip();
             let what = format!("dense weight gradient {mode:?}");
-            check_written(&what, &values(&aw), waw, &want, &t.acc_w)?;
-            // ∂L/∂b_j += g_j, likewise.
-            let want: Vec<Allowed> = (0..n_out)
+            check_written(&what, &awn, waw, &want, &t.acc_w)?;
+            for k in (0..n_out * n_in).filter(|&k| !live(k)) {
+                prop_assert_eq!(values(&aw)[k], awv[k], "{}: zero row changed", what);
+            }
+            // ∂L/∂b_j += g_j, likewise (a zero g_j is not counted).
+            let (abn, want): (Vec<i32>, Vec<Allowed>) = (0..n_out)
+                .filter(|&j| gv[j] != 0)
                 .map(|j| {
                     let add = exact_in_steps(&[(gv[j] as i128, fg as u32)], 1, fab as u32, mode);
-                    Allowed::exact(add.map(|a| abv[j] as i128 + a))
+                    (values(&ab)[j], Allowed::exact(add.map(|a| abv[j] as i128 + a)))
                 })
-                .collect();
+                .unzip();
             let what = format!("dense bias gradient {mode:?}");
-            check_written(&what, &values(&ab), wab, &want, &t.acc_b)?;
+            check_written(&what, &abn, wab, &want, &t.acc_b)?;
+            for j in (0..n_out).filter(|&j| gv[j] == 0) {
+                prop_assert_eq!(values(&ab)[j], abv[j], "{}: zero gradient changed it", what);
+            }
         }
     }
 

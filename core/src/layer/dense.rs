@@ -84,8 +84,12 @@ pub fn backward(
         }
     }
     if let Some(acc) = out.acc_b {
+        // As for the weight rows: a zero gradient adds nothing and is not counted.
+        let mut dropped = Tally::default();
         for j in 0..n_out {
-            r.accumulate(acc, j, gy.at(j) as i64, gy.frac(), false, &mut t.acc_b);
+            let gj = gy.at(j) as i64;
+            let tally = if gj == 0 { &mut dropped } else { &mut t.acc_b };
+            r.accumulate(acc, j, gj, gy.frac(), false, tally);
         }
     }
 }

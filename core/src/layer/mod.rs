@@ -103,8 +103,10 @@ impl Rounder<'_> {
     /// Adds the outer-product row `g · x[0..n]` into `acc[start..start + n]`, each product
     /// rounded to the accumulator's format and each sum saturated, as [`Rounder::accumulate`]
     /// does for one value, with the word dispatch done once per row. A zero `g` adds exact
-    /// zeros; unless the rounding is stochastic (whose draws must not depend on the data),
-    /// such a row is only counted.
+    /// zeros and changes nothing: such a row is skipped unless the rounding is stochastic
+    /// (whose draws must not depend on the data), and in every mode it is not counted, so the
+    /// accumulator's tally (writes, saturations, values in the outer half) covers the rows
+    /// that add something, whatever the rounding.
     #[allow(clippy::too_many_arguments)]
     pub fn accumulate_outer(
         &mut self,
@@ -117,9 +119,12 @@ impl Rounder<'_> {
         tally: &mut Tally,
     ) {
         if g == 0 && self.mode != Rounding::Stochastic {
-            tally.values = tally.values.saturating_add(n as u32);
             return;
         }
+        // A zero row still runs under stochastic rounding (for its draws) into a tally that
+        // is dropped.
+        let mut dropped = Tally::default();
+        let tally = if g == 0 { &mut dropped } else { tally };
         let to = acc.frac();
         let (mode, rng) = (self.mode, &mut *self.rng);
         // The typed loop serves the usual 32-bit accumulators (three copies, one per input

@@ -252,8 +252,9 @@ impl Loss {
 
 /// The overflow-rate rule of dynamic fixed point (Courbariaux, Bengio, David 2014, section 4):
 /// every `interval` weight updates, each tensor whose saturation rate over the interval exceeds
-/// `max_rate_ppm` loses one fraction bit (its range doubles); one whose rate is at most half
-/// of it gains a fraction bit.
+/// `max_rate_ppm` loses one fraction bit (its range doubles); one whose values would saturate
+/// at no more than that rate with one more fraction bit (the values in the outer half of the
+/// range) gains one. See `train::dynamic`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct DynamicRule {

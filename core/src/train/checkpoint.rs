@@ -330,7 +330,8 @@ mod tests {
     }
 
     /// A state cannot move a format the description fixes: without dynamic fixed point every
-    /// fraction bit must be the description's, and unused layer slots must be zero, both for
+    /// fraction bit must be the description's, an accumulator format of a layer without that
+    /// accumulator never moves, and unused layer slots must be zero, both for
     /// `set_train_state` and for a decoded checkpoint.
     #[test]
     fn state_fracs_must_fit_the_description() {
@@ -360,8 +361,16 @@ mod tests {
             moved.fracs[2][0] += 1;
             let mut stray = good;
             stray.fracs[5] = [1, 0, 0, 0];
+            // Layer 0 is frozen and keeps no accumulator: its format cannot move either way.
+            let mut frozen = good;
+            frozen.fracs[0][2] += 1;
             let mismatch = Err(crate::Error::Blob(blob::BlobError::StateMismatch));
-            for (state, ok) in [(good, true), (moved, moves), (stray, false)] {
+            for (state, ok) in [
+                (good, true),
+                (moved, moves),
+                (stray, false),
+                (frozen, false),
+            ] {
                 let want = if ok { Ok(()) } else { mismatch };
                 assert_eq!(
                     t.set_train_state(&state),

@@ -979,7 +979,8 @@ mod tests {
 
     /// The smallest build (no optional layer kinds) trains: a 2-8-1 dense, ReLU, squared-error
     /// model fits y = x0 − x1 on four samples with SGD. `cargo xtask test` also runs this with
-    /// `--no-default-features`, where it is the build whose code size the README reports.
+    /// `--no-default-features`, the configuration of the lean firmware (boards/lean) whose
+    /// code size the README reports.
     #[test]
     fn built_dense_relu_squared_error_trains() {
         let act = QFormat::new_unchecked(Word::I16, 10);

@@ -18,6 +18,7 @@
 //! the weight had a reason to move (the accumulated gradient `acc`, or the exact `lr·g` after
 //! decay and momentum, is not zero) and the rounded `Δ` is zero: the weight could not move,
 //! whether the step vanished in the batch division (step 1) or in the final rounding (step 5).
+//! With a learning rate of zero nothing is meant to move, and nothing is counted.
 //! Products that vanish while they are summed into `acc` are not updates and are not counted.
 
 use crate::kernel::{add_sat, Tally};
@@ -137,7 +138,7 @@ pub fn update(
         // |lr| < 2^31 and |g| ≤ 2^31, so the exact product fits in 63 bits.
         let exact = cfg.lr.raw as i64 * g;
         let (delta, sat_delta) = rescale(exact, cfg.lr.frac as u32 + fa, fw, cfg.mode, rng);
-        if (sum != 0 || exact != 0) && delta == 0 {
+        if (sum != 0 || exact != 0) && delta == 0 && !cfg.lr.is_zero() {
             tally.lost_updates = tally.lost_updates.saturating_add(1);
         }
         let (sum, sat_sub) = add_sat(w, delta.saturating_neg());
@@ -221,7 +222,8 @@ mod tests {
         // a weight step: lost in the final rounding.
         let eighth = QScalar { raw: 1, frac: 3 };
         assert_eq!(lost_after(4 << 10, 4, eighth).0.lost_updates, 1);
-        // No gradient: nothing to lose.
+        // No gradient, or a learning rate of zero: nothing to lose.
         assert_eq!(lost_after(0, 4, one).0.lost_updates, 0);
+        assert_eq!(lost_after(4 << 12, 4, QScalar::ZERO).0.lost_updates, 0);
     }
 }
