@@ -252,6 +252,26 @@ fn work(t: &Throughput<'_>, plan: &Plan) -> u32 {
     u32::try_from(plan.training_macs().saturating_mul(u64::from(t.samples()))).unwrap_or(u32::MAX)
 }
 
+/// Hands the weights and bias of every layer with parameters, cut from `init` (the drawn
+/// parameters in [`generate`]'s order), to `put` with the layer's index.
+fn for_each_layer_params<'v, T>(
+    t: &Throughput<'_>,
+    init: &'v [T],
+    mut put: impl FnMut(usize, &'v [T], &'v [T]),
+) {
+    let mut rest = init;
+    for (k, (l, g)) in t.layers.iter().zip(t.plan.shapes.layers.iter()).enumerate() {
+        let (w, r) = rest
+            .split_at_checked(g.weights as usize)
+            .unwrap_or((&[], &[]));
+        let (b, r) = r.split_at_checked(g.biases as usize).unwrap_or((&[], &[]));
+        rest = r;
+        if l.kind.has_params() {
+            put(k, w, b);
+        }
+    }
+}
+
 /// The fixed-point part (not named `fixed`, which the host's code sizing takes for the crate
 /// of that name). Its locals are all the memory it trains with: drawn values, arena,
 /// description and trainer.
@@ -271,25 +291,14 @@ fn train_fixed<P: Platform, const ARENA: usize, const VALUES: usize>(
     });
     let (init, pool) = values.split_at(param_values(t.plan).min(VALUES));
     let mut params = [LayerParams::NONE; MAX_LAYERS];
-    let mut rest = init;
-    for ((l, g), p) in t
-        .layers
-        .iter()
-        .zip(t.plan.shapes.layers.iter())
-        .zip(params.iter_mut())
-    {
-        let (w, r) = rest
-            .split_at_checked(g.weights as usize)
-            .unwrap_or((&[], &[]));
-        let (b, r) = r.split_at_checked(g.biases as usize).unwrap_or((&[], &[]));
-        rest = r;
-        if l.kind.has_params() {
+    for_each_layer_params(t, init, |k, w, b| {
+        if let Some(p) = params.get_mut(k) {
             *p = LayerParams {
                 weight: Raw::I16(w),
                 bias: Raw::I16(b),
             };
         }
-    }
+    });
     let (inputs, outputs) = sample_values(t.plan);
     let (x, y) = pool.split_at(pool.len().min(usize::from(t.pool) * inputs));
     let set = SampleSet {
@@ -336,22 +345,11 @@ fn train_f32<P: Platform, const FLOAT_ARENA: usize, const VALUES: usize>(
     });
     let (init, pool) = values.split_at(param_values(t.plan).min(VALUES));
     let mut params = [FloatParams::NONE; MAX_LAYERS];
-    let mut rest = init;
-    for ((l, g), p) in t
-        .layers
-        .iter()
-        .zip(t.plan.shapes.layers.iter())
-        .zip(params.iter_mut())
-    {
-        let (w, r) = rest
-            .split_at_checked(g.weights as usize)
-            .unwrap_or((&[], &[]));
-        let (b, r) = r.split_at_checked(g.biases as usize).unwrap_or((&[], &[]));
-        rest = r;
-        if l.kind.has_params() {
+    for_each_layer_params(t, init, |k, w, b| {
+        if let Some(p) = params.get_mut(k) {
             *p = FloatParams { weight: w, bias: b };
         }
-    }
+    });
     let (inputs, outputs) = sample_values(t.plan);
     let (x, y) = pool.split_at(pool.len().min(usize::from(t.pool) * inputs));
     let set = FloatSet {

@@ -24,7 +24,7 @@ pub mod soil;
 pub mod vibration;
 
 use std::fs;
-use std::io::{self, Write};
+use std::io;
 use std::path::{Path, PathBuf};
 
 /// Seed of the committed demo data: the ASCII bytes of "hone" read as a big-endian integer.
@@ -169,32 +169,10 @@ pub fn write_all(dir: &Path, seed: u64) -> io::Result<Vec<PathBuf>> {
     let mut written = Vec::new();
     for (name, table) in demo_tables(seed) {
         let path = dir.join(name);
-        write_atomic(&path, table.to_csv().as_bytes())?;
+        crate::fsutil::write_atomic(&path, table.to_csv().as_bytes())?;
         written.push(path);
     }
     Ok(written)
-}
-
-/// Writes `bytes` to `path` through a temporary file in the same folder and a rename.
-fn write_atomic(path: &Path, bytes: &[u8]) -> io::Result<()> {
-    let dir = path.parent().unwrap_or_else(|| Path::new("."));
-    let name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .ok_or_else(|| io::Error::new(io::ErrorKind::InvalidInput, "path has no file name"))?;
-    let tmp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
-    let result = (|| {
-        let mut f = fs::File::create(&tmp)?;
-        f.write_all(bytes)?;
-        f.sync_all()?;
-        drop(f);
-        fs::rename(&tmp, path)
-    })();
-    if result.is_err() {
-        // Best effort: the original error is the one worth reporting.
-        let _ = fs::remove_file(&tmp);
-    }
-    result
 }
 
 #[cfg(test)]
