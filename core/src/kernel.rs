@@ -14,8 +14,15 @@
 
 use crate::num::{Raw, Sample, Word};
 
+/// Whether the target multiplies two 32-bit values into a 64-bit sum in one instruction
+/// (`SMLAL` on Thumb-2, `MUL`/`MULH` on RV32IM). ARMv6-M (the Cortex-M0 and M0+) has no long
+/// multiply, and a 64-bit product there is a call to `__aeabi_lmul`; it is also the only Arm
+/// profile without 32-bit atomics, which is how the configuration tells it apart.
+pub const LONG_MULTIPLY: bool = !cfg!(all(target_arch = "arm", not(target_has_atomic = "32")));
+
 /// Counts of what happened to the values written into one tensor.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, bytemuck::Pod, bytemuck::Zeroable)]
+#[repr(C)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct Tally {
     /// Values written.
@@ -132,6 +139,23 @@ pub fn dot_typed<A: Sample, B: Sample>(
                 }
                 (acc as i64, false)
             }
+        }
+        // Where a 64-bit product is a library call (`__aeabi_lmul` on the M0), words of 16 bits
+        // or less form their products (at most 2^30 in magnitude) exactly in `i32` and widen
+        // them for the sum: a plain multiply and a 64-bit add. Elsewhere the 64-bit product
+        // below is one multiply-accumulate instruction (`SMLAL` on Thumb-2).
+        AccKind::Wide if !LONG_MULTIPLY && A::WORD.bits() + B::WORD.bits() <= 32 => {
+            let mut acc: i64 = 0;
+            if a_step == 1 && b_step == 1 {
+                for (x, y) in a.iter().zip(b.iter()).take(n) {
+                    acc += (x.to_i32() * y.to_i32()) as i64;
+                }
+            } else {
+                for (x, y) in ia.zip(ib).take(n) {
+                    acc += (x.to_i32() * y.to_i32()) as i64;
+                }
+            }
+            (acc, false)
         }
         AccKind::Wide => {
             let mut acc: i64 = 0;

@@ -149,6 +149,10 @@ pub struct Plan {
     pub backward: [Slot; 2],
     /// Index of the first layer that trains anything; equal to the layer count if none does.
     pub first_trainable: usize,
+    /// The trainer's own state, last in the arena: per layer its live fraction bits, its
+    /// statistics and the marks of the dynamic-fixed-point interval
+    /// ([`STATE_WORDS_PER_LAYER`] words each). Empty in a float-twin plan.
+    pub state: Slot,
     /// Total RAM of the arena in bytes (a multiple of 4).
     pub ram_bytes: u32,
     /// Total flash for the factory parameters in bytes.
@@ -159,6 +163,10 @@ pub struct Plan {
     /// check that a plan belongs to its description without building a second plan.
     pub fingerprint: u32,
 }
+
+/// Words of trainer state per layer in [`Plan::state`]: the live fraction bits (one word),
+/// the six tallies of [`crate::train::LayerStats`] (24) and the four interval marks (16).
+pub const STATE_WORDS_PER_LAYER: u32 = 1 + 6 * 4 + 4 * 4;
 
 const fn pad4(bytes: u64) -> u64 {
     (bytes + 3) & !3
@@ -299,6 +307,7 @@ impl Plan {
             forward: [Slot::NONE; 2],
             backward: [Slot::NONE; 2],
             first_trainable: first,
+            state: Slot::NONE,
             ram_bytes: 0,
             flash_bytes: 0,
             float_bytes: fb,
@@ -390,6 +399,9 @@ impl Plan {
         plan.forward[1] = bump.take(fwd_max[1].0, fwd_max[1].1, fb);
         plan.backward[0] = bump.take(bwd_max[0].0, bwd_max[0].1, fb);
         plan.backward[1] = bump.take(bwd_max[1].0, bwd_max[1].1, fb);
+        if fb == 0 {
+            plan.state = bump.take(n as u32 * STATE_WORDS_PER_LAYER, Word::I32, 0);
+        }
 
         if bump.overflow || flash > u32::MAX as u64 {
             return Err(Error::Layer {
@@ -732,6 +744,9 @@ mod tests {
         }
         slots.extend(p.forward);
         slots.extend(p.backward);
+        // The trainer's state comes last: 41 words for each of the 3 layers.
+        assert_eq!(p.state.bytes, 3 * 41 * 4);
+        slots.push(p.state);
         slots.retain(|s| s.is_some());
         slots.sort_by_key(|s| s.offset);
         let mut end = 0;

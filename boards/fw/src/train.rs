@@ -354,7 +354,7 @@ pub(crate) mod engine {
         desc: &'a ModelDesc,
         plan: &'a Plan,
         arena: &'a mut [u32],
-        params: &[LayerParams<'a>],
+        params: &'a [LayerParams<'a>],
     ) -> Result<Trainer<'a>, Error> {
         Trainer::new(desc, plan, arena, params)
     }

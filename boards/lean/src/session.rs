@@ -99,7 +99,7 @@ pub mod engine {
     pub fn trainer<'a>(
         desc: &'a ModelDesc,
         arena: &'a mut [u32],
-        init: &[LayerParams<'a>],
+        init: &'a [LayerParams<'a>],
     ) -> Result<Trainer<'a>, Error> {
         Trainer::new(desc, &PLAN, arena, init)
     }

@@ -17,7 +17,9 @@ pub mod pool;
 
 use crate::kernel::Tally;
 use crate::model::{LayerGeometry, LayerKind};
-use crate::num::round::{requantize, requantize_div};
+use crate::num::round::{
+    requantize, requantize_div, NearestEven, RoundMode, Shr32, Stochastic, TowardZero,
+};
 use crate::num::{QFormat, Raw, RawMut, Rng, Rounding, Sample};
 
 /// A read-only tensor: raw values and their format.
@@ -206,12 +208,15 @@ impl Rounder<'_> {
     }
 }
 
-/// One row of an outer-product accumulation, typed: `acc[start + i] += round(g · x[i])` for
-/// `i < n`, the product rescaled from `from_frac` to the accumulator's fraction bits.
+/// One row of an outer-product accumulation into a 32-bit accumulator:
+/// `acc[i] += round(g · x[i])` for `i < n`, the product rescaled from `from_frac` to
+/// `to_frac` fraction bits. Decides once per row: when every product `g · x[i]` fits in 30 bits
+/// and the rescale drops 1 to 30 bits (the usual case), a loop compiled for this input word and
+/// rounding mode forms the products in `i32`; anything else takes [`outer_row_exact`]. Both
+/// give the same values, saturations and random draws.
 #[allow(clippy::too_many_arguments)]
-#[inline(never)]
-fn outer_row<A: Sample, X: Sample>(
-    acc: &mut [A],
+fn outer_row<X: Sample>(
+    acc: &mut [i32],
     x: &[X],
     g: i64,
     from_frac: u32,
@@ -220,20 +225,109 @@ fn outer_row<A: Sample, X: Sample>(
     rng: &mut Rng,
     tally: &mut Tally,
 ) {
+    // |x| ≤ 2^(b−1) for a b-bit word, so |g · x| ≤ 2^30 when |g| ≤ 2^30 / 2^(b−1).
+    let fits = g.unsigned_abs() <= (1u64 << 30) >> (X::WORD.bits() - 1);
+    let shift = from_frac.checked_sub(to_frac).and_then(Shr32::new);
+    let (Some(sh), true) = (shift, fits) else {
+        return outer_row_exact(acc, X::raw(x), g, from_frac, to_frac, mode, rng, tally);
+    };
+    let g = g as i32;
+    let (sats, high) = match mode {
+        Rounding::NearestEven => outer_row_fast::<X, NearestEven>(acc, x, g, sh, rng),
+        Rounding::TowardZero => outer_row_fast::<X, TowardZero>(acc, x, g, sh, rng),
+        Rounding::Stochastic => outer_row_fast::<X, Stochastic>(acc, x, g, sh, rng),
+    };
+    tally.values = tally.values.saturating_add(acc.len().min(x.len()) as u32);
+    tally.saturations = tally.saturations.saturating_add(sats);
+    tally.high = tally.high.saturating_add(high);
+}
+
+/// The hot loop of [`outer_row`]: products in `i32` (`|g · x| ≤ 2^30`, checked by the caller),
+/// one rounding, a checked add with the saturation on the cold path, and the counts kept in
+/// registers. Returns (saturations, values in the outer half).
+#[inline(never)]
+fn outer_row_fast<X: Sample, M: RoundMode>(
+    acc: &mut [i32],
+    x: &[X],
+    g: i32,
+    sh: Shr32,
+    rng: &mut Rng,
+) -> (u32, u32) {
     let (mut sats, mut high) = (0u32, 0u32);
     for (a, xi) in acc.iter_mut().zip(x.iter()) {
+        let add = M::shr32(g * xi.to_i32(), sh, rng);
+        let q = match a.checked_add(add) {
+            Some(q) => q,
+            None => {
+                sats += 1;
+                saturated_i32(add)
+            }
+        };
+        *a = q;
+        // Outer half of an i32 (|q| ≥ 2^30, saturated values included): q + 2^30 ∉ [0, 2^31).
+        high += (q.wrapping_add(1 << 30) as u32) >> 31;
+    }
+    (sats, high)
+}
+
+/// The end of the `i32` range an overflowing add of `add` went past.
+#[cold]
+#[inline(never)]
+fn saturated_i32(add: i32) -> i32 {
+    if add < 0 {
+        i32::MIN
+    } else {
+        i32::MAX
+    }
+}
+
+/// [`outer_row`] in exact 64-bit arithmetic for any operands and shifts: the reference the
+/// fast loop is tested against, and the path for wide words or rescales that add bits.
+#[allow(clippy::too_many_arguments)]
+#[cold]
+#[inline(never)]
+pub fn outer_row_exact(
+    acc: &mut [i32],
+    x: Raw<'_>,
+    g: i64,
+    from_frac: u32,
+    to_frac: u32,
+    mode: Rounding,
+    rng: &mut Rng,
+    tally: &mut Tally,
+) {
+    let (mut sats, mut high) = (0u32, 0u32);
+    let n = acc.len().min(x.len());
+    for (i, a) in acc.iter_mut().take(n).enumerate() {
         let (add, s1) =
-            crate::num::round::rescale(g * xi.to_i32() as i64, from_frac, to_frac, mode, rng);
-        let (sum, s2) = crate::kernel::add_sat(a.to_i32() as i64, add);
-        let (q, s3) = A::WORD.saturate(sum);
-        *a = A::from_i32_in_range(q);
+            crate::num::round::rescale(g * x.at(i) as i64, from_frac, to_frac, mode, rng);
+        let (sum, s2) = crate::kernel::add_sat(*a as i64, add);
+        let (q, s3) = crate::num::Word::I32.saturate(sum);
+        *a = q;
         let sat = s1 || s2 || s3;
         sats += sat as u32;
-        high += (sat || crate::kernel::outer_half(q, A::WORD)) as u32;
+        high += (sat || crate::kernel::outer_half(q, crate::num::Word::I32)) as u32;
     }
     tally.values = tally.values.saturating_add(acc.len().min(x.len()) as u32);
     tally.saturations = tally.saturations.saturating_add(sats);
     tally.high = tally.high.saturating_add(high);
+}
+
+/// Exposes the row kernel for the property tests that compare it with
+/// [`outer_row_exact`]: one call of the dispatching [`outer_row`].
+#[doc(hidden)]
+#[allow(clippy::too_many_arguments)]
+pub fn outer_row_i32<X: Sample>(
+    acc: &mut [i32],
+    x: &[X],
+    g: i64,
+    from_frac: u32,
+    to_frac: u32,
+    mode: Rounding,
+    rng: &mut Rng,
+    tally: &mut Tally,
+) {
+    outer_row(acc, x, g, from_frac, to_frac, mode, rng, tally)
 }
 
 /// The parameters of a layer as read by forward and backward.
@@ -330,6 +424,84 @@ pub fn backward(
             if let Some(gx) = out.gx {
                 act::backward(kind, g.input.size() as usize, x, y, gy, gx, r, &mut t.gx);
             }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use proptest::prelude::{any, prop_oneof, proptest, Just, ProptestConfig, Strategy};
+
+    /// The row kernel against its exact 64-bit reference: same accumulator, same counts, same
+    /// generator state, for every word, mode and shift, with operands drawn from the whole
+    /// range and from near the fast path's bounds.
+    fn same_row<X: Sample + core::fmt::Debug>(
+        acc: &[i32],
+        x: &[X],
+        g: i64,
+        from: u32,
+        to: u32,
+        mode: Rounding,
+        seed: u64,
+    ) {
+        let (mut a1, mut a2) = (acc.to_vec(), acc.to_vec());
+        let (mut r1, mut r2) = (Rng::new(seed), Rng::new(seed));
+        let (mut t1, mut t2) = (Tally::default(), Tally::default());
+        outer_row(&mut a1, x, g, from, to, mode, &mut r1, &mut t1);
+        outer_row_exact(&mut a2, X::raw(x), g, from, to, mode, &mut r2, &mut t2);
+        assert_eq!(a1, a2, "g {g}, {from} -> {to}, {mode:?}, x {x:?}");
+        assert_eq!(t1, t2);
+        assert_eq!(r1, r2);
+    }
+
+    fn gradient() -> impl Strategy<Value = i64> {
+        prop_oneof![
+            any::<i16>().prop_map(|v| v as i64),
+            any::<i32>().prop_map(|v| v as i64),
+            (-(1i64 << 23) - 2..(1i64 << 23) + 2),
+            Just(1i64 << 15),
+            Just(-(1i64 << 15) - 1),
+        ]
+    }
+
+    fn mode() -> impl Strategy<Value = Rounding> {
+        prop_oneof![
+            Just(Rounding::NearestEven),
+            Just(Rounding::TowardZero),
+            Just(Rounding::Stochastic)
+        ]
+    }
+
+    fn accum() -> impl Strategy<Value = i32> {
+        prop_oneof![
+            any::<i32>(),
+            (i32::MAX - 4096..=i32::MAX),
+            (i32::MIN..i32::MIN + 4096),
+            (-1000..1000),
+        ]
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(2000))]
+
+        #[test]
+        fn fast_row_equals_exact_row(
+            acc in proptest::collection::vec(accum(), 0..12),
+            x8 in proptest::collection::vec(any::<i8>(), 12),
+            x16 in proptest::collection::vec(any::<i16>(), 12),
+            x32 in proptest::collection::vec(any::<i32>(), 12),
+            g in gradient(),
+            from in 0u32..63,
+            to in 0u32..32,
+            mode in mode(),
+            seed in any::<u64>(),
+        ) {
+            same_row(&acc, &x8, g, from, to, mode, seed);
+            same_row(&acc, &x16, g, from, to, mode, seed);
+            same_row(&acc, &x32, g, from, to, mode, seed);
+            // The usual case: a shift of a few bits.
+            same_row(&acc, &x16, g, to + 2, to, mode, seed);
         }
     }
 }

@@ -15,10 +15,16 @@ pub trait Sample: Copy + Default + bytemuck::Pod + 'static {
     /// Narrowing conversion of a value already known to be in range (wraps otherwise; every
     /// caller saturates first).
     fn from_i32_in_range(v: i32) -> Self;
+    /// A run-time-word view of a typed slice.
+    fn raw(s: &[Self]) -> Raw<'_>;
 }
 
 impl Sample for i8 {
     const WORD: Word = Word::I8;
+    #[inline(always)]
+    fn raw(s: &[Self]) -> Raw<'_> {
+        Raw::I8(s)
+    }
     #[inline(always)]
     fn to_i32(self) -> i32 {
         self as i32
@@ -32,6 +38,10 @@ impl Sample for i8 {
 impl Sample for i16 {
     const WORD: Word = Word::I16;
     #[inline(always)]
+    fn raw(s: &[Self]) -> Raw<'_> {
+        Raw::I16(s)
+    }
+    #[inline(always)]
     fn to_i32(self) -> i32 {
         self as i32
     }
@@ -43,6 +53,10 @@ impl Sample for i16 {
 
 impl Sample for i32 {
     const WORD: Word = Word::I32;
+    #[inline(always)]
+    fn raw(s: &[Self]) -> Raw<'_> {
+        Raw::I32(s)
+    }
     #[inline(always)]
     fn to_i32(self) -> i32 {
         self

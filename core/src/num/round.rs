@@ -272,6 +272,132 @@ pub fn requantize_wide(
     (c as i32, c != q)
 }
 
+/// A right shift of a 32-bit value by a shift fixed for a whole kernel call, with its masks
+/// worked out once: the hot loops' form of [`shift_right`].
+///
+/// Valid for `1 ≤ shift ≤ 30` and values of magnitude at most 2^30 (callers prove both
+/// before they pick a loop that uses it; [`Shr32::new`] refuses other shifts). Every mode
+/// gives exactly what [`shift_right`] gives for the same value, and draws the same random bits.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Shr32 {
+    shift: u32,
+    /// `2^shift − 1`: the dropped bits.
+    mask: i32,
+    /// `2^(shift−1) − 1`: half a step, less one.
+    half_less_one: i32,
+}
+
+impl Shr32 {
+    /// The shift by `shift` bits, if `1 ≤ shift ≤ 30`.
+    #[inline]
+    pub const fn new(shift: u32) -> Option<Shr32> {
+        if shift == 0 || shift > 30 {
+            return None;
+        }
+        Some(Shr32 {
+            shift,
+            mask: (1i32 << shift) - 1,
+            half_less_one: (1i32 << (shift - 1)) - 1,
+        })
+    }
+
+    /// The shift in bits.
+    #[inline]
+    pub const fn shift(&self) -> u32 {
+        self.shift
+    }
+}
+
+/// [`Shr32`] for 64-bit values: a right shift by 1 to 62 bits fixed for a kernel call, for
+/// values of magnitude at most 2^62 (a product of two 32-bit words, for example).
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Shr64 {
+    shift: u32,
+    mask: i64,
+    half_less_one: i64,
+}
+
+impl Shr64 {
+    /// The shift by `shift` bits, if `1 ≤ shift ≤ 62`.
+    #[inline]
+    pub const fn new(shift: u32) -> Option<Shr64> {
+        if shift == 0 || shift > 62 {
+            return None;
+        }
+        Some(Shr64 {
+            shift,
+            mask: (1i64 << shift) - 1,
+            half_less_one: (1i64 << (shift - 1)) - 1,
+        })
+    }
+}
+
+/// A rounding mode as a type, so a kernel is compiled once per mode and decides nothing per
+/// value. [`Rounding`] picks one at the edge of a kernel call.
+pub trait RoundMode {
+    /// The mode this type stands for.
+    const MODE: Rounding;
+    /// `v / 2^shift` rounded by this mode, for `|v| ≤ 2^30`; the same value and the same
+    /// random draws as [`shift_right`].
+    fn shr32(v: i32, s: Shr32, rng: &mut Rng) -> i32;
+    /// `v / 2^shift` rounded by this mode, for `|v| ≤ 2^62`; the same value and the same
+    /// random draws as [`shift_right`].
+    fn shr64(v: i64, s: Shr64, rng: &mut Rng) -> i64;
+}
+
+/// [`Rounding::NearestEven`] as a type.
+#[derive(Clone, Copy, Debug)]
+pub struct NearestEven;
+/// [`Rounding::TowardZero`] as a type.
+#[derive(Clone, Copy, Debug)]
+pub struct TowardZero;
+/// [`Rounding::Stochastic`] as a type.
+#[derive(Clone, Copy, Debug)]
+pub struct Stochastic;
+
+impl RoundMode for NearestEven {
+    const MODE: Rounding = Rounding::NearestEven;
+    #[inline(always)]
+    fn shr32(v: i32, s: Shr32, _: &mut Rng) -> i32 {
+        // Adds half a step, less one when the kept part is even, so a tie goes to the even
+        // neighbour: ⌊(v + 2^(s−1) − 1 + odd) / 2^s⌋. No overflow for |v| ≤ 2^30, s ≤ 30.
+        (v + s.half_less_one + ((v >> s.shift) & 1)) >> s.shift
+    }
+    #[inline(always)]
+    fn shr64(v: i64, s: Shr64, _: &mut Rng) -> i64 {
+        (v + s.half_less_one + ((v >> s.shift) & 1)) >> s.shift
+    }
+}
+
+impl RoundMode for TowardZero {
+    const MODE: Rounding = Rounding::TowardZero;
+    #[inline(always)]
+    fn shr32(v: i32, s: Shr32, _: &mut Rng) -> i32 {
+        // A negative value gets the dropped bits' full range added before the floor.
+        (v + ((v >> 31) & s.mask)) >> s.shift
+    }
+    #[inline(always)]
+    fn shr64(v: i64, s: Shr64, _: &mut Rng) -> i64 {
+        (v + ((v >> 63) & s.mask)) >> s.shift
+    }
+}
+
+impl RoundMode for Stochastic {
+    const MODE: Rounding = Rounding::Stochastic;
+    #[inline(always)]
+    fn shr32(v: i32, s: Shr32, rng: &mut Rng) -> i32 {
+        let r = (v & s.mask) as u32;
+        let u = rng.bits(s.shift) as u32;
+        (v >> s.shift) + (u < r) as i32
+    }
+    #[inline(always)]
+    fn shr64(v: i64, s: Shr64, rng: &mut Rng) -> i64 {
+        let r = (v & s.mask) as u64;
+        let u = rng.bits(s.shift);
+        (v >> s.shift) + (u < r) as i64
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -399,5 +525,90 @@ mod tests {
             requantize(1, 30, q, Rounding::NearestEven, &mut r),
             (0, false)
         );
+    }
+
+    #[test]
+    fn typed_shifts_equal_shift_right() {
+        // Every mode, every shift the typed form takes, values at and around the ends of its
+        // range and around ties; the random draws must match too.
+        let vals = [
+            -(1i32 << 30),
+            (1 << 30),
+            -(1 << 30) + 1,
+            (1 << 30) - 1,
+            0,
+            1,
+            -1,
+            2,
+            -2,
+            3,
+            -3,
+            5,
+            -5,
+            6,
+            -6,
+            7,
+            -7,
+            12345,
+            -12345,
+        ];
+        fn check<M: RoundMode>(vals: &[i32]) {
+            for s in 1..=30 {
+                let sh = Shr32::new(s).unwrap();
+                let (mut a, mut b) = (Rng::new(s as u64), Rng::new(s as u64));
+                for &v in vals {
+                    for d in [-(1i32 << (s - 1)), -1, 0, 1, 1 << (s - 1)] {
+                        let Some(v) = v.checked_add(d).filter(|x| x.unsigned_abs() <= 1 << 30)
+                        else {
+                            continue;
+                        };
+                        let want = shift_right(v as i64, s, M::MODE, &mut a);
+                        assert_eq!(M::shr32(v, sh, &mut b) as i64, want, "{v} >> {s}");
+                        assert_eq!(a, b);
+                    }
+                }
+            }
+        }
+        check::<NearestEven>(&vals);
+        check::<TowardZero>(&vals);
+        check::<Stochastic>(&vals);
+        fn check64<M: RoundMode>() {
+            let edge = 1i64 << 62;
+            let vals = [
+                -edge,
+                edge,
+                -edge + 1,
+                edge - 1,
+                0,
+                1,
+                -1,
+                5,
+                -5,
+                7,
+                -7,
+                1 << 40,
+            ];
+            for s in 1..=62 {
+                let sh = Shr64::new(s).unwrap();
+                let (mut a, mut b) = (Rng::new(s as u64), Rng::new(s as u64));
+                for &v in &vals {
+                    for d in [-(1i64 << (s - 1)), -1, 0, 1, 1 << (s - 1)] {
+                        let Some(v) = v.checked_add(d).filter(|x| x.unsigned_abs() <= 1 << 62)
+                        else {
+                            continue;
+                        };
+                        let want = shift_right(v, s, M::MODE, &mut a);
+                        assert_eq!(M::shr64(v, sh, &mut b), want, "{v} >> {s}");
+                        assert_eq!(a, b);
+                    }
+                }
+            }
+        }
+        check64::<NearestEven>();
+        check64::<TowardZero>();
+        check64::<Stochastic>();
+        assert_eq!(Shr64::new(63), None);
+        assert_eq!(Shr32::new(0), None);
+        assert_eq!(Shr32::new(31), None);
     }
 }

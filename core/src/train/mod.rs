@@ -15,7 +15,7 @@ use crate::error::{Error, ParamTensor};
 use crate::kernel::Tally;
 use crate::layer::loss::{self, LossValue, Target};
 use crate::layer::{self, BackOut, BackTally, Params, Rounder, Tensor, TensorMut};
-use crate::model::{LayerDesc, Loss, ModelDesc, MAX_LAYERS};
+use crate::model::{LayerDesc, Loss, ModelDesc};
 use crate::num::round::{rescale, Rounding};
 use crate::num::{QFormat, Raw, RawMut, Rng};
 use crate::plan::{reads_input, split_disjoint, Plan, Slot};
@@ -40,7 +40,8 @@ impl LayerParams<'static> {
 }
 
 /// The fraction bits that can move during training (dynamic fixed point).
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, bytemuck::Pod, bytemuck::Zeroable)]
+#[repr(C)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct LiveFracs {
     /// Output activations.
@@ -54,7 +55,8 @@ pub struct LiveFracs {
 }
 
 /// What happened to each tensor of one layer.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq, bytemuck::Pod, bytemuck::Zeroable)]
+#[repr(C)]
 #[cfg_attr(feature = "defmt", derive(defmt::Format))]
 pub struct LayerStats {
     /// Writes of output activations.
@@ -94,21 +96,35 @@ pub struct StepOutcome {
 }
 
 /// Fixed-point trainer over a caller-owned arena. See the [module docs](self).
+///
+/// The trainer itself is a small handle: every buffer it works in, its per-layer statistics
+/// and live formats included, lives in the arena ([`Plan::state`]), and the frozen tensors
+/// are read in place from the initial parameters it borrows.
 pub struct Trainer<'a> {
     desc: &'a ModelDesc,
     plan: &'a Plan,
+    /// The tensors' part of the arena (everything before [`Plan::state`]).
     arena: &'a mut [u32],
-    flash: [LayerParams<'a>; MAX_LAYERS],
-    live: [LiveFracs; MAX_LAYERS],
+    /// The initial parameters, one entry per layer: frozen tensors are read from here.
+    flash: &'a [LayerParams<'a>],
+    /// Live fraction bits, one entry per layer.
+    live: &'a mut [LiveFracs],
+    /// Cumulative statistics, one entry per layer.
+    stats: &'a mut [LayerStats],
+    /// The moving tensors' tallies at the start of the current dynamic-fixed-point interval:
+    /// output, gradient, weight accumulator, bias accumulator ([`LayerStats::moving`]), one
+    /// entry per layer.
+    marks: &'a mut [[Tally; 4]],
     rng: Rng,
     in_batch: u16,
     steps: u32,
     updates: u32,
-    stats: [LayerStats; MAX_LAYERS],
-    /// The moving tensors' tallies at the start of the current dynamic-fixed-point interval:
-    /// output, gradient, weight accumulator, bias accumulator ([`LayerStats::moving`]).
-    marks: [[Tally; 4]; MAX_LAYERS],
 }
+
+// The trainer is a handle of pointers and counters: at most 32 machine words (128 bytes on a
+// 32-bit microcontroller), whatever the model.
+const _: () =
+    assert!(core::mem::size_of::<Trainer<'static>>() <= 32 * core::mem::size_of::<usize>());
 
 /// Cuts disjoint mutable pieces out of the arena, one per slot (see [`split_disjoint`]).
 fn carve<const N: usize>(arena: &mut [u32], slots: [Slot; N]) -> [&mut [u32]; N] {
@@ -122,6 +138,46 @@ fn carve<const N: usize>(arena: &mut [u32], slots: [Slot; N]) -> [&mut [u32]; N]
             }
         }),
     )
+}
+
+/// Cuts the state part ([`Plan::state`]) off the end of the arena and views it as the live
+/// fraction bits, statistics and interval marks of `n` layers; returns those and the tensors'
+/// part.
+#[allow(clippy::type_complexity)]
+fn split_state(
+    arena: &mut [u32],
+    state: Slot,
+    n: usize,
+) -> Result<
+    (
+        &mut [LiveFracs],
+        &mut [LayerStats],
+        &mut [[Tally; 4]],
+        &mut [u32],
+    ),
+    Error,
+> {
+    let words = |t: usize| t / 4;
+    let need = [
+        n * words(core::mem::size_of::<LiveFracs>()),
+        n * words(core::mem::size_of::<LayerStats>()),
+        n * words(core::mem::size_of::<[Tally; 4]>()),
+    ];
+    if state.words() < need.iter().sum::<usize>()
+        || arena.len() < state.first_word() + state.words()
+    {
+        return Err(Error::PlanMismatch);
+    }
+    let (tensors, rest) = arena.split_at_mut(state.first_word());
+    let (live, rest) = rest.split_at_mut(need[0]);
+    let (stats, rest) = rest.split_at_mut(need[1]);
+    let marks = &mut rest[..need[2]];
+    Ok((
+        bytemuck::cast_slice_mut(live),
+        bytemuck::cast_slice_mut(stats),
+        bytemuck::cast_slice_mut(marks),
+        tensors,
+    ))
 }
 
 fn view_mut(words: &mut [u32], fmt: QFormat, elems: u32) -> TensorMut<'_> {
@@ -147,7 +203,7 @@ impl<'a> Trainer<'a> {
         desc: &'a ModelDesc,
         plan: &'a Plan,
         arena: &'a mut [u32],
-        init: &[LayerParams<'a>],
+        init: &'a [LayerParams<'a>],
     ) -> Result<Trainer<'a>, Error> {
         desc.check()?;
         // The fingerprint stands for the whole description: no second plan is built (it would
@@ -173,35 +229,36 @@ impl<'a> Trainer<'a> {
                 found: init.len() as u32,
             });
         }
-        let mut flash = [LayerParams::NONE; MAX_LAYERS];
-        let mut live = [LiveFracs::default(); MAX_LAYERS];
         for (k, (l, p)) in desc.layers.iter().zip(init.iter()).enumerate() {
-            let g = &plan.shapes.layers[k];
-            live[k] = LiveFracs {
+            if l.kind.has_params() {
+                let g = &plan.shapes.layers[k];
+                check_param(k, ParamTensor::Weight, p.weight, l.weight.value, g.weights)?;
+                check_param(k, ParamTensor::Bias, p.bias, l.bias.value, g.biases)?;
+            }
+        }
+        let (live, stats, marks, arena) = split_state(arena, plan.state, n)?;
+        for (f, l) in live.iter_mut().zip(desc.layers.iter()) {
+            *f = LiveFracs {
                 out: l.out.frac,
                 grad: l.grad.frac,
                 accum_weight: l.weight.accum.frac,
                 accum_bias: l.bias.accum.frac,
             };
-            if !l.kind.has_params() {
-                continue;
-            }
-            check_param(k, ParamTensor::Weight, p.weight, l.weight.value, g.weights)?;
-            check_param(k, ParamTensor::Bias, p.bias, l.bias.value, g.biases)?;
-            flash[k] = *p;
         }
+        stats.fill(LayerStats::default());
+        marks.fill([Tally::default(); 4]);
         let mut t = Trainer {
             desc,
             plan,
             arena,
-            flash,
+            flash: init,
             live,
+            stats,
+            marks,
             rng: Rng::new(desc.train.seed),
             in_batch: 0,
             steps: 0,
             updates: 0,
-            stats: [LayerStats::default(); MAX_LAYERS],
-            marks: [[Tally::default(); 4]; MAX_LAYERS],
         };
         t.load(init)?;
         Ok(t)
@@ -391,10 +448,10 @@ impl<'a> Trainer<'a> {
         let n = self.desc.layers.len();
         let mut rng = self.rng;
         let saturations = self.forward(x, &mut rng, true);
-        let (loss, predicted) = self.loss(target, &mut rng, self.plan.trains());
+        let (loss, predicted) = self.loss(target, &mut rng, self.plan.trains(), true);
         if self.plan.trains() {
             for k in (self.plan.first_trainable..n).rev() {
-                self.backward(k, x, &mut rng);
+                self.backward(k, x, &mut rng, true);
             }
         }
         self.rng = rng;
@@ -431,7 +488,7 @@ impl<'a> Trainer<'a> {
         if self.in_batch != 0 {
             return Err(Error::InvalidTraining);
         }
-        let (stats, rng) = (self.stats, self.rng);
+        let rng = self.rng;
         let mut n = 0u32;
         let mut result = Ok(());
         for (x, t) in samples {
@@ -441,14 +498,13 @@ impl<'a> Trainer<'a> {
             }
             let mut r = self.rng;
             self.forward(x, &mut r, false);
-            self.loss(t, &mut r, true);
+            self.loss(t, &mut r, true, false);
             for k in (self.plan.first_trainable..self.desc.layers.len()).rev() {
-                self.backward(k, x, &mut r);
+                self.backward(k, x, &mut r, false);
             }
             self.rng = r;
             n += 1;
         }
-        self.stats = stats;
         self.rng = rng;
         result.map(|_| n)
     }
@@ -477,7 +533,7 @@ impl<'a> Trainer<'a> {
         self.check_sample(x, target)?;
         let mut rng = self.rng;
         let saturations = self.forward(x, &mut rng, false);
-        let (loss, predicted) = self.loss(target, &mut rng, false);
+        let (loss, predicted) = self.loss(target, &mut rng, false, false);
         Ok(StepOutcome {
             loss,
             predicted,
@@ -623,9 +679,15 @@ impl<'a> Trainer<'a> {
         saturations
     }
 
-    /// Loss of the last output against `target`; with `grad`, writes the loss gradient and
-    /// counts it.
-    fn loss(&mut self, target: Target<'_>, rng: &mut Rng, grad: bool) -> (LossValue, Option<u16>) {
+    /// Loss of the last output against `target`; with `grad`, writes the loss gradient, and
+    /// with `count` too, counts it in the statistics.
+    fn loss(
+        &mut self,
+        target: Target<'_>,
+        rng: &mut Rng,
+        grad: bool,
+        count: bool,
+    ) -> (LossValue, Option<u16>) {
         let last = self.desc.layers.len() - 1;
         let n = self.plan.shapes.output.size() as usize;
         let out_fmt = self.out_fmt(last);
@@ -660,13 +722,14 @@ impl<'a> Trainer<'a> {
                 )
             }
         };
-        if grad {
+        if grad && count {
             self.stats[last].grad.merge(&tally);
         }
         out
     }
 
-    fn backward(&mut self, k: usize, x: Tensor<'_>, rng: &mut Rng) {
+    /// Backward through layer `k`; with `count`, the writes are counted in the statistics.
+    fn backward(&mut self, k: usize, x: Tensor<'_>, rng: &mut Rng, count: bool) {
         let l = *self.layer(k);
         let g = self.plan.shapes.layers[k];
         let s = self.plan.layers[k];
@@ -744,6 +807,9 @@ impl<'a> Trainer<'a> {
             &mut Rounder { mode, rng },
             &mut t,
         );
+        if !count {
+            return;
+        }
         if k > 0 {
             self.stats[k - 1].grad.merge(&t.gx);
         }

@@ -21,10 +21,13 @@
 //! With a learning rate of zero nothing is meant to move, and nothing is counted.
 //! Products that vanish while they are summed into `acc` are not updates and are not counted.
 
-use crate::kernel::{add_sat, Tally};
+use crate::kernel::{add_sat, outer_half, Tally};
 use crate::layer::TensorMut;
-use crate::num::round::{div_round, requantize, rescale};
-use crate::num::{QScalar, Rng, Rounding};
+use crate::num::round::{
+    div_round, requantize, rescale, shift_left_saturating, NearestEven, RoundMode, Shr64,
+    Stochastic, TowardZero,
+};
+use crate::num::{QFormat, QScalar, RawMut, Rng, Rounding, Sample, Word};
 
 /// The hyperparameters of one update.
 #[derive(Clone, Copy, Debug)]
@@ -58,7 +61,284 @@ pub struct UpdateTensors<'a, 'b> {
 /// Applies one update to every value of a tensor. Counts writes, saturations and lost
 /// updates of the update target in `tally`, and saturations of the momentum buffer in
 /// `accum_tally`.
+///
+/// Decides once per tensor: with the usual 32-bit accumulator (and 32-bit master and momentum,
+/// if any) a loop compiled for the value's word runs over typed slices; other layouts take
+/// [`update_exact`]. Both compute the same values, counts and random draws.
 pub fn update(
+    t: UpdateTensors<'_, '_>,
+    cfg: &UpdateConfig,
+    rng: &mut Rng,
+    tally: &mut Tally,
+    accum_tally: &mut Tally,
+) {
+    let wide = |r: Option<&RawMut<'_>>| r.is_none_or(|r| matches!(r, RawMut::I32(_)));
+    if !(wide(Some(&t.accum.raw))
+        && wide(t.master.as_deref().map(|m| &m.raw))
+        && wide(t.momentum.as_deref().map(|m| &m.raw)))
+    {
+        return update_exact(t, cfg, rng, tally, accum_tally);
+    }
+    let fa = t.accum.frac();
+    let vfmt = t.value.fmt;
+    let mfmt = t.master.as_deref().map(|m| m.fmt);
+    let fw = mfmt.unwrap_or(vfmt).frac as u32;
+    let samples = cfg.samples as i64;
+    let batch = if samples <= 1 {
+        Batch::One
+    } else if samples & (samples - 1) == 0 {
+        match Shr64::new(samples.trailing_zeros()) {
+            Some(s) => Batch::Shift(s),
+            None => Batch::Div(samples),
+        }
+    } else {
+        Batch::Div(samples)
+    };
+    let scales = (
+        Scale::new(cfg.decay.frac as u32 + fw, fa),
+        Scale::new(cfg.momentum.frac as u32 + fa, fa),
+        Scale::new(cfg.lr.frac as u32 + fa, fw),
+        Scale::new(mfmt.map_or(0, |m| m.frac as u32), vfmt.frac as u32),
+    );
+    let (Some(decay_scale), Some(mu_scale), Some(lr_scale), Some(master_scale)) = scales else {
+        return update_exact(t, cfg, rng, tally, accum_tally);
+    };
+    let clip = clip_bound(cfg, fa, t.accum.fmt.word, rng);
+    let master = t.master.and_then(|m| {
+        let f = m.fmt;
+        match &mut m.raw {
+            RawMut::I32(s) => Some((&mut **s, f)),
+            _ => None,
+        }
+    });
+    let momentum = t.momentum.and_then(|m| match &mut m.raw {
+        RawMut::I32(s) => Some(&mut **s),
+        _ => None,
+    });
+    let RawMut::I32(accum) = &mut t.accum.raw else {
+        return;
+    };
+    let typed = Typed {
+        master,
+        accum,
+        momentum,
+        clip,
+        batch,
+        decay: (!cfg.decay.is_zero()).then_some((cfg.decay.raw as i64, decay_scale)),
+        momentum_scale: (cfg.momentum.raw as i64, mu_scale),
+        lr: (cfg.lr.raw as i64, lr_scale),
+        master_scale,
+        lr_zero: cfg.lr.is_zero(),
+    };
+    match &mut t.value.raw {
+        RawMut::I8(v) => typed.run(cfg.mode, v, rng, tally, accum_tally),
+        RawMut::I16(v) => typed.run(cfg.mode, v, rng, tally, accum_tally),
+        RawMut::I32(v) => typed.run(cfg.mode, v, rng, tally, accum_tally),
+    }
+}
+
+/// A rescale from one number of fraction bits to another, worked out once per tensor: the
+/// form [`rescale`] takes inside the typed loop, for values of magnitude at most 2^62.
+#[derive(Clone, Copy, Debug)]
+enum Scale {
+    /// Same fraction bits.
+    Same,
+    /// Fewer fraction bits: a rounded right shift.
+    Right(Shr64),
+    /// More fraction bits: a saturating left shift by this many bits.
+    Left(u32),
+}
+
+impl Scale {
+    /// The rescale from `from` to `to` fraction bits, or `None` for a right shift of more than
+    /// 62 bits (which formats within `MAX_FRAC` never need; [`update_exact`] handles it).
+    fn new(from: u32, to: u32) -> Option<Scale> {
+        match from.checked_sub(to) {
+            Some(0) => Some(Scale::Same),
+            Some(s) => Shr64::new(s).map(Scale::Right),
+            None => Some(Scale::Left(to - from)),
+        }
+    }
+
+    /// [`rescale`] of `v` (`|v| ≤ 2^62`) by `mode`: the same value, saturation flag and
+    /// random draws.
+    #[inline(always)]
+    fn apply(self, mode: Rounding, v: i64, rng: &mut Rng) -> (i64, bool) {
+        match self {
+            Scale::Same => (v, false),
+            Scale::Right(s) => (shr64(mode, v, s, rng), false),
+            Scale::Left(k) => shift_left_saturating(v, k),
+        }
+    }
+}
+
+/// [`RoundMode::shr64`] for a mode known at run time. The update loop is compiled once for
+/// all modes (a copy per mode would triple the engine's largest function for a few percent).
+#[inline(always)]
+fn shr64(mode: Rounding, v: i64, s: Shr64, rng: &mut Rng) -> i64 {
+    match mode {
+        Rounding::NearestEven => NearestEven::shr64(v, s, rng),
+        Rounding::TowardZero => TowardZero::shr64(v, s, rng),
+        Rounding::Stochastic => Stochastic::shr64(v, s, rng),
+    }
+}
+
+/// The division of a gradient sum by the samples of the batch, decided once per tensor.
+#[derive(Clone, Copy, Debug)]
+enum Batch {
+    /// One sample: no division.
+    One,
+    /// A power of two: a rounded shift.
+    Shift(Shr64),
+    /// Any other count (a partial batch): [`div_round`].
+    Div(i64),
+}
+
+/// The 32-bit buffers of one typed update and the constants worked out once per tensor.
+struct Typed<'s> {
+    master: Option<(&'s mut [i32], QFormat)>,
+    accum: &'s mut [i32],
+    momentum: Option<&'s mut [i32]>,
+    clip: Option<i64>,
+    batch: Batch,
+    /// Weight decay: its raw factor and the rescale of `λ·w` to the accumulator.
+    decay: Option<(i64, Scale)>,
+    /// Momentum: its raw factor and the rescale of `μ·v` back to the accumulator.
+    momentum_scale: (i64, Scale),
+    /// The learning rate's raw value and the rescale of `lr·g` to the update target.
+    lr: (i64, Scale),
+    /// The rescale of a master value to the propagated value.
+    master_scale: Scale,
+    lr_zero: bool,
+}
+
+impl Typed<'_> {
+    /// The update loop for values stored as `V` and rounding `M`: the steps of
+    /// [`update_exact`], in the same order with the same roundings and draws, over typed
+    /// slices with every shift decided before the loop.
+    #[inline(never)]
+    fn run<V: Sample>(
+        self,
+        mode: Rounding,
+        value: &mut [V],
+        rng: &mut Rng,
+        tally: &mut Tally,
+        accum_tally: &mut Tally,
+    ) {
+        let Typed {
+            mut master,
+            accum,
+            mut momentum,
+            clip,
+            batch,
+            decay,
+            momentum_scale: (mu, mu_scale),
+            lr: (lr, lr_scale),
+            master_scale,
+            lr_zero,
+        } = self;
+        let (mut sats, mut lost) = (0u32, 0u32);
+        let (mut acc_sats, mut acc_writes, mut acc_high) = (0u32, 0u32, 0u32);
+        // One index walks four buffers of the same length (value, accumulator, master,
+        // momentum), two of them optional.
+        #[allow(clippy::needless_range_loop)]
+        for i in 0..value.len() {
+            let sum = accum.get(i).copied().unwrap_or(0) as i64;
+            let mut g = match batch {
+                Batch::One => sum,
+                Batch::Shift(s) => shr64(mode, sum, s, rng),
+                Batch::Div(n) => div_round(sum, n, mode, rng),
+            };
+            if let Some(c) = clip {
+                g = g.clamp(-c, c);
+            }
+            let w = match &master {
+                Some((m, _)) => m.get(i).copied().unwrap_or(0) as i64,
+                None => value[i].to_i32() as i64,
+            };
+            if let Some((d, scale)) = decay {
+                let (d, _) = scale.apply(mode, d * w, rng);
+                let (s, sat) = add_sat(g, d);
+                g = s;
+                acc_sats += sat as u32;
+                acc_high += sat as u32;
+            }
+            match momentum.as_deref_mut() {
+                Some(m) => {
+                    let prev = m.get(i).copied().unwrap_or(0) as i64;
+                    let (decayed, _) = mu_scale.apply(mode, mu * prev, rng);
+                    let (v, sat) = Word::I32.saturate(add_sat(decayed, g).0);
+                    if let Some(slot) = m.get_mut(i) {
+                        *slot = v;
+                    }
+                    acc_writes += 1;
+                    acc_sats += sat as u32;
+                    acc_high += (sat || outer_half(v, Word::I32)) as u32;
+                    g = v as i64;
+                }
+                None => {
+                    let (v, sat) = Word::I32.saturate(g);
+                    acc_sats += sat as u32;
+                    acc_high += sat as u32;
+                    g = v as i64;
+                }
+            }
+            // |lr| < 2^31 and |g| ≤ 2^31, so the exact product fits in 63 bits.
+            let exact = lr * g;
+            let (delta, sat_delta) = lr_scale.apply(mode, exact, rng);
+            lost += ((sum != 0 || exact != 0) && delta == 0 && !lr_zero) as u32;
+            let (s, sat_sub) = add_sat(w, delta.saturating_neg());
+            match &mut master {
+                Some((m, mf)) => {
+                    let (nw, sat) = mf.word.saturate(s);
+                    if let Some(slot) = m.get_mut(i) {
+                        *slot = nw;
+                    }
+                    sats += (sat || sat_delta || sat_sub) as u32;
+                    let (v, s1) = master_scale.apply(Rounding::NearestEven, nw as i64, rng);
+                    let (v, s2) = V::WORD.saturate(v);
+                    value[i] = V::from_i32_in_range(v);
+                    sats += (s1 || s2) as u32;
+                }
+                None => {
+                    let (nw, sat) = V::WORD.saturate(s);
+                    value[i] = V::from_i32_in_range(nw);
+                    sats += (sat || sat_delta || sat_sub) as u32;
+                }
+            }
+        }
+        accum.fill(0);
+        tally.values = tally.values.saturating_add(value.len() as u32);
+        tally.saturations = tally.saturations.saturating_add(sats);
+        tally.high = tally.high.saturating_add(sats);
+        tally.lost_updates = tally.lost_updates.saturating_add(lost);
+        accum_tally.values = accum_tally.values.saturating_add(acc_writes);
+        accum_tally.saturations = accum_tally.saturations.saturating_add(acc_sats);
+        accum_tally.high = accum_tally.high.saturating_add(acc_high);
+    }
+}
+
+/// The clip bound in the accumulator's format, if clipping is on: a bound finer than one step
+/// of the accumulator would clip every gradient to zero, so it becomes one step instead.
+fn clip_bound(cfg: &UpdateConfig, fa: u32, acc_word: Word, rng: &mut Rng) -> Option<i64> {
+    if cfg.clip.is_zero() {
+        return None;
+    }
+    let (c, _) = rescale(
+        cfg.clip.raw as i64,
+        cfg.clip.frac as u32,
+        fa,
+        Rounding::NearestEven,
+        rng,
+    );
+    Some(c.clamp(1, acc_word.max_raw() as i64))
+}
+
+/// [`update`] over run-time words, value by value: the reference the typed loop is tested
+/// against, and the path for accumulators, masters or momentum buffers narrower than 32 bits.
+#[cold]
+#[inline(never)]
+pub fn update_exact(
     t: UpdateTensors<'_, '_>,
     cfg: &UpdateConfig,
     rng: &mut Rng,
@@ -67,20 +347,7 @@ pub fn update(
 ) {
     let fa = t.accum.frac();
     let acc_word = t.accum.fmt.word;
-    let clip = if cfg.clip.is_zero() {
-        None
-    } else {
-        let (c, _) = rescale(
-            cfg.clip.raw as i64,
-            cfg.clip.frac as u32,
-            fa,
-            Rounding::NearestEven,
-            rng,
-        );
-        // A bound finer than one step of the accumulator would clip every gradient to zero;
-        // it becomes one step instead.
-        Some(c.clamp(1, acc_word.max_raw() as i64))
-    };
+    let clip = clip_bound(cfg, fa, acc_word, rng);
     let UpdateTensors {
         value,
         mut master,
@@ -225,5 +492,123 @@ mod tests {
         // No gradient, or a learning rate of zero: nothing to lose.
         assert_eq!(lost_after(0, 4, one).0.lost_updates, 0);
         assert_eq!(lost_after(4 << 12, 4, QScalar::ZERO).0.lost_updates, 0);
+    }
+
+    mod typed {
+        use super::super::*;
+        use crate::num::{QFormat, RawMut, Word};
+        use proptest::prelude::{any, prop_oneof, proptest, Just, ProptestConfig, Strategy};
+
+        fn scalar() -> impl Strategy<Value = QScalar> {
+            prop_oneof![
+                Just(QScalar::ZERO),
+                (any::<i32>(), 0u8..=31).prop_map(|(raw, frac)| QScalar { raw, frac }),
+                (1i32..1 << 20, 16u8..=24).prop_map(|(raw, frac)| QScalar { raw, frac }),
+            ]
+        }
+
+        fn mode() -> impl Strategy<Value = Rounding> {
+            prop_oneof![
+                Just(Rounding::NearestEven),
+                Just(Rounding::TowardZero),
+                Just(Rounding::Stochastic)
+            ]
+        }
+
+        /// Runs one update over copies of the same buffers through `f`, returning every
+        /// buffer, both tallies and the generator.
+        #[allow(clippy::type_complexity, clippy::too_many_arguments)]
+        fn run(
+            f: fn(UpdateTensors<'_, '_>, &UpdateConfig, &mut Rng, &mut Tally, &mut Tally),
+            word: Word,
+            vals: &[i32],
+            fv: u8,
+            master: Option<(&[i32], u8)>,
+            accum: &[i32],
+            fa: u8,
+            momentum: Option<&[i32]>,
+            cfg: &UpdateConfig,
+            seed: u64,
+        ) -> (Vec<i32>, Vec<i32>, Vec<i32>, Vec<i32>, Tally, Tally, Rng) {
+            let n = vals.len();
+            let mut v8: Vec<i8> = vals.iter().map(|&v| v as i8).collect();
+            let mut v16: Vec<i16> = vals.iter().map(|&v| v as i16).collect();
+            let mut v32: Vec<i32> = vals.to_vec();
+            let raw = match word {
+                Word::I8 => RawMut::I8(&mut v8),
+                Word::I16 => RawMut::I16(&mut v16),
+                Word::I32 => RawMut::I32(&mut v32),
+            };
+            let mut value = TensorMut {
+                raw,
+                fmt: QFormat::new_unchecked(word, fv),
+            };
+            let mut m = master.map(|(m, _)| m.to_vec()).unwrap_or_default();
+            let mut master_t = master.map(|(_, f)| TensorMut {
+                raw: RawMut::I32(&mut m),
+                fmt: QFormat::new_unchecked(Word::I32, f),
+            });
+            let mut a = accum.to_vec();
+            let mut accum_t = TensorMut {
+                raw: RawMut::I32(&mut a),
+                fmt: QFormat::new_unchecked(Word::I32, fa),
+            };
+            let mut mo = momentum.map(|m| m.to_vec()).unwrap_or_default();
+            let mut mo_t = momentum.map(|_| TensorMut {
+                raw: RawMut::I32(&mut mo),
+                fmt: QFormat::new_unchecked(Word::I32, fa),
+            });
+            let (mut t, mut at, mut rng) = (Tally::default(), Tally::default(), Rng::new(seed));
+            f(
+                UpdateTensors {
+                    value: &mut value,
+                    master: master_t.as_mut(),
+                    accum: &mut accum_t,
+                    momentum: mo_t.as_mut(),
+                },
+                cfg,
+                &mut rng,
+                &mut t,
+                &mut at,
+            );
+            let out: Vec<i32> = (0..n).map(|i| value.raw.at(i)).collect();
+            (out, m, a, mo, t, at, rng)
+        }
+
+        proptest! {
+            #![proptest_config(ProptestConfig::with_cases(1500))]
+
+            /// The typed loop against the run-time-word reference, over random words, formats,
+            /// hyperparameters, modes and buffers (master and momentum on and off).
+            #[test]
+            fn typed_update_equals_exact_update(
+                word in prop_oneof![Just(Word::I8), Just(Word::I16), Just(Word::I32)],
+                vals in proptest::collection::vec(any::<i32>(), 0..10),
+                fv in 0u8..=31,
+                master in proptest::option::of((proptest::collection::vec(any::<i32>(), 10), 0u8..=31)),
+                accum in proptest::collection::vec(prop_oneof![any::<i32>(), -4096i32..4096], 10),
+                fa in 0u8..=31,
+                momentum in proptest::option::of(proptest::collection::vec(any::<i32>(), 10)),
+                lr in scalar(),
+                mu in scalar(),
+                decay in scalar(),
+                clip in scalar(),
+                samples in 1u32..12,
+                mode in mode(),
+                seed in any::<u64>(),
+            ) {
+                let n = vals.len();
+                let vals: Vec<i32> = vals
+                    .iter()
+                    .map(|&v| word.saturate(v as i64 >> (32 - word.bits())).0)
+                    .collect();
+                let cfg = UpdateConfig { lr, momentum: mu, decay, clip, samples, mode };
+                let master = master.as_ref().map(|(m, f)| (&m[..n], *f));
+                let momentum = momentum.as_ref().map(|m| &m[..n]);
+                let a = run(update, word, &vals, fv, master, &accum[..n], fa, momentum, &cfg, seed);
+                let b = run(update_exact, word, &vals, fv, master, &accum[..n], fa, momentum, &cfg, seed);
+                assert_eq!(a, b);
+            }
+        }
     }
 }
