@@ -21,6 +21,8 @@ pub mod decode;
 pub mod elf;
 mod error;
 pub mod firmware;
+pub mod lean;
+pub mod profile;
 pub mod qemu;
 pub mod record;
 pub mod reference;
