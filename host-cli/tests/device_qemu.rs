@@ -18,6 +18,9 @@
 //! ReLU, squared-error model with SGD on the micro:bit, ends with the host's weights bit for
 //! bit, and links less engine code than the full firmware.
 //!
+//! The profile: the per-function instruction profile of the calibration set's training on the
+//! M3 adds up to the firmware's own count of the same call, and holds the engine's hot code.
+//!
 //! Needs `qemu-system-arm` and `qemu-system-riscv32` (Debian packages `qemu-system-arm` and
 //! `qemu-system-misc`) and the rustup targets of the boards; a missing emulator fails the test
 //! with a message saying what to install.
