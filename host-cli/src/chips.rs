@@ -480,3 +480,113 @@ mod tests {
         assert!(!CoreKind::Rv32ec.has_hw_multiply() && CoreKind::CortexM0.has_hw_multiply());
     }
 }
+
+/// Clock, run current and supply of a chip, for the time and energy estimate of a training
+/// session (`hone plan`). Kept apart from [`Chip`] so that chips without these figures need
+/// none.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct ChipPower {
+    /// The chip's [`Chip::id`].
+    pub id: &'static str,
+    /// Core clock the estimate assumes (the chip's maximum), MHz.
+    pub clock_mhz: f64,
+    /// Run-mode supply current per MHz, executing from flash, µA/MHz.
+    pub run_ua_per_mhz: f64,
+    /// Supply voltage, volts.
+    pub supply_v: f64,
+    /// Where the figures come from: a datasheet, or "from memory".
+    pub source: &'static str,
+}
+
+/// Run-mode figures of the chips that have them. Every row is from memory (the datasheets'
+/// headline run currents, not looked up for this table); treat the estimates as rough.
+pub static CHIP_POWER: [ChipPower; 8] = [
+    ChipPower {
+        id: "stm32l031k6",
+        clock_mhz: 32.0,
+        run_ua_per_mhz: 76.0,
+        supply_v: 3.0,
+        source: "from memory (DS10668 headline: 76 µA/MHz in run mode)",
+    },
+    ChipPower {
+        id: "stm32g031k8",
+        clock_mhz: 64.0,
+        run_ua_per_mhz: 100.0,
+        supply_v: 3.0,
+        source: "from memory (DS12992 headline: 100 µA/MHz in run mode)",
+    },
+    ChipPower {
+        id: "stm32f103c8",
+        clock_mhz: 72.0,
+        run_ua_per_mhz: 500.0,
+        supply_v: 3.3,
+        source: "from memory (STM32F103x8 datasheet: about 36 mA at 72 MHz)",
+    },
+    ChipPower {
+        id: "stm32f411ce",
+        clock_mhz: 100.0,
+        run_ua_per_mhz: 100.0,
+        supply_v: 3.3,
+        source: "from memory (STM32F411xC/E datasheet headline: 100 µA/MHz)",
+    },
+    ChipPower {
+        id: "stm32l476rg",
+        clock_mhz: 80.0,
+        run_ua_per_mhz: 100.0,
+        supply_v: 3.0,
+        source: "from memory (STM32L476xx datasheet headline: 100 µA/MHz in run mode)",
+    },
+    ChipPower {
+        id: "nrf51822",
+        clock_mhz: 16.0,
+        run_ua_per_mhz: 275.0,
+        supply_v: 3.0,
+        source: "from memory (nRF51822 product specification: about 4.4 mA running from flash \
+                 at 16 MHz)",
+    },
+    ChipPower {
+        id: "nrf52832",
+        clock_mhz: 64.0,
+        run_ua_per_mhz: 58.0,
+        supply_v: 3.0,
+        source: "from memory (nRF52832 product specification: 58 µA/MHz from flash, DC/DC on)",
+    },
+    ChipPower {
+        id: "nrf52840",
+        clock_mhz: 64.0,
+        run_ua_per_mhz: 52.0,
+        supply_v: 3.0,
+        source: "from memory (nRF52840 product specification: 52 µA/MHz from flash, DC/DC on)",
+    },
+];
+
+/// The run-mode figures of chip `id`, if the table has them.
+pub fn power(id: &str) -> Option<&'static ChipPower> {
+    CHIP_POWER.iter().find(|p| p.id == id)
+}
+
+/// Average clock cycles per instruction of a core running integer code from flash, for the
+/// time estimate, and where the figure comes from. All from memory: the cores' published
+/// cycle counts (one cycle for most data instructions, two for loads, two to three for a
+/// taken branch) averaged over a typical mix, plus a little for flash wait states.
+pub fn cycles_per_instruction(core: CoreKind) -> (f64, &'static str) {
+    match core {
+        CoreKind::CortexM0 => (
+            1.5,
+            "from memory (Cortex-M0: taken branches 3 cycles, loads 2)",
+        ),
+        CoreKind::CortexM0Plus => (
+            1.4,
+            "from memory (Cortex-M0+: taken branches 2 cycles, loads 2)",
+        ),
+        CoreKind::CortexM3 | CoreKind::CortexM4 => (
+            1.3,
+            "from memory (Cortex-M3/M4: pipelined loads, taken branches 2 to 4 cycles)",
+        ),
+        CoreKind::CortexM7 => (0.8, "from memory (Cortex-M7: dual issue)"),
+        CoreKind::Rv32imac | CoreKind::Rv32imc | CoreKind::Rv32ec => (
+            1.3,
+            "from memory (small in-order RV32 cores: loads and taken branches 2 cycles)",
+        ),
+    }
+}

@@ -370,7 +370,10 @@ enum DeviceCmd {
     /// Build the board's firmware, run it under QEMU, simulate the same session on the host,
     /// compare the final weights bit for bit, and print the measurements.
     Verify {
-        /// QEMU board: lm3s6965evb, microbit, mps2-an386 or sifive-e.
+        /// QEMU board: lm3s6965evb, microbit, mps2-an386 or sifive-e; or microbit-lean, the
+        /// lean build (boards/lean: the core without its optional layer kinds, dense + ReLU +
+        /// squared error + SGD) on the micro:bit, which reports bit-exactness and engine code
+        /// only.
         #[arg(long)]
         board: String,
         /// Build from freshly generated session files in this folder instead of the committed
@@ -380,6 +383,34 @@ enum DeviceCmd {
         /// Run this firmware image instead of building one.
         #[arg(long)]
         elf: Option<PathBuf>,
+        /// Print one JSON object with the board's figures (stable snake_case keys; null for a
+        /// figure the build does not measure) instead of the report.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Profile a board's training step per function: run its firmware under QEMU with an
+    /// execution trace, charge every executed instruction to the function that holds it, and
+    /// print the functions with the most instructions.
+    Profile {
+        /// QEMU board: lm3s6965evb, microbit, mps2-an386 or sifive-e.
+        #[arg(long)]
+        board: String,
+        /// What to profile: calib (training on the calibration set), faulty (on the mislabelled
+        /// set), tput (the throughput phase's larger model) or whole (the whole run).
+        #[arg(long, default_value = "calib")]
+        phase: hone_host::device::profile::Phase,
+        /// Functions to list.
+        #[arg(long, default_value_t = 30)]
+        top: usize,
+        /// Profile this firmware image instead of building the board's.
+        #[arg(long)]
+        elf: Option<PathBuf>,
+        /// Time limit of the traced run, seconds.
+        #[arg(long, default_value_t = 600)]
+        timeout: u64,
+        /// Print JSON (every function) instead of the table.
+        #[arg(long)]
+        json: bool,
     },
     /// Write a board's session files (the exported model and its calibration samples).
     Session {
@@ -754,6 +785,10 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
             .map(|_| &drift_cost as hone_host::memplan::DriftFn<'_>),
     )
     .map_err(|e| anyhow!("{}: {e}", a.cfg.config.display()))?;
+    let report = match chip {
+        Some(c) => report.with_chip(c, &desc),
+        None => report,
+    };
     if a.json {
         print_json(&report)?;
     } else {
@@ -942,15 +977,47 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
             board,
             session_dir,
             elf,
+            json,
         } => {
+            let boards_dir = device::default_boards_dir();
+            let profile =
+                device::verify::release_opt_level(&boards_dir).map_err(|e| anyhow!("{e}"))?;
+            if board == device::lean::LEAN_BOARD {
+                if session_dir.is_some() || elf.is_some() {
+                    bail!(
+                        "--board {board}: --session-dir and --elf do not apply to the lean build"
+                    );
+                }
+                let check = device::lean::verify_lean(&boards_dir, device::DEFAULT_TIMEOUT)
+                    .map_err(|e| anyhow!("{e}"))?;
+                if json {
+                    outln!("{}", serde_json::to_string(&check.summary(&profile))?);
+                } else {
+                    out!("{}", check.render());
+                }
+                if !check.bit_exact() {
+                    eprintln!(
+                        "check failed: the lean build's output differs from the host's\n\
+                         device:\n{}\nhost:\n{}",
+                        check.device, check.host
+                    );
+                    return Ok(Some(CheckFailed));
+                }
+                return Ok(None);
+            }
             let b = board_named(&board)?;
             let opts = device::verify::VerifyOptions {
                 session_dir,
                 elf,
+                boards_dir,
                 ..Default::default()
             };
             let check = device::verify::verify_board(b, &opts).map_err(|e| anyhow!("{e}"))?;
-            out!("{}", check.render());
+            if json {
+                outln!("{}", serde_json::to_string(&check.summary(&profile))?);
+            } else {
+                out!("{}", check.render());
+            }
             let exact = check.ensure_bit_exact();
             let predicted = check.ensure_prediction();
             for e in [&exact, &predicted]
@@ -960,6 +1027,32 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
                 eprintln!("check failed: {e}");
             }
             Ok((exact.is_err() || predicted.is_err()).then_some(CheckFailed))
+        }
+        DeviceCmd::Profile {
+            board,
+            phase,
+            top,
+            elf,
+            timeout,
+            json,
+        } => {
+            let b = board_named(&board)?;
+            let elf = match elf {
+                Some(e) => e,
+                None => device::build_firmware(b, &device::default_boards_dir())
+                    .map_err(|e| anyhow!("{e}"))?,
+            };
+            let opts = device::profile::ProfileOptions {
+                phase,
+                timeout: std::time::Duration::from_secs(timeout),
+            };
+            let p = device::profile::profile_elf(b, &elf, &opts).map_err(|e| anyhow!("{e}"))?;
+            if json {
+                print_json(&p)?;
+            } else {
+                out!("{}", p.render(top));
+            }
+            Ok(None)
         }
         DeviceCmd::Session { board, out } => {
             let dir = match out {

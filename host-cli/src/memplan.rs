@@ -711,6 +711,24 @@ pub struct PlanReport {
     /// When the model does not fit and no single alternative makes it fit: the listed
     /// changes applied one after another, each kept only if it saved bytes, until it fits.
     pub combination: Option<Combination>,
+    /// Time and energy of one calibration session on the chip (see [`session_estimate`]);
+    /// set by [`PlanReport::with_chip`].
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub session: Option<SessionEstimate>,
+    /// When the engine's own overhead is what does not fit: the lean build to use instead
+    /// (see [`lean_advice`]); set by [`PlanReport::with_chip`].
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub lean: Option<String>,
+}
+
+impl PlanReport {
+    /// Adds what depends on the chip: the session estimate and the lean-build advice.
+    #[must_use]
+    pub fn with_chip(mut self, chip: &Chip, desc: &ModelDesc) -> Self {
+        self.session = session_estimate(chip);
+        self.lean = lean_advice(desc, &self);
+        self
+    }
 }
 
 /// What the caller may pass to estimate the drift cost of a changed model: the cost, or why
@@ -1090,6 +1108,8 @@ pub fn plan_report(
         verdict,
         advice,
         combination,
+        session: None,
+        lean: None,
     })
 }
 
@@ -1627,6 +1647,12 @@ pub fn render_table(r: &PlanReport) -> String {
             );
         }
     }
+    if let Some(lean) = &r.lean {
+        let _ = writeln!(o, "{}", wrap(lean, WIDTH, 2));
+    }
+    if let Some(e) = &r.session {
+        let _ = writeln!(o, "{}", wrap(&e.render(), WIDTH, 2));
+    }
     o
 }
 
@@ -1663,6 +1689,9 @@ pub struct MeasuredOverhead {
     pub firmware_static_bytes: u32,
     /// Stack depth at which the board firmware calls the engine, bytes.
     pub firmware_stack_bytes: u32,
+    /// Instructions per training sample of the session's model, fixed point, exact (the
+    /// `calib_train` span over its 10 samples × 3 passes).
+    pub insn_per_sample: u32,
 }
 
 /// Where the figures of [`MEASURED_OVERHEADS`] come from.
@@ -1683,6 +1712,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_code_bytes: 86016,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 128,
+        insn_per_sample: 20187,
     },
     MeasuredOverhead {
         board: "microbit",
@@ -1693,6 +1723,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_code_bytes: 88064,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 168,
+        insn_per_sample: 34615,
     },
     MeasuredOverhead {
         board: "mps2-an386",
@@ -1703,6 +1734,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_code_bytes: 86016,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 128,
+        insn_per_sample: 20120,
     },
     MeasuredOverhead {
         board: "sifive-e",
@@ -1713,6 +1745,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_code_bytes: 92160,
         firmware_static_bytes: 24,
         firmware_stack_bytes: 112,
+        insn_per_sample: 16626,
     },
 ];
 
@@ -1891,6 +1924,175 @@ pub fn measured_firmware_reserve(chip: &Chip) -> Option<Reserve> {
         ram_bytes: m.firmware_static_bytes + m.firmware_stack_bytes,
         flash_bytes: 0,
     })
+}
+
+/// Time and energy of one calibration session on a chip, estimated from the instruction
+/// count measured on a QEMU board with the chip's core.
+#[derive(Clone, Debug, PartialEq, Serialize)]
+pub struct SessionEstimate {
+    /// Always true: this is an estimate, not a measurement on the chip.
+    pub estimate: bool,
+    /// Board whose measured instructions it uses.
+    pub measured_on: &'static str,
+    /// The model config that board trains (the figure is for that model).
+    pub config: &'static str,
+    /// Measured instructions per training sample.
+    pub instructions_per_sample: u32,
+    /// Samples of the session.
+    pub samples: u32,
+    /// Passes over them.
+    pub passes: u32,
+    /// Instructions of the session: per sample × samples × passes.
+    pub instructions: u64,
+    /// Cycles per instruction assumed for the chip's core.
+    pub cycles_per_instruction: f64,
+    /// Clock, MHz.
+    pub clock_mhz: f64,
+    /// Estimated time, seconds.
+    pub seconds: f64,
+    /// Run current at that clock, mA; `None` when the chip table has no power figures.
+    pub current_ma: Option<f64>,
+    /// Supply voltage, volts.
+    pub supply_v: Option<f64>,
+    /// Estimated energy, millijoules: time × current × voltage.
+    pub energy_mj: Option<f64>,
+    /// Where the clock, current, voltage and cycles per instruction come from.
+    pub source: String,
+}
+
+/// Samples of a board's calibration session: the rows of `demo-data/soil_unit_calibration.csv`.
+pub const SESSION_SAMPLES: u32 = 10;
+
+impl SessionEstimate {
+    /// One paragraph for the plan's table.
+    #[must_use]
+    pub fn render(&self) -> String {
+        let energy = match (self.energy_mj, self.current_ma, self.supply_v) {
+            (Some(e), Some(i), Some(v)) => format!(", about {e:.3} mJ ({i:.2} mA at {v:.1} V)"),
+            _ => ", energy unknown (no run current for this chip in the table)".to_owned(),
+        };
+        format!(
+            "estimate, one calibration session ({} samples × {} passes of the model in {}, \
+             {} instructions per sample measured on {}): {} instructions × {:.1} cycles each at \
+             {} MHz = about {:.1} ms{energy}; {}",
+            self.samples,
+            self.passes,
+            self.config,
+            self.instructions_per_sample,
+            self.measured_on,
+            self.instructions,
+            self.cycles_per_instruction,
+            self.clock_mhz,
+            self.seconds * 1e3,
+            self.source
+        )
+    }
+}
+
+/// The time and energy of one calibration session (the boards' session: [`SESSION_SAMPLES`]
+/// samples, [`crate::device::session::PASSES`] passes) on `chip`: measured instructions ×
+/// cycles per instruction of its core ÷ its clock, and that time × run current × supply
+/// voltage. `None` when no board with the chip's core was measured or the chip has no clock
+/// in [`crate::chips::CHIP_POWER`] (QEMU boards are listed with their emulated chip's
+/// figures where known).
+#[must_use]
+pub fn session_estimate(chip: &Chip) -> Option<SessionEstimate> {
+    let row = measured_row(chip)?;
+    let power = crate::chips::power(chip.id)?;
+    let (cpi, cpi_source) = crate::chips::cycles_per_instruction(chip.core);
+    let passes = u32::from(crate::device::session::PASSES);
+    let instructions =
+        u64::from(row.insn_per_sample) * u64::from(SESSION_SAMPLES) * u64::from(passes);
+    let seconds = instructions as f64 * cpi / (power.clock_mhz * 1e6);
+    let current_ma = power.run_ua_per_mhz * power.clock_mhz / 1e3;
+    Some(SessionEstimate {
+        estimate: true,
+        measured_on: row.board,
+        config: row.config,
+        instructions_per_sample: row.insn_per_sample,
+        samples: SESSION_SAMPLES,
+        passes,
+        instructions,
+        cycles_per_instruction: cpi,
+        clock_mhz: power.clock_mhz,
+        seconds,
+        current_ma: Some(current_ma),
+        supply_v: Some(power.supply_v),
+        energy_mj: Some(seconds * current_ma * power.supply_v),
+        source: format!(
+            "clock and current: {}; cycles per instruction: {cpi_source}",
+            power.source
+        ),
+    })
+}
+
+/// The core's optional features (`core/Cargo.toml`) that `desc` needs.
+#[must_use]
+pub fn core_features(desc: &ModelDesc) -> Vec<&'static str> {
+    let mut f = Vec::new();
+    let mut add = |name| {
+        if !f.contains(&name) {
+            f.push(name);
+        }
+    };
+    for l in &desc.layers {
+        match l.kind {
+            LayerKind::Conv1d { .. } => add("conv1d"),
+            LayerKind::AvgPool1d { .. } | LayerKind::MaxPool1d { .. } => add("pool1d"),
+            LayerKind::Sigmoid | LayerKind::Tanh => add("table-activations"),
+            _ => {}
+        }
+    }
+    if desc.loss == hone_core::model::Loss::SoftmaxCrossEntropy {
+        add("cross-entropy");
+    }
+    f
+}
+
+/// When the model does not fit but would without the engine's measured overhead (its trainer
+/// object and stack in RAM, its code in flash), the advice to build the lean engine: the core
+/// without default features plus exactly the ones the model needs (`boards/lean` shows how).
+#[must_use]
+pub fn lean_advice(desc: &ModelDesc, r: &PlanReport) -> Option<String> {
+    let engine = r.engine.as_ref()?;
+    if r.fits {
+        return None;
+    }
+    let ram_without = r.ram.total_bytes.saturating_sub(
+        u64::from(r.ram.engine_state_bytes.unwrap_or(0))
+            + u64::from(r.ram.stack_bytes.unwrap_or(0)),
+    );
+    let flash_without = r
+        .flash
+        .total_bytes
+        .saturating_sub(u64::from(engine.code_flash));
+    if ram_without > u64::from(r.budget.ram_bytes)
+        || flash_without > u64::from(r.budget.flash_bytes)
+    {
+        return None;
+    }
+    let features = core_features(desc);
+    let wanted = if features.is_empty() {
+        "no optional feature".to_owned()
+    } else {
+        format!(
+            "features = [{}]",
+            features
+                .iter()
+                .map(|f| format!("\"{f}\""))
+                .collect::<Vec<_>>()
+                .join(", ")
+        )
+    };
+    Some(format!(
+        "the engine's own overhead ({} B of code, {} B of trainer and stack) is what does not \
+         fit: the model alone would. Build the lean engine as boards/lean does, hone-core with \
+         default-features = false and {wanted} (what this model uses), which links only those \
+         parts; its overhead is not in the measured table, so measure it with `hone device \
+         verify --board microbit-lean`.",
+        engine.code_flash,
+        r.ram.engine_state_bytes.unwrap_or(0) + r.ram.stack_bytes.unwrap_or(0),
+    ))
 }
 
 #[cfg(test)]

@@ -18,17 +18,17 @@
 //! ReLU, squared-error model with SGD on the micro:bit, ends with the host's weights bit for
 //! bit, and links less engine code than the full firmware.
 //!
+//! The profile: the per-function instruction profile of the calibration set's training on the
+//! M3 adds up to the firmware's own count of the same call, and holds the engine's hot code.
+//!
 //! Needs `qemu-system-arm` and `qemu-system-riscv32` (Debian packages `qemu-system-arm` and
 //! `qemu-system-misc`) and the rustup targets of the boards; a missing emulator fails the test
 //! with a message saying what to install.
 
 use std::time::{Duration, Instant};
 
-/// The lean firmware's session, compiled here with the core built for the host (all features;
-/// the arithmetic of the kinds the lean build keeps is the same code).
-#[path = "../../boards/lean/src/session.rs"]
-mod lean_session;
-
+use hone_host::device::lean::verify_lean;
+use hone_host::device::profile::{profile_elf, Phase, ProfileOptions, TRAIN_ROOT};
 use hone_host::device::report::TickUnit;
 use hone_host::device::session::{self, Session, BOARD_SESSIONS};
 use hone_host::device::throughput;
@@ -362,40 +362,24 @@ fn panic_and_fault_end_the_run_with_their_codes() {
 #[test]
 fn lean_build_trains_bit_exact_and_links_less_engine() {
     let boards = default_boards_dir();
-    let elf = build_bin(&boards.join("lean"), "hone-lean").unwrap_or_else(|e| panic!("{e}"));
-    let out =
-        run_qemu(QemuBoard::Microbit, &elf, DEFAULT_TIMEOUT).unwrap_or_else(|e| panic!("{e}"));
-    let device = String::from_utf8_lossy(&out.stdout).into_owned();
+    let check = verify_lean(&boards, DEFAULT_TIMEOUT).unwrap_or_else(|e| panic!("{e}"));
     assert_eq!(
-        out.exit_code, 0,
-        "lean firmware failed:\n{device}\n{}",
-        out.stderr
+        check.exit_code, 0,
+        "lean firmware failed:\n{}",
+        check.device
     );
-
-    let mut arena = vec![0u32; lean_session::ARENA_WORDS];
-    let mut host = String::new();
-    let summary = lean_session::run(&mut arena, |name, values| {
-        host.push_str("lean ");
-        host.push_str(name);
-        for v in values {
-            host.push_str(&format!(" {v}"));
-        }
-        host.push('\n');
-    })
-    .unwrap_or_else(|e| panic!("host run of the lean session: {e}"));
-    host.push_str(&format!("lean loss {} {}\n", summary.before, summary.after));
-    assert_eq!(device, host, "device and host differ");
+    assert_eq!(check.device, check.host, "device and host differ");
+    assert!(check.bit_exact());
     // The session must have learned something for the comparison to mean much: the summed
     // loss falls at least tenfold (it falls about fiftyfold).
     assert!(
-        summary.after * 10 < summary.before,
+        check.loss_after * 10 < check.loss_before,
         "loss {} -> {}",
-        summary.before,
-        summary.after
+        check.loss_before,
+        check.loss_after
     );
 
-    let lean = flash_figures(&std::fs::read(&elf).expect("read lean ELF"), &elf)
-        .unwrap_or_else(|e| panic!("{e}"));
+    let lean = &check.flash;
     let full_elf = build_firmware(QemuBoard::Microbit, &boards).unwrap_or_else(|e| panic!("{e}"));
     let full = flash_figures(&std::fs::read(&full_elf).expect("read ELF"), &full_elf)
         .unwrap_or_else(|e| panic!("{e}"));
@@ -419,4 +403,72 @@ fn lean_build_trains_bit_exact_and_links_less_engine() {
         lean.engine_code(),
         full.engine_code()
     );
+}
+
+/// The per-function profile of the calibration set's training on the LM3S6965 (Cortex-M3):
+/// the table is not empty, every executed block had a known length, its total agrees with the
+/// firmware's own count of the same call, and the engine's hot code is in it.
+///
+/// The firmware counts with SysTick, which under `-icount shift=0` advances in exact
+/// proportion to instructions (80 per tick on this board, stated in its boot record); it reads
+/// the counter before and after the call of `engine::train` (the `calib_train` span), so its
+/// count is quantised to one tick at each end and includes the two counter reads and the
+/// closure around the call. The profile counts the call itself. They must agree within two
+/// ticks plus 100 instructions.
+#[test]
+fn profile_of_the_calibration_step_agrees_with_the_firmware_count() {
+    let board = QemuBoard::Lm3s6965evb;
+    let elf = build_firmware(board, &default_boards_dir()).unwrap_or_else(|e| panic!("{e}"));
+    let run = run_elf(board, &elf, DEFAULT_TIMEOUT).unwrap_or_else(|e| panic!("{e}"));
+    run.ensure_success().unwrap_or_else(|e| panic!("{e}"));
+    let span = run.report.span("calib_train").expect("calib_train span");
+    let boot = run.report.boot.as_ref().expect("boot record");
+    let TickUnit::Instructions { num, den } = boot.unit else {
+        panic!("{board}: QEMU boards count instructions")
+    };
+    let tick = num.div_ceil(den.max(1));
+
+    let opts = ProfileOptions {
+        phase: Phase::Calib,
+        ..Default::default()
+    };
+    let p = profile_elf(board, &elf, &opts).unwrap_or_else(|e| panic!("{e}"));
+    println!("{}", p.render(20));
+    assert!(!p.functions.is_empty());
+    assert_eq!(p.unsized_blocks, 0, "blocks of unknown length");
+    assert_eq!(
+        p.functions.iter().map(|f| f.instructions).sum::<u64>(),
+        p.total
+    );
+    let tolerance = 2 * tick + 100;
+    println!(
+        "profile {} instructions, firmware span {} ({} ticks of {tick})",
+        p.total, span.units, span.ticks
+    );
+    assert!(
+        p.total.abs_diff(span.units) <= tolerance,
+        "profile {} instructions, firmware {} (tolerance {tolerance})",
+        p.total,
+        span.units
+    );
+
+    // The engine's hot code: the call itself, and the core's kernels and layers, which do
+    // most of the work.
+    assert!(p.instructions_of(TRAIN_ROOT) > 0);
+    let share = |prefix: &str| {
+        p.functions
+            .iter()
+            .filter(|f| f.function.starts_with(prefix))
+            .map(|f| f.instructions)
+            .sum::<u64>() as f64
+            / p.total as f64
+    };
+    assert!(
+        share("hone_core::") > 0.5,
+        "core share {}",
+        share("hone_core::")
+    );
+    for module in ["hone_core::kernel::", "hone_core::layer::"] {
+        assert!(share(module) > 0.0, "nothing from {module} in the profile");
+    }
 }

@@ -628,3 +628,75 @@ fn render_puts_units_on_figures_and_ends_with_the_advice() {
         "{fits}"
     );
 }
+
+/// The session estimate is the measured instructions of the chip's core times the cycles per
+/// instruction over the clock, and the energy that time at the run current and supply; the
+/// arithmetic is checked here against the tables it reads.
+#[test]
+fn session_estimate_multiplies_the_measured_instructions_out() {
+    let chip = chips::find("stm32l031k6").expect("chip in table");
+    let e = hone_host::memplan::session_estimate(chip).expect("Cortex-M0+ row and power row");
+    let row = hone_host::memplan::measured_row(chip).expect("measured row");
+    let power = chips::power("stm32l031k6").expect("power row");
+    let (cpi, _) = chips::cycles_per_instruction(chip.core);
+    assert!(e.estimate);
+    assert_eq!(e.measured_on, row.board);
+    assert_eq!(
+        e.instructions,
+        u64::from(row.insn_per_sample) * u64::from(e.samples) * u64::from(e.passes)
+    );
+    let seconds = e.instructions as f64 * cpi / (power.clock_mhz * 1e6);
+    assert!((e.seconds - seconds).abs() < 1e-12);
+    let mj = seconds * power.run_ua_per_mhz * power.clock_mhz / 1e3 * power.supply_v;
+    assert!((e.energy_mj.expect("energy") - mj).abs() < 1e-12);
+    assert!(e.render().starts_with("estimate"), "{}", e.render());
+    assert!(e.source.contains("from memory"), "{}", e.source);
+    // No clock in the table, no estimate.
+    assert!(hone_host::memplan::session_estimate(chips::find("fe310").expect("fe310")).is_none());
+}
+
+/// When only the engine's measured overhead keeps a small model off a chip, the plan names
+/// the lean build and the features the model needs; when the model fits, it does not.
+#[test]
+fn lean_build_is_advised_when_the_engine_overhead_blocks_the_fit() {
+    let desc = model(4, 8, false, false, 1);
+    let small = chips::find("stm32l031k6").expect("chip in table");
+    let overhead = hone_host::memplan::engine_overhead(small);
+    let r = plan_report(
+        &desc,
+        &Budget::chip(small),
+        Reserve::default(),
+        Some(&overhead),
+        &AdviceOptions::default(),
+        None,
+    )
+    .expect("plans")
+    .with_chip(small, &desc);
+    assert!(!r.fits, "{}", render_table(&r));
+    let lean = r.lean.as_deref().expect("lean advice");
+    assert!(lean.contains("boards/lean") && lean.contains("default-features = false"));
+    assert!(lean.contains("no optional feature"), "{lean}");
+    assert!(render_table(&r).contains("boards/lean"));
+
+    let big = chips::find("nrf52840").expect("chip in table");
+    let r = plan_report(
+        &desc,
+        &Budget::chip(big),
+        Reserve::default(),
+        Some(&hone_host::memplan::engine_overhead(big)),
+        &AdviceOptions::default(),
+        None,
+    )
+    .expect("plans")
+    .with_chip(big, &desc);
+    assert!(r.fits && r.lean.is_none());
+    assert!(r.session.is_some());
+
+    let mut tanh = desc.clone();
+    let layer = LayerDesc::simple(LayerKind::Tanh, ACT, ACT);
+    tanh.layers.insert(1, layer).expect("room for a layer");
+    assert_eq!(
+        hone_host::memplan::core_features(&tanh),
+        ["table-activations"]
+    );
+}

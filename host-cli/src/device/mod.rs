@@ -11,7 +11,9 @@
 //!
 //! [`session`] generates what a board's calibration session trains and simulates it on the
 //! host; [`throughput`] adds a larger model to it for the instruction figures; [`verify`] runs
-//! it on the board and compares the result bit for bit.
+//! it on the board and compares the result bit for bit; [`lean`] does the same for the lean
+//! build. [`profile`] charges the instructions of one training call to functions, from a QEMU
+//! execution trace.
 //!
 //! [`run_board`] does all of it; [`DeviceRun::ensure_success`] turns a failed run into an error
 //! that names what went wrong.
@@ -21,6 +23,8 @@ pub mod decode;
 pub mod elf;
 mod error;
 pub mod firmware;
+pub mod lean;
+pub mod profile;
 pub mod qemu;
 pub mod record;
 pub mod reference;

@@ -1,5 +1,6 @@
 //! Running a firmware image under QEMU with a time limit.
 
+use std::ffi::OsString;
 use std::io::Read;
 use std::path::Path;
 use std::process::{Child, Command, ExitStatus, Stdio};
@@ -43,26 +44,7 @@ fn run_emulator(
     timeout: Duration,
 ) -> Result<QemuOutput, DeviceError> {
     let start = Instant::now();
-    let mut child = Command::new(program)
-        .args(board.qemu_args(elf))
-        .stdin(Stdio::null())
-        .stdout(Stdio::piped())
-        .stderr(Stdio::piped())
-        .spawn()
-        .map_err(|source| {
-            if source.kind() == std::io::ErrorKind::NotFound {
-                DeviceError::QemuMissing {
-                    program,
-                    package: board.debian_package(),
-                    board: board.name(),
-                }
-            } else {
-                DeviceError::Spawn {
-                    program: program.to_owned(),
-                    source,
-                }
-            }
-        })?;
+    let mut child = spawn(board, program, &board.qemu_args(elf), Stdio::piped())?;
 
     // Drain both pipes on their own threads so QEMU never blocks on a full pipe.
     let stdout = drain(child.stdout.take());
@@ -92,6 +74,39 @@ fn run_emulator(
         stderr,
         wall,
     })
+}
+
+/// Starts `program` with `args` for `board`: stdin closed, stdout piped, stderr as given.
+///
+/// # Errors
+/// [`DeviceError::QemuMissing`] when the emulator is not installed, [`DeviceError::Spawn`] when
+/// it cannot be started.
+pub(crate) fn spawn(
+    board: QemuBoard,
+    program: &'static str,
+    args: &[OsString],
+    stderr: Stdio,
+) -> Result<Child, DeviceError> {
+    Command::new(program)
+        .args(args)
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(stderr)
+        .spawn()
+        .map_err(|source| {
+            if source.kind() == std::io::ErrorKind::NotFound {
+                DeviceError::QemuMissing {
+                    program,
+                    package: board.debian_package(),
+                    board: board.name(),
+                }
+            } else {
+                DeviceError::Spawn {
+                    program: program.to_owned(),
+                    source,
+                }
+            }
+        })
 }
 
 fn drain(pipe: Option<impl Read + Send + 'static>) -> thread::JoinHandle<Vec<u8>> {

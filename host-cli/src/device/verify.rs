@@ -333,6 +333,94 @@ pub struct SessionCheck {
     pub overhead: Option<MeasuredOverhead>,
 }
 
+/// One board's measurements as one flat record, for `hone device verify --json`. Keys are
+/// stable; a figure the build does not measure is `None` (`null`).
+#[derive(Clone, Debug, PartialEq, serde::Serialize)]
+pub struct VerifySummary {
+    /// Board name (`microbit-lean` for the lean build).
+    pub board: String,
+    /// Whether every compared payload equals the host's, bit for bit.
+    pub bit_exact: bool,
+    /// Whether RAM and engine code agree with the memory plan's prediction.
+    pub prediction_ok: Option<bool>,
+    /// The throughput phase's larger model, as `64-32-8`.
+    pub throughput_model: Option<String>,
+    /// Fixed-point instructions per multiply-accumulate, larger model.
+    pub fixed_insn_per_mac: Option<f64>,
+    /// `f32` twin's instructions per multiply-accumulate, larger model, same run.
+    pub float_insn_per_mac: Option<f64>,
+    /// Fixed-point instructions per training sample, calibration model.
+    pub fixed_insn_per_sample: Option<f64>,
+    /// `f32` twin's instructions per training sample, calibration model.
+    pub float_insn_per_sample: Option<f64>,
+    /// Engine code and tables (see [`FlashFigures::engine_code`]), bytes.
+    pub engine_code_bytes: u64,
+    /// `size_of::<Trainer>()`, bytes.
+    pub trainer_bytes: Option<u64>,
+    /// Engine stack beyond arena and trainer, bytes.
+    pub engine_stack_bytes: Option<u64>,
+    /// RAM while training in fixed point (static RAM + deepest stack), bytes.
+    pub ram_measured_bytes: Option<u64>,
+    /// The memory plan's prediction of it, bytes.
+    pub ram_predicted_bytes: Option<u64>,
+    /// The opt-level of the boards' release profile the firmware was built with.
+    pub profile: String,
+}
+
+/// The `opt-level` of `[profile.release]` in the boards' `Cargo.toml` (the firmware is
+/// always built with `--release`), as written there: `3`, `s` or `z`; `3` when unset (cargo's
+/// default for release).
+///
+/// # Errors
+/// [`DeviceError::Io`] when the file cannot be read, [`DeviceError::Session`] when it is not
+/// valid TOML.
+pub fn release_opt_level(boards_dir: &Path) -> Result<String, DeviceError> {
+    let path = boards_dir.join("Cargo.toml");
+    let text = std::fs::read_to_string(&path).map_err(|source| DeviceError::Io {
+        path: path.clone(),
+        source,
+    })?;
+    let doc: toml::Table = text.parse().map_err(|e| DeviceError::Session {
+        board: "boards",
+        detail: format!("{}: {e}", path.display()),
+    })?;
+    let level = doc
+        .get("profile")
+        .and_then(|p| p.get("release"))
+        .and_then(|r| r.get("opt-level"));
+    Ok(match level {
+        Some(toml::Value::Integer(n)) => n.to_string(),
+        Some(toml::Value::String(s)) => s.clone(),
+        _ => "3".to_owned(),
+    })
+}
+
+impl SessionCheck {
+    /// The flat record of [`VerifySummary`], with the build's `profile` (see
+    /// [`release_opt_level`]).
+    #[must_use]
+    pub fn summary(&self, profile: &str) -> VerifySummary {
+        let m = &self.measures;
+        let t = m.throughput.as_ref();
+        VerifySummary {
+            board: self.board.name().to_owned(),
+            bit_exact: self.bit_exact(),
+            prediction_ok: Some(self.ensure_prediction().is_ok()),
+            throughput_model: t.map(|t| t.model.clone()),
+            fixed_insn_per_mac: t.map(|t| t.fixed.per_mac()),
+            float_insn_per_mac: t.map(|t| t.float.per_mac()),
+            fixed_insn_per_sample: Some(m.fixed.per_sample()),
+            float_insn_per_sample: Some(m.float.per_sample()),
+            engine_code_bytes: m.flash.engine_code(),
+            trainer_bytes: Some(m.ram.trainer),
+            engine_stack_bytes: Some(m.ram.engine_stack),
+            ram_measured_bytes: Some(m.ram.measured),
+            ram_predicted_bytes: m.ram.predicted,
+            profile: profile.to_owned(),
+        }
+    }
+}
+
 fn protocol(line: usize, detail: impl Into<String>) -> DeviceError {
     DeviceError::Protocol {
         line,
@@ -1256,6 +1344,66 @@ fn within(measured: u64, predicted: u64) -> bool {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The keys `hone device verify --json` promises (README, "On the devices").
+    #[test]
+    fn the_summary_has_the_documented_keys() {
+        let lean = super::super::lean::LeanCheck {
+            exit_code: 0,
+            device: "x".into(),
+            host: "x".into(),
+            loss_before: 2,
+            loss_after: 1,
+            flash: FlashFigures::default(),
+        };
+        let v = serde_json::to_value(lean.summary("z")).expect("serialises");
+        let keys: Vec<&str> = v
+            .as_object()
+            .expect("object")
+            .keys()
+            .map(String::as_str)
+            .collect();
+        for key in [
+            "board",
+            "bit_exact",
+            "fixed_insn_per_mac",
+            "float_insn_per_mac",
+            "fixed_insn_per_sample",
+            "float_insn_per_sample",
+            "engine_code_bytes",
+            "trainer_bytes",
+            "engine_stack_bytes",
+            "ram_measured_bytes",
+            "ram_predicted_bytes",
+            "profile",
+        ] {
+            assert!(keys.contains(&key), "missing {key} in {keys:?}");
+        }
+        assert_eq!(v["bit_exact"], true);
+        assert_eq!(v["profile"], "z");
+        assert!(v["fixed_insn_per_mac"].is_null());
+    }
+
+    #[test]
+    fn the_release_opt_level_is_read_from_the_manifest() {
+        let dir = tempfile::tempdir().expect("temp dir");
+        let manifest = dir.path().join("Cargo.toml");
+        for (text, want) in [
+            ("[profile.release]\nopt-level = 3\n", "3"),
+            ("[profile.release]\nopt-level = \"z\"\n", "z"),
+            // Cargo's default for release builds.
+            ("[workspace]\n", "3"),
+        ] {
+            std::fs::write(&manifest, text).expect("write");
+            assert_eq!(
+                release_opt_level(dir.path()).expect("parses"),
+                want,
+                "{text}"
+            );
+        }
+        std::fs::write(&manifest, "[profile.release\n").expect("write");
+        assert!(release_opt_level(dir.path()).is_err());
+    }
 
     #[test]
     fn symbols_are_sorted_into_parts() {
