@@ -472,3 +472,28 @@ fn profile_of_the_calibration_step_agrees_with_the_firmware_count() {
         assert!(share(module) > 0.0, "nothing from {module} in the profile");
     }
 }
+
+/// The engine's dot products on the Cortex-M4F build use the dual 16-bit multiply-accumulate
+/// `SMLALD` (Armv7-M ARM, A7.7.127), which the plain Rust loop of `kernel::dot_typed` compiles
+/// to on that core. A change that loses it shows here before it shows in the instruction counts.
+#[test]
+fn m4_dot_products_use_smlald() {
+    let elf = build_firmware(QemuBoard::Mps2An386, &default_boards_dir())
+        .unwrap_or_else(|e| panic!("{e}"));
+    let bytes = std::fs::read(&elf).expect("read ELF");
+    let dots = hone_host::device::thumb::functions(&bytes, &elf, "hone_core::kernel::dot")
+        .unwrap_or_else(|e| panic!("{e}"));
+    assert!(
+        !dots.is_empty(),
+        "no hone_core::kernel::dot in {}",
+        elf.display()
+    );
+    let smlald: usize = dots
+        .iter()
+        .map(|(_, code)| hone_host::device::thumb::count_smlald(code))
+        .sum();
+    assert!(
+        smlald > 0,
+        "hone_core::kernel::dot has no SMLALD on the Cortex-M4F"
+    );
+}

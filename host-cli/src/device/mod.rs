@@ -32,6 +32,7 @@ pub mod report;
 pub mod session;
 pub mod sha256;
 pub mod throughput;
+pub mod thumb;
 pub mod verify;
 
 use std::path::{Path, PathBuf};
