@@ -27,6 +27,10 @@ use hone_core::blob::ChannelScale;
 use hone_core::model::{LayerKind, Loss, Shape, TrainMode};
 use serde::{Deserialize, Serialize};
 
+/// The largest magnitude of a parameter: the largest value of any format the device has
+/// (an `i32` word with no fraction bits).
+const MAX_PARAM: f64 = 2_147_483_648.0;
+
 /// The value of the `format` key.
 pub const FORMAT_NAME: &str = "hone-float-model";
 /// The version this build writes and reads.
@@ -169,7 +173,12 @@ impl FloatModel {
     /// [`ModelError`] naming the file, and the line and column of a syntax error.
     pub fn load(path: &Path) -> Result<FloatModel, ModelError> {
         let shown = path.display().to_string();
-        let text = std::fs::read_to_string(path).map_err(|source| ModelError::Io {
+        let text = crate::fsutil::read_text_limited(
+            path,
+            crate::fsutil::limits::MODEL_BYTES,
+            "float model",
+        )
+        .map_err(|source| ModelError::Io {
             path: shown.clone(),
             source,
         })?;
@@ -249,6 +258,18 @@ impl FloatModel {
                 .position(|v| !v.is_finite())
             {
                 return Err(format!("layer {k}: parameter {i} is not a finite number"));
+            }
+            if let Some((i, v)) = l
+                .weights
+                .iter()
+                .chain(l.bias.iter())
+                .enumerate()
+                .find(|(_, v)| v.abs() > MAX_PARAM)
+            {
+                return Err(format!(
+                    "layer {k}: parameter {i} is {v:e}, larger than any fixed-point format holds \
+                     (2^31); the model is corrupted or its training diverged"
+                ));
             }
             if !l.kind.has_params() && l.mode != TrainMode::Frozen {
                 return Err(format!(
