@@ -997,3 +997,28 @@ fn killed_writers_leave_old_or_new_outputs_and_no_temporaries() {
         "only {killed_mid_run} kills hit a running writer"
     );
 }
+
+/// A model used with a config of another task is blamed on the pair, before the data is read
+/// with the wrong columns (which used to report a class list of one entry).
+#[test]
+fn a_model_with_a_config_of_another_task_is_blamed_on_the_pair() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    soil_model(dir);
+    let said = refused(
+        dir,
+        &[
+            "quantize",
+            "--config",
+            &example("vibration-zones.toml"),
+            "--model",
+            "soil.json",
+            "--data",
+            &demo_data("vibration_unit_calibration.csv"),
+            "--blob",
+            "q.honb",
+        ],
+        &["vibration-zones.toml: the float model", "soil.json"],
+    );
+    assert!(!said.contains("class list"), "{said}");
+}
