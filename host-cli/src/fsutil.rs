@@ -525,10 +525,17 @@ pub fn remove_stale_temps(dir: &Path, name: &str) -> usize {
 
 fn create_temp(dir: &Path, name: &str) -> io::Result<NamedTempFile> {
     remove_stale_temps(dir, name);
-    let tmp = tempfile::Builder::new()
-        .prefix(&temp_prefix(name))
-        .suffix(TEMP_SUFFIX)
-        .tempfile_in(dir)?;
+    let prefix = temp_prefix(name);
+    let mut builder = tempfile::Builder::new();
+    builder.prefix(&prefix).suffix(TEMP_SUFFIX);
+    // A temporary file is private by default; the output gets the permissions of any new
+    // file (read and write for all, less the umask).
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        builder.permissions(fs::Permissions::from_mode(0o666));
+    }
+    let tmp = builder.tempfile_in(dir)?;
     fs4::FileExt::lock(tmp.as_file())?;
     Ok(tmp)
 }
@@ -697,6 +704,19 @@ mod tests {
         assert_eq!(entries(dir.path()), want);
         drop(live);
         assert_eq!(entries(dir.path()), [".img.bin.x.y.tmp", "img.bin"]);
+    }
+
+    #[cfg(unix)]
+    #[test]
+    fn outputs_get_the_permissions_of_a_new_file() {
+        use std::os::unix::fs::PermissionsExt;
+        let dir = tempfile::tempdir().unwrap();
+        let plain = dir.path().join("plain");
+        fs::write(&plain, b"x").unwrap();
+        let p = dir.path().join("atomic");
+        write_atomic(&p, b"x").unwrap();
+        let mode = |p: &Path| fs::metadata(p).unwrap().permissions().mode() & 0o777;
+        assert_eq!(mode(&p), mode(&plain));
     }
 
     #[test]
