@@ -49,7 +49,16 @@ fn main() {
             }
         }
     }
-    println!("wrote {} seed blobs under {}", seeds.len(), root.display());
+    let host = hone_fuzz::host::host_seeds();
+    for (target, name, bytes) in &host {
+        write(&root.join(target), name, bytes);
+    }
+    println!(
+        "wrote {} seed blobs and {} host seeds under {}",
+        seeds.len(),
+        host.len(),
+        root.display()
+    );
 }
 
 fn image<const S: usize, const E: usize, const W: usize, const R: usize>(

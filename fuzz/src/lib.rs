@@ -12,8 +12,13 @@
 //!   trainer is restored from it and runs a guarded calibration session
 //!   ([`exercise_trainer`]).
 //!
+//! - `host_csv`, `host_toml`, `host_float_model`: the workstation tool's readers of data,
+//!   config and float-model files ([`host`]).
+//!
 //! The checks panic on a broken invariant (that is how libFuzzer learns of it); the code under
 //! test must never panic by itself.
+
+pub mod host;
 
 use hone_core::blob::{self, BlobBody, BlobError, BlobKind, CheckedBlob};
 use hone_core::guard::{self, GuardConfig, Verdict};

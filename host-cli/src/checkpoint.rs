@@ -248,6 +248,25 @@ pub enum ImageError {
         /// The core's error.
         error: hone_core::Error,
     },
+    /// Both slots hold something, and neither is a valid checkpoint: committing would start
+    /// the sequence again at 1 over whatever the unit had.
+    #[error(
+        "neither slot holds a valid checkpoint, and the image is not blank (both slots \
+         corrupted); committing would restart the sequence at 1: pull the region again, or \
+         give --start-over to write over it"
+    )]
+    BothSlotsInvalid,
+    /// A fresh region larger than [`crate::fsutil::limits::FLASH_BYTES`].
+    #[error(
+        "{len} B is larger than the largest flash of any built-in chip ({limit} B); give the \
+         size of the device's checkpoint area"
+    )]
+    RegionTooLarge {
+        /// The region asked for.
+        len: u64,
+        /// The limit.
+        limit: u64,
+    },
     /// Any other error of the store.
     #[error("{0}")]
     Store(StoreError),
@@ -590,25 +609,55 @@ pub fn append(
     geometry: Geometry,
     blob_bytes: &[u8],
 ) -> Result<(CheckpointInfo, Vec<u8>), ImageError> {
+    append_owned(image.to_vec(), geometry, blob_bytes, false)
+}
+
+/// [`append`] on an image it owns. With `start_over` an image whose two slots are both
+/// corrupted is written over (the sequence restarts at 1); without it such an image is
+/// refused with [`ImageError::BothSlotsInvalid`]. A blank image is always accepted.
+///
+/// # Errors
+/// As [`append`], and [`ImageError::BothSlotsInvalid`].
+pub fn append_owned(
+    image: Vec<u8>,
+    geometry: Geometry,
+    blob_bytes: &[u8],
+    start_over: bool,
+) -> Result<(CheckpointInfo, Vec<u8>), ImageError> {
     let kind = checked_kind(blob_bytes)?;
-    let mut st = open_store(image.to_vec(), geometry)?;
-    let off = st.payload_offset();
-    let cp = st
-        .commit(blob_bytes)
-        .map_err(|e| store_error(e, geometry.erase, off))?;
-    let new_image = st.into_image();
+    let (cp, new_image) = commit(image, geometry, blob_bytes, start_over)?;
     let st = open_store(new_image.clone(), geometry)?;
     let other = other_slot(&new_image, geometry, &*st, cp)?;
     let info = info(&*st, cp, kind, other);
     Ok((info, new_image))
 }
 
+/// Commits `blob_bytes` into `image` without copying it; see [`append_owned`].
+fn commit(
+    image: Vec<u8>,
+    geometry: Geometry,
+    blob_bytes: &[u8],
+    start_over: bool,
+) -> Result<(Checkpoint, Vec<u8>), ImageError> {
+    let blank = image.iter().all(|&b| b == 0xFF);
+    let mut st = open_store(image, geometry)?;
+    if st.latest().is_none() && !blank && !start_over {
+        return Err(ImageError::BothSlotsInvalid);
+    }
+    let off = st.payload_offset();
+    let cp = st
+        .commit(blob_bytes)
+        .map_err(|e| store_error(e, geometry.erase, off))?;
+    Ok((cp, st.into_image()))
+}
+
 /// A fresh erased image of `region_len` bytes holding `blob_bytes` as its one committed
 /// checkpoint (sequence 1, slot A).
 ///
 /// # Errors
+/// [`ImageError::RegionTooLarge`] past [`crate::fsutil::limits::FLASH_BYTES`];
 /// [`ImageError::ImageSize`] if `region_len` is not a whole number of erase sectors; as
-/// [`append`] otherwise.
+/// [`append`] otherwise. The image is built in one buffer of `region_len` bytes.
 pub fn write_image(
     blob_bytes: &[u8],
     geometry: Geometry,
@@ -616,13 +665,20 @@ pub fn write_image(
 ) -> Result<Vec<u8>, ImageError> {
     checked_kind(blob_bytes)?;
     unit_class(geometry)?;
+    let limit = crate::fsutil::limits::FLASH_BYTES;
+    if u64::from(region_len) > limit {
+        return Err(ImageError::RegionTooLarge {
+            len: region_len.into(),
+            limit,
+        });
+    }
     if !region_len.is_multiple_of(geometry.erase) {
         return Err(ImageError::ImageSize {
             len: region_len as usize,
             erase: geometry.erase,
         });
     }
-    append(&vec![0xFF; region_len as usize], geometry, blob_bytes).map(|(_, image)| image)
+    commit(vec![0xFF; region_len as usize], geometry, blob_bytes, true).map(|(_, image)| image)
 }
 
 fn in_file(path: &Path) -> impl Fn(ImageError) -> CheckpointError + '_ {
@@ -632,11 +688,21 @@ fn in_file(path: &Path) -> impl Fn(ImageError) -> CheckpointError + '_ {
     }
 }
 
-fn read(path: &Path) -> Result<Vec<u8>, CheckpointError> {
-    std::fs::read(path).map_err(|source| CheckpointError::Io {
+fn io_error(path: &Path) -> impl Fn(std::io::Error) -> CheckpointError + '_ {
+    move |source| CheckpointError::Io {
         file: path.display().to_string(),
         source,
-    })
+    }
+}
+
+/// Reads an image or a blob: at most [`crate::fsutil::limits::FLASH_BYTES`].
+fn read(path: &Path) -> Result<Vec<u8>, CheckpointError> {
+    crate::fsutil::read_limited(
+        path,
+        crate::fsutil::limits::FLASH_BYTES,
+        "checkpoint image or blob",
+    )
+    .map_err(io_error(path))
 }
 
 /// [`read_latest`] on an image file.
@@ -651,22 +717,37 @@ pub fn read_latest_file(
     read_latest(&read(path)?, geometry).map_err(in_file_or_setting(path, geometry))
 }
 
-/// [`append`] with the image and the blob read from files; returns the new image.
+/// Commits the blob in `blob_file` into the image file `image` and writes the new image to
+/// `out` atomically (`out` may be `image` itself, to update it in place). An exclusive lock
+/// on `image` is held for the whole read-modify-write, so concurrent commits into one image
+/// happen one after the other and none is lost. `start_over` as for [`append_owned`].
 ///
 /// # Errors
-/// [`CheckpointError::Io`] if a file cannot be read; [`CheckpointError::Image`] naming the
-/// blob file for a blob problem and the image file for the rest.
-pub fn append_file(
+/// [`CheckpointError::Io`] if a file cannot be read, locked or written;
+/// [`CheckpointError::Image`] naming the blob file for a blob problem and the image file for
+/// the rest.
+pub fn commit_file(
     image: &Path,
     geometry: Geometry,
     blob_file: &Path,
-) -> Result<(CheckpointInfo, Vec<u8>), CheckpointError> {
-    let img = read(image)?;
+    out: &Path,
+    start_over: bool,
+) -> Result<(CheckpointInfo, u64), CheckpointError> {
     let b = read(blob_file)?;
-    append(&img, geometry, &b).map_err(|e| match e {
+    let mut lock = crate::fsutil::lock_file(image).map_err(io_error(image))?;
+    let img = crate::fsutil::read_limited_from(
+        lock.file(),
+        crate::fsutil::limits::FLASH_BYTES,
+        "checkpoint image",
+    )
+    .map_err(io_error(image))?;
+    let (info, new_image) = append_owned(img, geometry, &b, start_over).map_err(|e| match e {
         ImageError::BlobRejected { .. } | ImageError::TooLarge { .. } => in_file(blob_file)(e),
         other => in_file_or_setting(image, geometry)(other),
-    })
+    })?;
+    crate::fsutil::write_atomic(out, &new_image).map_err(io_error(out))?;
+    drop(lock);
+    Ok((info, new_image.len() as u64))
 }
 
 /// [`write_image`] with the blob read from a file.
@@ -689,6 +770,7 @@ pub fn write_image_file(
     write_image(&read(blob_file)?, geometry, region_len).map_err(|e| match e {
         ImageError::ImageSize { .. }
         | ImageError::TooLarge { .. }
+        | ImageError::RegionTooLarge { .. }
         | ImageError::Store(
             StoreError::RegionTooSmall
             | StoreError::RegionMisaligned

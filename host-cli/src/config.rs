@@ -908,10 +908,12 @@ impl Config {
     /// [`ConfigError::Io`] if the file cannot be read, [`ConfigError::Syntax`] for invalid
     /// TOML, [`ConfigError::Invalid`] for everything the checks find.
     pub fn load(path: &Path) -> Result<Config, ConfigError> {
-        let text = std::fs::read_to_string(path).map_err(|source| ConfigError::Io {
-            path: path.to_path_buf(),
-            source,
-        })?;
+        let text =
+            crate::fsutil::read_text_limited(path, crate::fsutil::limits::CONFIG_BYTES, "config")
+                .map_err(|source| ConfigError::Io {
+                path: path.to_path_buf(),
+                source,
+            })?;
         Config::parse(path, &text)
     }
 

@@ -16,7 +16,8 @@
 //!   power mid-write) has too few fields and is reported like any other short line.
 //! - Feature and regression-target values are decimal numbers (`-0.25`, `1e-3`). NaN and
 //!   infinities are refused in every spelling (`nan`, `NaN`, `inf`, `-Infinity`, ...), and so
-//!   are numbers too large for `f64`, because one of them would poison every statistic.
+//!   are numbers too large for `f64` and numbers beyond ±[`MAX_VALUE`] (10^12), because one of
+//!   them would poison every statistic. Every command that reads data applies these checks.
 //! - Ignored columns are not read at all: they may hold text, such as a timestamp or a unit id.
 //!
 //! # Which columns are what
@@ -322,6 +323,22 @@ pub enum DataError {
         /// The text found.
         value: String,
     },
+    /// A field holds a number larger in magnitude than [`MAX_VALUE`].
+    #[error(
+        "{}: line {line}, column `{column}`: `{value}` is larger in magnitude than {MAX_VALUE:e}, \
+         the most a data value may be; it is not a measurement: correct it or delete the line",
+        path.display()
+    )]
+    TooLarge {
+        /// The file.
+        path: PathBuf,
+        /// Line of the record.
+        line: u64,
+        /// Column name.
+        column: String,
+        /// The text found, cut to a readable length.
+        value: String,
+    },
     /// The CSV structure is broken (bad quoting, invalid UTF-8 in a used column).
     #[error("{}: line {line}: {message}", path.display())]
     Csv {
@@ -419,6 +436,14 @@ pub enum DataError {
         why: String,
     },
 }
+
+/// The largest magnitude of a feature or regression-target value: 10^12. No sensor reading
+/// or target is that large; a larger number is a corrupted field, and one such value would
+/// make training diverge or swamp every statistic. Every command that reads data refuses it.
+pub const MAX_VALUE: f64 = 1e12;
+
+/// The most characters of a field's text echoed in a message; the rest is cut.
+const ECHO_CHARS: usize = 64;
 
 /// The most classes a classification target may have: labels are `u16`.
 pub const MAX_CLASSES: usize = u16::MAX as usize + 1;
@@ -551,10 +576,12 @@ impl Dataset {
 }
 
 fn read(path: &Path) -> Result<Vec<u8>, DataError> {
-    std::fs::read(path).map_err(|source| DataError::Io {
-        path: path.to_path_buf(),
-        source,
-    })
+    crate::fsutil::read_limited(path, crate::fsutil::limits::CSV_BYTES, "data file").map_err(
+        |source| DataError::Io {
+            path: path.to_path_buf(),
+            source,
+        },
+    )
 }
 
 fn quoted_list(names: &[&str]) -> String {
@@ -579,22 +606,28 @@ fn parse_number(path: &Path, line: u64, column: &str, text: &str) -> Result<f64,
         return Err(DataError::EmptyField {
             path: path.to_path_buf(),
             line,
-            column: column.to_string(),
+            column: crate::fsutil::echo(column, ECHO_CHARS),
         });
     }
     match text.parse::<f64>() {
-        Ok(v) if v.is_finite() => Ok(v),
+        Ok(v) if v.is_finite() && v.abs() <= MAX_VALUE => Ok(v),
+        Ok(v) if v.is_finite() => Err(DataError::TooLarge {
+            path: path.to_path_buf(),
+            line,
+            column: crate::fsutil::echo(column, ECHO_CHARS),
+            value: crate::fsutil::echo(text, ECHO_CHARS),
+        }),
         Ok(_) => Err(DataError::NotFinite {
             path: path.to_path_buf(),
             line,
-            column: column.to_string(),
-            value: text.to_string(),
+            column: crate::fsutil::echo(column, ECHO_CHARS),
+            value: crate::fsutil::echo(text, ECHO_CHARS),
         }),
         Err(_) => Err(DataError::NotNumber {
             path: path.to_path_buf(),
             line,
-            column: column.to_string(),
-            value: text.to_string(),
+            column: crate::fsutil::echo(column, ECHO_CHARS),
+            value: crate::fsutil::echo(text, ECHO_CHARS),
         }),
     }
 }
@@ -766,12 +799,9 @@ impl<'a> Loader<'a> {
             .from_reader(bytes);
         let mut record = csv::ByteRecord::new();
         // The reader's own line count skips comment lines, so lines are counted here from the
-        // byte offset of each record.
-        let newlines: Vec<usize> = bytes
-            .iter()
-            .enumerate()
-            .filter_map(|(i, &b)| (b == b'\n').then_some(i))
-            .collect();
+        // byte offset of each record. Records come in file order, so the count goes on from
+        // the last place asked for instead of keeping an index of every line.
+        let counted = std::cell::Cell::new((0usize, 1u64));
         let line_at = |pos: Option<&csv::Position>| -> u64 {
             // A record's position is where the reader started looking for it, before the
             // blank and comment lines it skipped; step over those to the record's own line.
@@ -786,7 +816,16 @@ impl<'a> Loader<'a> {
                     _ => byte + 1,
                 };
             }
-            newlines.partition_point(|&nl| nl < byte) as u64 + 1
+            let byte = byte.min(bytes.len());
+            let (from, mut line) = counted.get();
+            if byte < from {
+                // Not in file order (never for records): count from the start.
+                line = 1 + bytes[..byte].iter().filter(|&&b| b == b'\n').count() as u64;
+            } else {
+                line += bytes[from..byte].iter().filter(|&&b| b == b'\n').count() as u64;
+            }
+            counted.set((byte, line));
+            line
         };
         let csv_err = |e: csv::Error| DataError::Csv {
             path: self.err_path(),
@@ -997,7 +1036,7 @@ impl<'a> Loader<'a> {
                         path: self.err_path(),
                         line: *line,
                         column: column.to_string(),
-                        value: l.clone(),
+                        value: crate::fsutil::echo(l, ECHO_CHARS),
                         known: names.clone(),
                     })
                 }

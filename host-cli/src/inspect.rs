@@ -587,7 +587,12 @@ pub fn inspect(file: &str, bytes: &[u8]) -> Result<InspectReport, InspectError> 
 /// [`InspectError::Read`] if the file cannot be read; otherwise as [`inspect`].
 pub fn inspect_file(path: &Path) -> Result<InspectReport, InspectError> {
     let file = path.display().to_string();
-    let bytes = std::fs::read(path).map_err(|source| InspectError::Read {
+    let bytes = crate::fsutil::read_limited(
+        path,
+        crate::fsutil::limits::FLASH_BYTES,
+        "model blob or checkpoint",
+    )
+    .map_err(|source| InspectError::Read {
         file: file.clone(),
         source,
     })?;

@@ -269,8 +269,9 @@ struct SweepArgs {
     /// Activation words to try, in bits.
     #[arg(long, value_delimiter = ',')]
     activations: Vec<u32>,
-    /// Fraction bits added to the quantizer's choice for weights (e.g. 0,-1,-2).
-    #[arg(long, value_delimiter = ',', allow_hyphen_values = true)]
+    /// Fraction bits added to the quantizer's choice for weights (e.g. 0,-1,-2), each from
+    /// -31 to 31; a point whose fraction bits would leave 0 to 31 is marked `error`.
+    #[arg(long, value_delimiter = ',', allow_hyphen_values = true, value_parser = clap::value_parser!(i8).range(-31..=31))]
     frac_delta: Vec<i8>,
     /// Roundings of gradients and updates: nearest-even, toward-zero, stochastic.
     #[arg(long, value_delimiter = ',')]
@@ -284,9 +285,9 @@ struct SweepArgs {
     /// Passes over the training samples (default: the config's epochs).
     #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
     epochs: Option<u32>,
-    /// Worker threads (default: every core).
-    #[arg(long)]
-    jobs: Option<usize>,
+    /// Worker threads, 1 to 1024 (default: every core).
+    #[arg(long, value_parser = clap::value_parser!(u64).range(1..=1024))]
+    jobs: Option<u64>,
     /// Print JSON.
     #[arg(long)]
     json: bool,
@@ -333,9 +334,14 @@ enum CheckpointCmd {
         /// Commit into this existing image instead of a fresh one.
         #[arg(long)]
         into: Option<PathBuf>,
-        /// Size of a fresh image (the checkpoint area), e.g. 16k.
+        /// Size of a fresh image (the checkpoint area), e.g. 16k; at most the largest flash of
+        /// a built-in chip (16M).
         #[arg(long, default_value = "16k")]
         region: String,
+        /// With --into: write over an image whose two slots are both corrupted (the sequence
+        /// restarts at 1). Without it such an image is refused.
+        #[arg(long, requires = "into")]
+        start_over: bool,
         #[command(flatten)]
         geometry: GeometryArgs,
     },
@@ -489,6 +495,10 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             Ok((!o.drift_pass || !o.fits).then_some(CheckFailed))
         }
         Command::Train { cfg, data, out } => {
+            distinct(
+                &[("--config", &cfg.config), ("--data", &data)],
+                &[("--out", &out)],
+            )?;
             let config = load_config(&cfg)?;
             let dataset = config.load_data(&data, None).map_err(|e| anyhow!("{e}"))?;
             let b = bar(config.epochs() as u64, "epochs");
@@ -539,6 +549,18 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             rust,
             json,
         } => {
+            let outputs: Vec<(&str, &Path)> = [("--blob", &blob), ("--rust", &rust)]
+                .into_iter()
+                .filter_map(|(o, p)| p.as_deref().map(|p| (o, p)))
+                .collect();
+            distinct(
+                &[
+                    ("--config", &model.cfg.config),
+                    ("--model", &model.model),
+                    ("--data", &data),
+                ],
+                &outputs,
+            )?;
             let base = load_base(&model, &data)?;
             let q = &base.quant;
             // Render every output before writing any, then write them as one set: a failure
@@ -864,8 +886,31 @@ fn parse_word(bits: u32, what: &str) -> Result<Word> {
         .ok_or_else(|| anyhow!("--{what}: {bits} bits is not a word size; use 8, 16 or 32"))
 }
 
+/// Refuses a grid list that repeats a value: the repeated rows would be marked on the front
+/// twice.
+fn no_repeats<T: PartialEq + std::fmt::Debug>(option: &str, values: &[T]) -> Result<()> {
+    for (i, v) in values.iter().enumerate() {
+        if values[..i].contains(v) {
+            bail!("--{option}: {v:?} is given twice; give each value once");
+        }
+    }
+    Ok(())
+}
+
+/// Refuses outputs that name one file twice or name an input (see
+/// [`hone_host::fsutil::check_outputs`]).
+fn distinct(inputs: &[(&str, &Path)], outputs: &[(&str, &Path)]) -> Result<()> {
+    hone_host::fsutil::check_outputs(inputs, outputs).map_err(|e| anyhow!("{e}"))
+}
+
 fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
     use hone_host::sweep::{plot, run, table, Grid};
+    no_repeats("weights", &a.weights)?;
+    no_repeats("activations", &a.activations)?;
+    no_repeats("frac-delta", &a.frac_delta)?;
+    no_repeats("rounding", &a.rounding)?;
+    no_repeats("lr", &a.lr)?;
+    no_repeats("mode", &a.mode)?;
     let base = load_base(&a.model, a.calib.as_ref().unwrap_or(&a.train))?;
     let train = prepare(&base, &a.train)?;
     let eval = prepare(&base, &a.eval)?;
@@ -904,7 +949,7 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
         probe: 0,
         shuffle: true,
     };
-    let threads = a.jobs.unwrap_or_else(|| {
+    let threads = a.jobs.map(|j| j as usize).unwrap_or_else(|| {
         std::thread::available_parallelism()
             .map(|n| n.get())
             .unwrap_or(1)
@@ -1087,6 +1132,9 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
             out,
             json,
         } => {
+            if let Some(p) = &out {
+                distinct(&[("the image", &image)], &[("--out", p)])?;
+            }
             let (info, blob) = hone_host::checkpoint::read_latest_file(&image, geometry(&g))
                 .map_err(|e| anyhow!("{e}"))?;
             if let Some(p) = &out {
@@ -1115,13 +1163,23 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
             out,
             into,
             region,
+            start_over,
             geometry: g,
         } => {
+            // `--out` may be the `--into` image: updating it in place is the point.
+            distinct(&[("the blob", &blob)], &[("--out", &out)])?;
             let image = match &into {
                 Some(existing) => {
-                    hone_host::checkpoint::append_file(existing, geometry(&g), &blob)
-                        .map_err(|e| anyhow!("{e}"))?
-                        .1
+                    let (_, len) = hone_host::checkpoint::commit_file(
+                        existing,
+                        geometry(&g),
+                        &blob,
+                        &out,
+                        start_over,
+                    )
+                    .map_err(|e| anyhow!("{e}"))?;
+                    outln!("written: {} ({len} bytes)", out.display());
+                    return Ok(None);
                 }
                 None => {
                     let region_len = size(&region, "region")?;

@@ -61,6 +61,13 @@ pub fn check_model_matches(config: &Config, float: &FloatModel) -> Result<(), St
             config.data().spec.target
         )));
     }
+    if config.data().standardize && float.scaling.is_empty() {
+        return Err(differs(
+            "has no input scaling (`scaling` is empty), but the config standardizes the inputs \
+             (data.standardize), so the blob would get unscaled inputs"
+                .into(),
+        ));
+    }
     Ok(())
 }
 
@@ -101,6 +108,9 @@ impl Base {
     /// # Errors
     /// As [`Base::train`]; also when the model's inputs or outputs do not match the config.
     pub fn from_float(config: Config, float: FloatModel, calib: &Path) -> Result<Base, String> {
+        // The model and config are checked against each other first, so a mismatch is blamed
+        // on them and not reported as a problem of the data read with the wrong columns.
+        check_model_matches(&config, &float)?;
         let classes = if config.data().spec.task == crate::data::Task::Classification {
             Some(&float.outputs[..])
         } else {
@@ -111,7 +121,6 @@ impl Base {
             .map_err(|e| e.to_string())?;
         data.check_features(&float.features)
             .map_err(|e| e.to_string())?;
-        check_model_matches(&config, &float)?;
         let quant = quantize(&config, &float, &data)?;
         Ok(Base {
             config,

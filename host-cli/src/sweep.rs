@@ -146,7 +146,16 @@ pub fn variant(
                 None => None,
             };
             let Some((word, frac)) = frac else { continue };
-            p.value = QFormat::new(word, frac.clamp(0, 31) as u8).map_err(|e| e.to_string())?;
+            // Out of range is an error of this point, not a silent clamp that would keep the
+            // offset's label on a format it does not describe.
+            if !(0..=31).contains(&frac) {
+                return Err(format!(
+                    "fraction-bit offset {frac_delta:+} gives layer {k} {} {frac} fraction bits, \
+                     outside 0 to 31",
+                    if is_weight { "weights" } else { "biases" }
+                ));
+            }
+            p.value = QFormat::new(word, frac as u8).map_err(|e| e.to_string())?;
             if let Some(m) = p.master {
                 if m.frac < p.value.frac {
                     p.master = Some(QFormat::new(m.word, p.value.frac).map_err(|e| e.to_string())?);
