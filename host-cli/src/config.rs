@@ -1097,7 +1097,17 @@ impl Config {
     /// [`ConfigError::Invalid`] if `resolve` returns more than 31 fraction bits, if a chosen
     /// format is finer than the master copy configured for it, or if the core rejects the
     /// description.
-    pub fn model_desc_with<F>(&self, mut resolve: F) -> Result<ModelDesc, ConfigError>
+    pub fn model_desc_with<F>(&self, resolve: F) -> Result<ModelDesc, ConfigError>
+    where
+        F: FnMut(AutoFormat) -> u8,
+    {
+        self.build_desc(resolve, true)
+    }
+
+    /// [`Config::model_desc_with`]; without `final_choice`, the fraction bits of `auto`
+    /// formats are placeholders, so the check that a master copy spans its values' range is
+    /// left to the real choice.
+    fn build_desc<F>(&self, mut resolve: F, final_choice: bool) -> Result<ModelDesc, ConfigError>
     where
         F: FnMut(AutoFormat) -> u8,
     {
@@ -1131,9 +1141,15 @@ impl Config {
             let desc = if l.kind.has_params() {
                 let w = fix(FormatRole::Weights, f.weights)?;
                 let b = fix(FormatRole::Bias, f.bias)?;
-                for (role, value, master) in [
-                    (FormatRole::WeightsMaster, w, f.weights_master),
-                    (FormatRole::BiasMaster, b, f.bias_master),
+                let chosen = |c: FormatChoice| final_choice || matches!(c, FormatChoice::Fixed(_));
+                for (role, value, master, known) in [
+                    (
+                        FormatRole::WeightsMaster,
+                        w,
+                        f.weights_master,
+                        chosen(f.weights),
+                    ),
+                    (FormatRole::BiasMaster, b, f.bias_master, chosen(f.bias)),
                 ] {
                     if let Some(m) = master {
                         if m.frac < value.frac {
@@ -1144,6 +1160,25 @@ impl Config {
                                     "the master copy {m} is coarser than the values {value} \
                                      it feeds; give it at least {} fraction bits",
                                     value.frac
+                                ),
+                            ));
+                        }
+                        if known && m.max_value() < value.max_value() {
+                            // The first copy into the master would clamp every value beyond
+                            // its range, and each update would pull the values back to it.
+                            let int_bits = |q: QFormat| q.word.bits() as i32 - 1 - q.frac as i32;
+                            return Err(self.layer_err(
+                                i,
+                                &format!("layer[{i}].{role}"),
+                                format!(
+                                    "the master copy {m} holds values in [{}, {}), narrower \
+                                     than the values {value} it feeds, [{}, {}); give it at \
+                                     least {} integer bits, or leave the master out",
+                                    m.min_value(),
+                                    m.max_value() + m.step(),
+                                    value.min_value(),
+                                    value.max_value() + value.step(),
+                                    int_bits(value)
                                 ),
                             ));
                         }
@@ -1452,7 +1487,7 @@ impl Checker<'_> {
         };
         // Shapes, loss and training through the core, with provisional fraction bits for the
         // auto formats (fraction bits never change shapes).
-        config.model_desc_with(|a| (a.word.bits() / 2) as u8)?;
+        config.build_desc(|a| (a.word.bits() / 2) as u8, false)?;
         self.outputs_match(&config, &raw)?;
         Ok(config)
     }
@@ -2243,10 +2278,12 @@ target = "y"
             })
         );
         assert_eq!(c.data().holdout, 0.2);
-        let d = c.model_desc_with(|_| 10).unwrap();
+        // Q5.10 weights would outgrow the inherited Q3.28 master; Q3.12 fits under it.
+        assert!(c.model_desc_with(|_| 10).is_err());
+        let d = c.model_desc_with(|_| 12).unwrap();
         assert_eq!(
             d.layers[2].weight.value,
-            QFormat::new(Word::I16, 10).unwrap()
+            QFormat::new(Word::I16, 12).unwrap()
         );
         assert_eq!(d.layers[0].weight.value, QFormat::Q0_7);
     }
@@ -2311,6 +2348,23 @@ target = "y"
             "units = 4\nweights = \"Q3.12\"\nweights-master = \"Q1.6\"",
         );
         expect_err(&t, "layer[0].weights-master", "coarser");
+        // Finer but narrower: Q6.1 values reach ±64, a Q3.28 master holds ±8.
+        let t = BASE.replace(
+            "units = 4",
+            "units = 4\nweights = \"Q6.1\"\nweights-master = \"Q3.28\"",
+        );
+        expect_err(&t, "layer[0].weights-master", "at least 6 integer bits");
+        // The same master for auto8 weights the quantizer puts in Q6.1.
+        let t = BASE.replace(
+            "units = 4",
+            "units = 4\nweights = \"auto8\"\nweights-master = \"Q3.28\"",
+        );
+        let c = parse(&t).expect("parses");
+        let e = c
+            .model_desc_with(|_| 1)
+            .expect_err("a Q6.1 value under a Q3.28 master");
+        assert!(e.to_string().contains("layer[0].weights-master"), "{e}");
+        assert!(c.model_desc_with(|_| 4).is_ok(), "Q3.4 fits a Q3.28 master");
         let t = BASE.replace("units = 4", "units = 4\nbias = { word = 16, frac = 40 }");
         expect_err(&t, "layer[0].bias", "at most 31");
         let t = BASE.replace("units = 4", "units = 4\nbias = { word = 12, frac = 4 }");

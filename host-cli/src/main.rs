@@ -174,24 +174,29 @@ struct DriftArgs {
 /// negative value is refused as bad input (exit status 2).
 #[derive(Args)]
 struct Limits {
-    /// Largest evaluation-loss gap, % of the float loss.
+    /// Largest amount by which the fixed-point evaluation loss exceeds float, % of the float
+    /// loss.
     #[arg(long, default_value_t = Thresholds::default().max_loss_gap_pct, value_parser = limit)]
     max_loss_gap: f64,
-    /// Largest metric gap: accuracy points, or % of the float RMSE.
+    /// Largest amount by which the metric falls behind float: accuracy points, or % of the
+    /// float RMSE.
     #[arg(long, default_value_t = Thresholds::default().max_metric_gap, value_parser = limit)]
     max_metric_gap: f64,
-    /// Largest RMS weight divergence, steps of the weight format.
-    #[arg(long, default_value_t = Thresholds::default().max_weight_rms_steps, value_parser = limit)]
-    max_weight_rms: f64,
-    /// Smallest gradient SQNR, dB.
+    /// Largest divergence of a trained tensor from float, % of the tensor's RMS.
+    #[arg(long, default_value_t = Thresholds::default().max_weight_divergence_pct, value_parser = limit)]
+    max_weight_divergence: f64,
+    /// Smallest gradient SQNR at the start of the run, dB.
     #[arg(long, default_value_t = Thresholds::default().min_grad_sqnr_db, value_parser = limit)]
     min_grad_sqnr: f64,
-    /// Largest saturation rate, parts per million.
+    /// Largest saturation rate of any one tensor, parts per million.
     #[arg(long, default_value_t = Thresholds::default().max_saturation_ppm, value_parser = limit)]
     max_saturation_ppm: f64,
     /// Largest share of updates lost to rounding, %.
     #[arg(long, default_value_t = Thresholds::default().max_lost_updates_pct, value_parser = limit)]
     max_lost_updates: f64,
+    /// Fail the loss and metric gaps either way, also when fixed point does better than float.
+    #[arg(long)]
+    two_sided: bool,
 }
 
 /// A threshold of `hone drift`: see [`hone_host::drift::parse_limit`].
@@ -663,12 +668,16 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
     let t = Thresholds {
         max_loss_gap_pct: a.limits.max_loss_gap,
         max_metric_gap: a.limits.max_metric_gap,
-        max_weight_rms_steps: a.limits.max_weight_rms,
+        max_weight_divergence_pct: a.limits.max_weight_divergence,
         min_grad_sqnr_db: a.limits.min_grad_sqnr,
         max_saturation_ppm: a.limits.max_saturation_ppm,
         max_lost_updates_pct: a.limits.max_lost_updates,
+        two_sided: a.limits.two_sided,
     };
-    let report = DriftReport::from_run(&run, train.is_classification(), setup, t);
+    let mut report = DriftReport::from_run(&run, train.is_classification(), setup, t);
+    report
+        .advise_saturation(&q.desc, &run, &train, &q.float_params)
+        .map_err(|e| anyhow!("{e}"))?;
     if a.json {
         print_json(&report)?;
     } else {

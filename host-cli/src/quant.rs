@@ -93,7 +93,8 @@ pub struct QuantReport {
     pub tensors: Vec<TensorError>,
     /// Name of the metric: `accuracy_pct` or `rmse`.
     pub metric: String,
-    /// Float model on the calibration data: loss and metric.
+    /// Float model on the calibration data: loss, against the true targets (as every loss
+    /// and metric here).
     pub float_loss: f64,
     /// Float metric.
     pub float_metric: f64,
@@ -101,6 +102,11 @@ pub struct QuantReport {
     pub fixed_loss: f64,
     /// Quantized metric.
     pub fixed_metric: f64,
+    /// Float model's mean absolute error in target units (NaN, `null` in JSON, for
+    /// classification).
+    pub float_mae: f64,
+    /// Quantized model's mean absolute error.
+    pub fixed_mae: f64,
     /// Input values that saturated when quantized.
     pub input_saturations: usize,
     /// Regression targets that saturated the output format when quantized.
@@ -258,8 +264,7 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         ));
     }
     let prepared = Prepared::new(&scaled, &desc)?;
-    let (fixed_loss, float_loss, fixed_metric, float_metric) =
-        evaluate_pair(&desc, &params, &float_params, &prepared)?;
+    let pair = evaluate_pair(&desc, &params, &float_params, &prepared)?;
     let report = QuantReport {
         chosen,
         tensors,
@@ -268,10 +273,12 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         } else {
             "rmse".into()
         },
-        float_loss,
-        float_metric,
-        fixed_loss,
-        fixed_metric,
+        float_loss: pair.float_loss,
+        float_metric: pair.float_metric,
+        fixed_loss: pair.fixed_loss,
+        fixed_metric: pair.fixed_metric,
+        float_mae: pair.float_mae,
+        fixed_mae: pair.fixed_mae,
         input_saturations: prepared.input_saturations,
         target_saturations: prepared.target_saturations,
         samples: prepared.len(),

@@ -395,7 +395,7 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
         CHECK_FAILED,
     );
     assert!(
-        said.contains("FAIL lowest gradient SQNR of the probes, dB"),
+        said.contains("FAIL gradient SQNR at the start, per probe sample, dB"),
         "{said}"
     );
     assert!(said.contains("verdict: thresholds exceeded"), "{said}");
