@@ -23,8 +23,13 @@ fn demo(name: &str) -> PathBuf {
     repo().join("demo-data").join(name)
 }
 
+/// A shipped configuration.
+fn example(name: &str) -> PathBuf {
+    repo().join("examples").join(name)
+}
+
 fn example_text() -> String {
-    std::fs::read_to_string(repo().join("examples/soil-moisture.toml")).expect("example config")
+    std::fs::read_to_string(example("soil-moisture.toml")).expect("example config")
 }
 
 /// The float base model, trained once on the factory data.
@@ -156,4 +161,58 @@ fn every_check_passes_a_small_gap_and_fails_a_wrecked_model() {
         check(&r, "saturation_ppm").tensor.as_deref(),
         Some("layer 0 weight")
     );
+}
+
+/// Every shipped configuration passes its own verdict with the default thresholds: trained
+/// on its factory data, quantized with it, calibrated on its unit's samples for the config's
+/// own number of passes, judged on the unit's hold-out samples.
+#[test]
+fn shipped_configs_pass_their_own_verdict() {
+    let cases = [
+        ("soil-moisture.toml", "soil"),
+        ("soil-moisture-8bit.toml", "soil"),
+        ("vibration-zones.toml", "vibration"),
+    ];
+    for (name, data) in cases {
+        let config = Config::load(&example(name)).expect("config");
+        let epochs = config.epochs();
+        let factory = demo(&format!("{data}_factory.csv"));
+        let base = Base::train(config, &factory, &mut |_, _, _| {}).expect("trains");
+        let train = base
+            .prepare(&demo(&format!("{data}_unit_calibration.csv")))
+            .expect("calibration samples");
+        let eval = base
+            .prepare(&demo(&format!("{data}_unit_holdout.csv")))
+            .expect("hold-out samples");
+        let q = &base.quant;
+        let opts = RunOptions {
+            epochs,
+            order_seed: base.config.train().seed,
+            per_step: false,
+            probe: 32,
+            shuffle: true,
+        };
+        let run = run_side_by_side(
+            &q.desc,
+            &q.params,
+            &q.float_params,
+            &train,
+            &eval,
+            &opts,
+            &mut |_| {},
+        )
+        .expect("runs");
+        let r = DriftReport::from_run(
+            &run,
+            train.is_classification(),
+            Vec::new(),
+            Thresholds::default(),
+        );
+        assert!(r.verdict.pass, "{name}:\n{}", r.verdict_text());
+        assert!(
+            r.verdict.not_run.is_empty(),
+            "{name}: {:?}",
+            r.verdict.not_run
+        );
+    }
 }
