@@ -11,6 +11,15 @@
 //! - **Activations**: the largest magnitude of the layer's output over the calibration data,
 //!   run through the float model, with a margin of [`ACTIVATION_MARGIN`] = 2, one integer
 //!   bit of headroom for inputs beyond the calibration data (common practice).
+//! - **Bounded activations** (tanh and hard-tanh: ±1; sigmoid: [0, 1]; clipped ReLU: [0,
+//!   ceiling]): the margin stops at the bound, since no input can push the output past it.
+//!   The bound itself must be representable: hard-tanh and clipped ReLU output it exactly
+//!   whenever they clamp, and the core's tanh and sigmoid tables return exactly ±1 (or 1)
+//!   past their domain, so a format that stops one step short (Q0.15 for tanh) would count
+//!   a saturation at every clamped output, and the per-tensor saturation check would fail
+//!   healthy models. So tanh gets Q1.14 in an `i16` (range [−2, 2), step 2^-14): one bit
+//!   finer than the Q2.13 the doubled data range gives, and never a saturation. When the
+//!   data stay below half the bound, the ordinary rule gives a finer format and is used.
 //! - A tensor that is all zero gets the finest format whose range still covers ±1.
 //!
 //! # Report
@@ -32,6 +41,17 @@ use crate::sim::{evaluate_pair, Prepared, QuantParams};
 pub const WEIGHT_MARGIN: f64 = 1.25;
 /// Margin over the largest activation magnitude seen on calibration data.
 pub const ACTIVATION_MARGIN: f64 = 2.0;
+
+/// The largest magnitude a layer kind can output whatever its input, if it is bounded: 1 for
+/// tanh, hard-tanh and sigmoid, the ceiling for clipped ReLU.
+pub fn output_bound(kind: hone_core::model::LayerKind) -> Option<f64> {
+    use hone_core::model::LayerKind;
+    match kind {
+        LayerKind::Tanh | LayerKind::HardTanh | LayerKind::Sigmoid => Some(1.0),
+        LayerKind::ClippedRelu { ceiling } => Some(ceiling as f64),
+        _ => None,
+    }
+}
 
 /// The most fraction bits for which `max_abs · margin` still fits `word`.
 pub fn frac_for(max_abs: f64, margin: f64, word: Word) -> u8 {
@@ -59,6 +79,8 @@ pub struct ChosenFormat {
     pub max_abs: f64,
     /// Margin applied.
     pub margin: f64,
+    /// For a bounded activation, the bound the margin stopped at.
+    pub bound: Option<f64>,
 }
 
 /// Quantization error of one parameter tensor.
@@ -222,13 +244,25 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
                 ),
                 _ => (ranges[a.layer], ACTIVATION_MARGIN),
             };
-            let frac = frac_for(max_abs, margin, a.word);
+            let bound = match a.role {
+                FormatRole::Activations => cfg
+                    .layers()
+                    .get(a.layer)
+                    .and_then(|l| output_bound(l.kind))
+                    .filter(|&b| max_abs * margin > b),
+                _ => None,
+            };
+            let frac = match bound {
+                Some(b) => frac_for(b, 1.0, a.word),
+                None => frac_for(max_abs, margin, a.word),
+            };
             chosen.push(ChosenFormat {
                 layer: a.layer,
                 role: a.role.key().into(),
                 format: QFormat::new_unchecked(a.word, frac).to_string(),
                 max_abs,
                 margin,
+                bound,
             });
             frac
         })
@@ -301,9 +335,13 @@ pub fn render(r: &QuantReport) -> String {
             "layer", "role", "format", "max |value|", "margin"
         ));
         for c in &r.chosen {
+            let margin = match c.bound {
+                Some(b) => format!("bound {b}"),
+                None => format!("{:.2}×", c.margin),
+            };
             s.push_str(&format!(
-                "  {:>5}  {:<12} {:<16} {:>12.5} {:>6.2}×\n",
-                c.layer, c.role, c.format, c.max_abs, c.margin
+                "  {:>5}  {:<12} {:<16} {:>12.5} {:>7}\n",
+                c.layer, c.role, c.format, c.max_abs, margin
             ));
         }
         s.push('\n');
@@ -377,6 +415,25 @@ mod tests {
         assert_eq!(frac_for(0.0, 2.0, Word::I8), 6);
         // Tiny values get many fraction bits, capped at 31.
         assert_eq!(frac_for(1e-12, 1.0, Word::I32), 31);
+    }
+
+    #[test]
+    fn bounded_outputs_get_the_format_of_their_bound() {
+        use hone_core::model::LayerKind;
+        // ±1 needs one integer bit to be representable: Q1.14 in i16, Q1.6 in i8.
+        assert_eq!(output_bound(LayerKind::Tanh), Some(1.0));
+        assert_eq!(frac_for(1.0, 1.0, Word::I16), 14);
+        assert_eq!(frac_for(1.0, 1.0, Word::I8), 6);
+        // The data rule gives Q2.13 once a float tanh output reaches 1 (it does for inputs
+        // beyond about 19, where f64's tanh rounds to 1).
+        assert_eq!(frac_for(1.0, ACTIVATION_MARGIN, Word::I16), 13);
+        // A ceiling of 6 needs three integer bits.
+        assert_eq!(
+            output_bound(LayerKind::ClippedRelu { ceiling: 6 }),
+            Some(6.0)
+        );
+        assert_eq!(frac_for(6.0, 1.0, Word::I16), 12);
+        assert_eq!(output_bound(LayerKind::Relu), None);
     }
 
     #[test]
