@@ -470,12 +470,11 @@ impl FormatRole {
         }
     }
 
-    /// Whether the role may be `auto`: the quantizer picks weights, bias and activations.
+    /// Whether the role may be `auto`: the quantizer picks weights, bias and activations from
+    /// the float model and its outputs, gradients and accumulators from the float twin's
+    /// gradients; only the master copies are always given.
     pub fn may_be_auto(self) -> bool {
-        matches!(
-            self,
-            FormatRole::Weights | FormatRole::Bias | FormatRole::Activations
-        )
+        !matches!(self, FormatRole::WeightsMaster | FormatRole::BiasMaster)
     }
 
     /// Whether only layers with parameters have this role.
@@ -495,7 +494,7 @@ impl fmt::Display for FormatRole {
 pub struct AutoFormat {
     /// Layer index, from 0.
     pub layer: usize,
-    /// Weights, bias or activations.
+    /// Weights, bias, activations, gradients or accumulators.
     pub role: FormatRole,
     /// The storage word the chosen format must use.
     pub word: Word,
@@ -515,9 +514,9 @@ pub struct LayerFormats {
     /// Output activations.
     pub activations: FormatChoice,
     /// Loss gradient of the output.
-    pub gradients: QFormat,
+    pub gradients: FormatChoice,
     /// Gradient accumulators and momentum.
-    pub accumulators: QFormat,
+    pub accumulators: FormatChoice,
 }
 
 /// One checked layer.
@@ -1050,9 +1049,14 @@ impl Config {
                     (FormatRole::Weights, f.weights),
                     (FormatRole::Bias, f.bias),
                     (FormatRole::Activations, f.activations),
+                    (FormatRole::Gradients, f.gradients),
+                    (FormatRole::Accumulators, f.accumulators),
                 ]
             } else {
-                &[(FormatRole::Activations, f.activations)]
+                &[
+                    (FormatRole::Activations, f.activations),
+                    (FormatRole::Gradients, f.gradients),
+                ]
             };
             for &(role, choice) in roles {
                 if let FormatChoice::Auto { word } = choice {
@@ -1090,8 +1094,8 @@ impl Config {
 
     /// The model description, with the fraction bits of every `auto` format chosen by
     /// `resolve`, called once per entry of [`Config::auto_formats`]. Within a layer the
-    /// activations are resolved first, then weights and bias, so `resolve` must look at the
-    /// [`AutoFormat`] it is given rather than count calls.
+    /// activations and gradients are resolved first, then weights, bias and accumulators, so
+    /// `resolve` must look at the [`AutoFormat`] it is given rather than count calls.
     ///
     /// # Errors
     /// [`ConfigError::Invalid`] if `resolve` returns more than 31 fraction bits, if a chosen
@@ -1138,9 +1142,11 @@ impl Config {
                 };
             let f = &l.formats;
             let out = fix(FormatRole::Activations, f.activations)?;
+            let grad = fix(FormatRole::Gradients, f.gradients)?;
             let desc = if l.kind.has_params() {
                 let w = fix(FormatRole::Weights, f.weights)?;
                 let b = fix(FormatRole::Bias, f.bias)?;
+                let accum = fix(FormatRole::Accumulators, f.accumulators)?;
                 let chosen = |c: FormatChoice| final_choice || matches!(c, FormatChoice::Fixed(_));
                 for (role, value, master, known) in [
                     (
@@ -1190,18 +1196,18 @@ impl Config {
                     weight: ParamFormats {
                         value: w,
                         master: f.weights_master,
-                        accum: f.accumulators,
+                        accum,
                     },
                     bias: ParamFormats {
                         value: b,
                         master: f.bias_master,
-                        accum: f.accumulators,
+                        accum,
                     },
                     out,
-                    grad: f.gradients,
+                    grad,
                 }
             } else {
-                LayerDesc::simple(l.kind, out, f.gradients)
+                LayerDesc::simple(l.kind, out, grad)
             };
             layers.push(desc);
         }
@@ -1603,14 +1609,10 @@ impl Checker<'_> {
                     v,
                     field,
                     format!(
-                        "auto{} is only for weights, bias and activations, whose ranges the \
-                         quantizer measures; give {role} a fixed format such as \"{}\"",
+                        "auto{} is not for master copies: a master's range is that of the \
+                         values it feeds and its fraction bits are the precision you ask \
+                         for; give {role} a fixed format such as \"Q3.28\"",
                         word.bits(),
-                        match role {
-                            FormatRole::Accumulators => "Q7.24",
-                            FormatRole::Gradients => "Q1.14",
-                            _ => "Q3.28",
-                        }
                     ),
                 ));
             }
@@ -1802,7 +1804,7 @@ impl Checker<'_> {
             }
         };
         // Every role with a default is Some, so the fallbacks below are those same defaults;
-        // masters may be None; the role checks keep gradients, accumulators and masters fixed.
+        // masters may be None; the role checks keep masters fixed.
         let formats = LayerFormats {
             weights: get(FormatRole::Weights).unwrap_or(DEFAULT_AUTO),
             bias: get(FormatRole::Bias).unwrap_or(DEFAULT_AUTO),
@@ -1817,8 +1819,9 @@ impl Checker<'_> {
                 None
             },
             activations: get(FormatRole::Activations).unwrap_or(DEFAULT_AUTO),
-            gradients: fixed(FormatRole::Gradients).unwrap_or(DEFAULT_GRADIENTS),
-            accumulators: fixed(FormatRole::Accumulators).unwrap_or(DEFAULT_ACCUMULATORS),
+            gradients: get(FormatRole::Gradients).unwrap_or(FormatChoice::Fixed(DEFAULT_GRADIENTS)),
+            accumulators: get(FormatRole::Accumulators)
+                .unwrap_or(FormatChoice::Fixed(DEFAULT_ACCUMULATORS)),
         };
         Ok(LayerConfig {
             kind,
@@ -2339,10 +2342,22 @@ target = "y"
     fn formats_and_roles() {
         let t = BASE.replacen(
             "[[layer]]",
-            "[formats]\ngradients = \"auto16\"\n[[layer]]",
+            "[formats]\nweights-master = \"auto32\"\n[[layer]]",
             1,
         );
-        expect_err(&t, "formats.gradients", "only for weights");
+        expect_err(&t, "formats.weights-master", "not for master copies");
+        // Gradients and accumulators may be left to the quantizer.
+        let t = BASE.replacen(
+            "[[layer]]",
+            "[formats]\ngradients = \"auto16\"\naccumulators = \"auto32\"\n[[layer]]",
+            1,
+        );
+        let c = parse(&t).expect("auto gradients and accumulators");
+        let roles: Vec<(usize, FormatRole)> =
+            c.auto_formats().iter().map(|a| (a.layer, a.role)).collect();
+        assert!(roles.contains(&(1, FormatRole::Gradients)), "{roles:?}");
+        assert!(roles.contains(&(2, FormatRole::Accumulators)), "{roles:?}");
+        assert!(!roles.contains(&(1, FormatRole::Accumulators)), "{roles:?}");
         let t = BASE.replace(
             "units = 4",
             "units = 4\nweights = \"Q3.12\"\nweights-master = \"Q1.6\"",

@@ -20,6 +20,15 @@
 //!   healthy models. So tanh gets Q1.14 in an `i16` (range [−2, 2), step 2^-14): one bit
 //!   finer than the Q2.13 the doubled data range gives, and never a saturation. When the
 //!   data stay below half the bound, the ordinary rule gives a finer format and is used.
+//! - **Gradients** (`auto` in `gradients`): the largest magnitude of the loss gradient of
+//!   the layer's output, run through the float twin forward and backward over the
+//!   calibration data, sample by sample, with a margin of
+//!   [`crate::ranges::GRADIENT_MARGIN`] = 4: a unit to be calibrated starts further from its
+//!   targets than the factory data, so its gradients are larger (our policy).
+//! - **Accumulators** (`auto` in `accumulators`): one sample's largest weight or bias
+//!   gradient, times what the buffer must hold ([`crate::ranges::accumulator_need`]: the
+//!   mini-batch sum, or the momentum buffer's steady state `ḡ/(1 − μ)`, after clipping),
+//!   with the same margin.
 //! - A tensor that is all zero gets the finest format whose range still covers ±1.
 //!
 //! # Report
@@ -35,6 +44,7 @@ use serde::Serialize;
 use crate::config::{AutoFormat, Config, FormatRole};
 use crate::data::Dataset;
 use crate::model::FloatModel;
+use crate::ranges::GRADIENT_MARGIN;
 use crate::sim::{evaluate_pair, Prepared, QuantParams};
 
 /// Margin over the largest weight or bias magnitude.
@@ -224,6 +234,17 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         .model_desc_with(crate::train::provisional_frac)
         .map_err(|e| e.to_string())?;
     let ranges = activation_ranges(&provisional, &float_params, &scaled)?;
+    let auto_grads = cfg
+        .auto_formats()
+        .iter()
+        .any(|a| matches!(a.role, FormatRole::Gradients | FormatRole::Accumulators));
+    let grads = if auto_grads {
+        let p = Prepared::new(&scaled, &provisional)?;
+        crate::ranges::float_ranges(&provisional, &float_params, &p)?
+    } else {
+        Vec::new()
+    };
+    let train = cfg.train();
     let mut chosen = Vec::new();
     let desc = cfg
         .model_desc_with(|a: AutoFormat| {
@@ -242,6 +263,19 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
                         .fold(0f64, |m, v| m.max(v.abs())),
                     WEIGHT_MARGIN,
                 ),
+                FormatRole::Gradients => (grads[a.layer].grad, GRADIENT_MARGIN),
+                FormatRole::Accumulators => {
+                    let g = &grads[a.layer];
+                    (
+                        crate::ranges::accumulator_need(
+                            g.weight_grad.max(g.bias_grad),
+                            train.batch,
+                            train.momentum.to_f64(),
+                            train.clip.to_f64(),
+                        ),
+                        GRADIENT_MARGIN,
+                    )
+                }
                 _ => (ranges[a.layer], ACTIVATION_MARGIN),
             };
             let bound = match a.role {

@@ -13,9 +13,11 @@ use serde::Serialize;
 
 use crate::sim::{Prepared, PreparedTargets};
 
-/// Margin over the largest gradient magnitude seen on calibration data: one integer bit of
-/// headroom, as for activations (common practice; our choice of figure).
-pub const GRADIENT_MARGIN: f64 = 2.0;
+/// Margin over the largest gradient magnitude seen on calibration data: two integer bits of
+/// headroom. One bit, as for activations, covers inputs beyond the calibration data; the
+/// second covers a unit that starts further from its targets than the factory model does
+/// from the factory data (our policy).
+pub const GRADIENT_MARGIN: f64 = 4.0;
 
 /// Largest magnitudes of one layer's values over a data set.
 #[derive(Clone, Copy, Debug, Default, PartialEq, Serialize)]

@@ -223,3 +223,39 @@ fn shipped_configs_pass_their_own_verdict() {
         );
     }
 }
+
+/// `auto` gradients and accumulators: each chosen format holds the float twin's largest value
+/// on the calibration data with the stated margin and is the finest that does; the run passes.
+#[test]
+fn auto_gradient_and_accumulator_formats_hold_the_float_ranges() {
+    let float = float_model();
+    let text = example_text()
+        .replace("gradients = \"Q1.14\"", "gradients = \"auto16\"")
+        .replace("accumulators = \"Q7.24\"", "accumulators = \"auto32\"");
+    assert!(text.contains("\"auto32\""));
+    let config = Config::parse(Path::new("auto.toml"), &text).expect("config");
+    let base = Base::from_float(config, float.clone(), &demo("soil_factory.csv")).expect("base");
+    let margin = hone_host::ranges::GRADIENT_MARGIN;
+    let mut seen = Vec::new();
+    for c in &base.quant.report.chosen {
+        if c.role != "gradients" && c.role != "accumulators" {
+            continue;
+        }
+        let l = &base.quant.desc.layers[c.layer];
+        let f = if c.role == "gradients" {
+            l.grad
+        } else {
+            l.weight.accum
+        };
+        let need = c.max_abs * margin;
+        assert!(f.max_value() >= need, "{c:?}");
+        // One more fraction bit would not hold it.
+        let finer = QFormat::new(f.word, f.frac + 1).expect("finer");
+        assert!(finer.max_value() < need, "{c:?}");
+        seen.push(c.role.clone());
+    }
+    assert_eq!(seen.iter().filter(|r| *r == "gradients").count(), 3);
+    assert_eq!(seen.iter().filter(|r| *r == "accumulators").count(), 2);
+    let r = judge(&float, &text);
+    assert!(r.verdict.pass, "{}", r.verdict_text());
+}
