@@ -103,6 +103,7 @@
 //! | `classes` | list | found in the data | class labels in output order, e.g. `[0, 1, 2, 3]` or `["dry", "wet"]` |
 //! | `standardize` | bool | true | scale each input channel to mean 0, standard deviation 1 over the training data |
 //! | `holdout` | decimal in [0, 1) | 0 | fraction of the rows kept out of training for evaluation |
+//! | `unit` | string | none | unit of the regression target, printed beside every RMSE and MAE (`"m³/m³"`) |
 //!
 //! # Complete example
 //! ```toml
@@ -735,6 +736,7 @@ struct RawData {
     classes: Option<Spanned<Vec<Label>>>,
     standardize: Option<bool>,
     holdout: Option<Spanned<f64>>,
+    unit: Option<String>,
 }
 
 /// One column name, or a list of them.
@@ -809,6 +811,9 @@ pub struct DataConfig {
     pub standardize: bool,
     /// Fraction of rows held out of training.
     pub holdout: f64,
+    /// The unit of the regression target, as reports print it (`m³/m³`, `°C`); empty when the
+    /// config names none.
+    pub unit: String,
 }
 
 /// A checked config. See the [module docs](self) for the file format.
@@ -2133,6 +2138,7 @@ impl Checker<'_> {
             classes,
             standardize: r.standardize.unwrap_or(true),
             holdout,
+            unit: r.unit.clone().unwrap_or_default(),
         })
     }
 }

@@ -181,7 +181,8 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
             ),
         ),
     ];
-    let drift = DriftReport::from_run(&run, false, setup, Thresholds::default());
+    let mut drift = DriftReport::from_run(&run, false, setup, Thresholds::default());
+    drift.unit = base.config.data().unit.clone();
     write(
         out,
         "drift.json",

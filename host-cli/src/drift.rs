@@ -181,6 +181,9 @@ pub struct DriftReport {
     pub setup: Vec<(String, String)>,
     /// `accuracy_pct` or `rmse`.
     pub metric: String,
+    /// Unit of the regression target (`data.unit`), empty if the config names none; set by
+    /// the caller after [`DriftReport::from_run`].
+    pub unit: String,
     /// Epoch 0 (before training) and every epoch.
     pub epochs: Vec<EpochDrift>,
     /// Every step, when recorded.
@@ -339,6 +342,7 @@ impl DriftReport {
             } else {
                 "rmse".into()
             },
+            unit: String::new(),
             epochs: run.epochs.clone(),
             steps: run.steps.clone(),
             tensors: run.tensors.clone(),
@@ -540,6 +544,33 @@ impl DriftReport {
         }
     }
 
+    /// The headline: the evaluation error before and after calibration, fixed point beside
+    /// float, in the target's unit (RMSE and MAE) or in accuracy, and the verdict in a word.
+    pub fn headline(&self) -> String {
+        let (Some(first), Some(last)) = (self.epochs.first(), self.epochs.last()) else {
+            return String::new();
+        };
+        let verdict = if self.verdict.pass { "pass" } else { "FAIL" };
+        if self.metric == "accuracy_pct" {
+            return format!(
+                "accuracy on the evaluation samples: before {:.2} % → after {:.2} % in fixed \
+                 point (float {:.2} % → {:.2} %); {verdict}",
+                first.fixed_metric, last.fixed_metric, first.float_metric, last.float_metric
+            );
+        }
+        let u = |v: f64| crate::train::in_unit(v, &self.unit);
+        format!(
+            "RMSE on the evaluation samples: before {} → after {} in fixed point (float {} → \
+             {}); MAE after {} (float {}); {verdict}",
+            u(first.fixed_metric),
+            u(last.fixed_metric),
+            u(first.float_metric),
+            u(last.float_metric),
+            u(last.fixed_mae),
+            u(last.float_mae)
+        )
+    }
+
     /// The verdict as text lines.
     pub fn verdict_text(&self) -> String {
         let mut s = String::new();
@@ -566,6 +597,7 @@ impl DriftReport {
         for n in &self.verdict.not_run {
             s.push_str(&format!("  not run {:<58} {}\n", n.description, n.reason));
         }
+        s.push_str(&format!("{}\n", self.headline()));
         s.push_str(&format!("verdict: {}\n", self.verdict.summary()));
         s
     }
@@ -712,7 +744,7 @@ impl DriftReport {
             title: title.into(),
             subtitle: Some("Fixed-point training beside its float twin, same start, same data order".into()),
             sections: vec![
-                Section { heading: "Verdict".into(), blocks: vec![Block::Verdict { pass: self.verdict.pass, text: self.verdict_sentence() }, Block::Table(self.check_table())] },
+                Section { heading: "Verdict".into(), blocks: vec![Block::Verdict { pass: self.verdict.pass, text: self.verdict_sentence() }, Block::Paragraph(self.headline()), Block::Table(self.check_table())] },
                 Section { heading: "Setup".into(), blocks: vec![Block::KeyValues(self.setup.clone())] },
                 Section { heading: "Curves".into(), blocks: figures },
                 Section { heading: "Per epoch".into(), blocks: vec![Block::Table(self.epoch_table()), Block::Paragraph("fx: fixed point; fl: float twin. Weight divergence is |fixed − float| of every trained value in steps of its format. Gradient SQNR compares the fixed-point gradients of a probe set with the float gradients.".into())] },
@@ -897,6 +929,24 @@ mod tests {
         run.tensors[0].saturations = 15;
         let r = DriftReport::from_run(&run, false, vec![], Thresholds::default());
         assert!(check(&r, "saturation_ppm").pass);
+    }
+
+    #[test]
+    fn headline_states_before_and_after_in_the_unit() {
+        let mut run = run_with_sqnr(&[None, None]);
+        (run.epochs[0].fixed_metric, run.epochs[0].float_metric) = (0.094, 0.094);
+        (run.epochs[1].fixed_metric, run.epochs[1].float_metric) = (0.013, 0.0129);
+        (run.epochs[1].fixed_mae, run.epochs[1].float_mae) = (0.01, 0.0099);
+        let mut r = DriftReport::from_run(&run, false, vec![], Thresholds::default());
+        r.unit = "m³/m³".into();
+        let h = r.headline();
+        assert!(
+            h.contains("before 0.09400 m³/m³ → after 0.01300 m³/m³ in fixed point"),
+            "{h}"
+        );
+        assert!(h.contains("MAE after 0.01000 m³/m³"), "{h}");
+        assert!(h.ends_with("pass"), "{h}");
+        assert!(r.render_text().contains(&h));
     }
 
     #[test]

@@ -477,11 +477,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             }
             let model = &trained.model;
             model.save(&out).map_err(|e| anyhow!("{e}"))?;
-            let last = model
-                .history
-                .last()
-                .map(|h| (h.loss, h.metric))
-                .unwrap_or_default();
+            let last = model.history.last().map(|h| h.loss).unwrap_or_default();
             let held = if trained.held_out_rows > 0 {
                 format!(
                     " ({} held out of {} by data.holdout)",
@@ -492,16 +488,10 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                 String::new()
             };
             outln!(
-                "trained {} epochs on {} rows{held}: final loss {:.6}, {} {:.4}; written to {}",
+                "trained {} epochs on {} rows{held}: final loss {last:.6}; {}; written to {}",
                 config.epochs(),
                 trained.trained_rows,
-                last.0,
-                if dataset.classes().is_some() {
-                    "accuracy %"
-                } else {
-                    "MAE"
-                },
-                last.1,
+                hone_host::train::final_figures(&model.history, &config.data().unit),
                 out.display()
             );
             Ok(None)
@@ -675,6 +665,7 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
         two_sided: a.limits.two_sided,
     };
     let mut report = DriftReport::from_run(&run, train.is_classification(), setup, t);
+    report.unit = base.config.data().unit.clone();
     report
         .advise_saturation(&q.desc, &run, &train, &q.float_params)
         .map_err(|e| anyhow!("{e}"))?;

@@ -145,6 +145,8 @@ pub struct QuantReport {
     pub target_saturations: usize,
     /// Samples evaluated.
     pub samples: usize,
+    /// Unit of the regression target (`data.unit`), empty if the config names none.
+    pub unit: String,
 }
 
 /// A quantized model ready to export or fine-tune.
@@ -350,6 +352,7 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         input_saturations: prepared.input_saturations,
         target_saturations: prepared.target_saturations,
         samples: prepared.len(),
+        unit: cfg.data().unit.clone(),
     };
     Ok(Quantized {
         desc,
@@ -404,18 +407,24 @@ pub fn render(r: &QuantReport) -> String {
             t.saturated
         ));
     }
-    let (unit, fmt_metric): (&str, fn(f64) -> String) = if r.metric == "accuracy_pct" {
-        ("accuracy", |v| format!("{v:.2} %"))
-    } else {
-        ("RMSE", |v| format!("{v:.5}"))
+    let figures = |metric: f64, mae: f64| {
+        if r.metric == "accuracy_pct" {
+            format!("accuracy {metric:.2} %")
+        } else {
+            format!(
+                "RMSE {}, MAE {}",
+                crate::train::in_unit(metric, &r.unit),
+                crate::train::in_unit(mae, &r.unit)
+            )
+        }
     };
     s.push_str(&format!(
-        "\nOn {} calibration samples: float loss {:.6}, {unit} {}; quantized loss {:.6}, {unit} {} (change {:+.6} loss)\n",
+        "\nOn {} calibration samples, against the true targets:\n  float      {}, loss {:.6}\n  quantized  {}, loss {:.6} (change {:+.6})\n",
         r.samples,
+        figures(r.float_metric, r.float_mae),
         r.float_loss,
-        fmt_metric(r.float_metric),
+        figures(r.fixed_metric, r.fixed_mae),
         r.fixed_loss,
-        fmt_metric(r.fixed_metric),
         r.fixed_loss - r.float_loss
     ));
     if r.input_saturations > 0 {
