@@ -18,8 +18,11 @@
 //! The short form `"Qn"` means `"Q0.n"` (`"Q15"` is Q0.15, an `i16`). A table
 //! `{ word = 16, frac = 12 }` says the same as `"Q3.12"`. Fraction bits are at most 31.
 //!
-//! Weights, bias and activations may instead be **`"auto8"`, `"auto16"` or `"auto32"`**: the
-//! word is fixed (it decides memory) and the quantizer chooses the fraction bits from the data.
+//! Weights, bias, activations, gradients and accumulators may instead be **`"auto8"`,
+//! `"auto16"` or `"auto32"`**: the word is fixed (it decides memory) and the quantizer
+//! chooses the fraction bits from the data (see [`crate::quant`] for the headroom policy).
+//! Master copies are always given, with at least the fraction and integer bits of the values
+//! they feed.
 //!
 //! # Reference
 //! Top level:
@@ -45,8 +48,8 @@
 //! | `weights` | Q-format or auto | `"auto16"` | weights of dense and conv1d layers |
 //! | `bias` | Q-format or auto | `"auto16"` | biases |
 //! | `activations` | Q-format or auto | `"auto16"` | each layer's output |
-//! | `gradients` | Q-format | `"Q1.14"` | loss gradient of each layer's output |
-//! | `accumulators` | Q-format | `"Q7.24"` | mini-batch gradient sums, also the momentum buffers |
+//! | `gradients` | Q-format or auto | `"Q1.14"` | loss gradient of each layer's output |
+//! | `accumulators` | Q-format or auto | `"Q7.24"` | mini-batch gradient sums, also the momentum buffers |
 //! | `weights-master` | Q-format | none | a finer master copy of the weights that receives the updates |
 //! | `bias-master` | Q-format | none | the same for the biases |
 //!
