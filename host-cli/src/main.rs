@@ -72,7 +72,7 @@ enum Command {
     Drift(DriftArgs),
     /// Memory plan of training on a chip, with advice when it does not fit.
     ///
-    /// RAM counts the training arena, the trainer object, the engine's stack peak and the
+    /// RAM counts the training memory, the trainer object, the engine's stack peak and the
     /// reserve; flash counts the factory parameters, the engine's code and the reserve. The
     /// engine's figures are those measured on a board with the chip's core (or the core named
     /// by --core for a custom --ram/--flash target); for a core that was not measured they are
@@ -563,27 +563,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                     .collect();
                 print_json(&rows)?;
             } else {
-                outln!(
-                    "{:<14} {:<28} {:<12} {:<7} {:>10} {:>10}  source",
-                    "id",
-                    "name",
-                    "core",
-                    "FPU",
-                    "RAM",
-                    "flash"
-                );
-                for c in chips {
-                    outln!(
-                        "{:<14} {:<28} {:<12} {:<7} {:>10} {:>10}  {}",
-                        c.id,
-                        c.name,
-                        c.core.to_string(),
-                        c.fpu.to_string(),
-                        c.ram_bytes,
-                        c.flash_bytes,
-                        c.source
-                    );
-                }
+                out!("{}", hone_host::chips::render_text(chips));
             }
             Ok(None)
         }
@@ -758,6 +738,11 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
         print_json(&report)?;
     } else {
         out!("{}", render_table(&report));
+        if base.is_none() {
+            if let Some(note) = memplan::placeholder_note(&config) {
+                outln!("\n{note}");
+            }
+        }
     }
     Ok((!report.fits).then_some(CheckFailed))
 }

@@ -1166,6 +1166,33 @@ pub(crate) fn group(n: u64) -> String {
     out
 }
 
+/// Which formats of a plan made without a float model are placeholders: the `auto` formats,
+/// whose fraction bits `hone quantize` chooses from data. Their word sizes, and so every byte
+/// count, are final. `None` when the config has no `auto` format.
+pub fn placeholder_note(config: &crate::config::Config) -> Option<String> {
+    let autos = config.auto_formats();
+    if autos.is_empty() {
+        return None;
+    }
+    let mut by_layer: Vec<(usize, Vec<&str>)> = Vec::new();
+    for a in &autos {
+        match by_layer.last_mut() {
+            Some((l, roles)) if *l == a.layer => roles.push(a.role.key()),
+            _ => by_layer.push((a.layer, vec![a.role.key()])),
+        }
+    }
+    let list: Vec<String> = by_layer
+        .iter()
+        .map(|(l, roles)| format!("layer {l} {}", roles.join(", ")))
+        .collect();
+    let text = format!(
+        "Placeholder formats (auto: the fraction bits are chosen from data by `hone quantize`, \
+         or here with --model and --train; word sizes and bytes are final): {}",
+        list.join("; ")
+    );
+    Some(wrap(&text, 96, 2))
+}
+
 /// "20 480 B".
 pub(crate) fn bytes(n: u64) -> String {
     format!("{} B", group(n))
@@ -1357,7 +1384,8 @@ pub fn render_table(r: &PlanReport) -> String {
     match &r.engine {
         Some(e) => {
             let line = format!(
-                "Engine{}: code {} of flash, trainer state {} and stack peak {} of RAM",
+                "Engine{}: code {} of flash (rounded up to 2 KiB), trainer state {} and stack \
+                 peak {} (rounded up to 256 B) of RAM",
                 match e.basis {
                     OverheadBasis::Measured => "",
                     OverheadBasis::Estimated => " (estimate, not measured for this core)",
@@ -1426,7 +1454,7 @@ pub fn render_table(r: &PlanReport) -> String {
     ];
     let _ = writeln!(
         o,
-        "\nRAM: training arena, {}",
+        "\nRAM: training memory (the trainer's working buffers), {}",
         bytes_kib(r.ram.arena_bytes as u64)
     );
     let rows = buffer_rows(Memory::Ram);
@@ -1467,13 +1495,23 @@ pub fn render_table(r: &PlanReport) -> String {
     }
 
     // Totals, RAM and flash side by side in one table each.
-    let measured = match r.engine.as_ref().map(|e| e.basis) {
-        Some(OverheadBasis::Estimated) => "estimate: largest measured",
-        _ => "measured",
+    // MEASURED_OVERHEADS: the trainer object is exact, the stack is rounded up to 256 B and
+    // the code to 2 KiB.
+    let (measured, stack_label, code_label) = match r.engine.as_ref().map(|e| e.basis) {
+        Some(OverheadBasis::Estimated) => (
+            "estimate: largest measured",
+            "estimate: largest measured, rounded up to 256 B",
+            "estimate: largest measured, rounded up to 2 KiB",
+        ),
+        _ => (
+            "measured",
+            "measured, rounded up to 256 B",
+            "measured, rounded up to 2 KiB",
+        ),
     };
     let unmeasured = "not measured, not counted";
     let mut rows = vec![vec![
-        "training arena".to_owned(),
+        "training memory".to_owned(),
         bytes(r.ram.arena_bytes as u64),
         String::new(),
     ]];
@@ -1488,7 +1526,7 @@ pub fn render_table(r: &PlanReport) -> String {
         &mut rows,
         "stack peak",
         r.ram.stack_bytes,
-        measured,
+        stack_label,
         unmeasured,
     );
     rows.push(vec![
@@ -1517,7 +1555,7 @@ pub fn render_table(r: &PlanReport) -> String {
         &mut rows,
         "engine code",
         r.flash.engine_code_bytes,
-        measured,
+        code_label,
         unmeasured,
     );
     rows.push(vec![
@@ -1986,6 +2024,27 @@ mod tests {
             assert!(measured_row(chip).is_none(), "{id}");
             assert_eq!(engine_overhead(chip), e, "{id}");
         }
+    }
+
+    #[test]
+    fn placeholders_are_the_auto_formats() {
+        let text = "loss = \"squared-error\"\n[input]\nchannels = 2\n[formats]\n\
+                    weights = \"Q3.12\"\n[[layer]]\nkind = \"dense\"\nunits = 4\n\
+                    bias = \"Q3.12\"\n[[layer]]\nkind = \"dense\"\nunits = 1\n\
+                    [train]\nepochs = 1\nlearning-rate = 0.01\n[data]\ntarget = \"y\"\n";
+        let c = crate::config::Config::parse(std::path::Path::new("t.toml"), text).unwrap();
+        let note = placeholder_note(&c).expect("auto activations and a bias");
+        let flat = note.split_whitespace().collect::<Vec<_>>().join(" ");
+        assert!(
+            flat.ends_with("layer 0 activations; layer 1 bias, activations"),
+            "{flat}"
+        );
+        let fixed = text.replace(
+            "weights = \"Q3.12\"",
+            "weights = \"Q3.12\"\nbias = \"Q3.12\"\nactivations = \"Q3.12\"",
+        );
+        let c = crate::config::Config::parse(std::path::Path::new("t.toml"), &fixed).unwrap();
+        assert_eq!(placeholder_note(&c), None);
     }
 
     #[test]

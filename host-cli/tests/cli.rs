@@ -740,13 +740,22 @@ fn chips_lists_the_table() {
         // Every row names where its figures come from: a document, or "from memory".
         let source = r["source"].as_str().unwrap_or_default();
         assert!(!source.trim().is_empty(), "{id} has no source: {r}");
-        let line = said
-            .lines()
-            .find(|l| l.split_whitespace().next() == Some(id))
+        // The row, then its source on the indented lines below it.
+        let lines: Vec<&str> = said.lines().collect();
+        let at = lines
+            .iter()
+            .position(|l| l.split_whitespace().next() == Some(id))
             .unwrap_or_else(|| panic!("`{id}` missing from the text table"));
-        assert!(
-            line.trim_end().ends_with(source),
-            "the row of {id} does not show its source `{source}`: {line}"
+        let below: Vec<&str> = lines[at + 1..]
+            .iter()
+            .take_while(|l| l.starts_with(' '))
+            .flat_map(|l| l.split_whitespace())
+            .collect();
+        let words: Vec<&str> = source.split_whitespace().collect();
+        assert_eq!(
+            below[1..],
+            words[..],
+            "the row of {id} does not show its source `{source}`"
         );
     }
     let nrf = rows
