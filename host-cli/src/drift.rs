@@ -714,11 +714,42 @@ impl DriftReport {
                 height: 400,
             }
         };
+        let acc = self.metric == "accuracy_pct";
+        let unit = if acc {
+            "accuracy points".to_owned()
+        } else if self.unit.is_empty() {
+            "target units".to_owned()
+        } else {
+            self.unit.clone()
+        };
+        let gap = LinePlot {
+            title: format!(
+                "{} on the evaluation samples: fixed point minus float",
+                if acc { "Accuracy" } else { "RMSE" }
+            ),
+            x_label: "epoch".into(),
+            y_label: unit,
+            series: vec![Series {
+                name: "fixed − float".into(),
+                points: pts(&|e| e.fixed_metric - e.float_metric),
+                dashed: false,
+            }],
+            log_y: false,
+            width: 720,
+            height: 400,
+        };
         vec![
             (
                 "loss".into(),
                 "Training and evaluation loss of the fixed-point model and its float twin.".into(),
                 loss.to_svg(),
+            ),
+            (
+                "gap".into(),
+                "The evaluation metric of fixed point minus that of float, per epoch: the gap \
+                 the loss curves above are too close to show."
+                    .into(),
+                gap.to_svg(),
             ),
             (
                 "divergence".into(),

@@ -1327,9 +1327,69 @@ fn drift_text(d: &Option<DriftCost>, not_computed: &Option<String>) -> String {
 }
 
 /// The report as aligned text for a terminal: budget, buffers, totals, verdict and advice.
+/// The plan as terminal text: model, budget, every buffer, totals, verdict and advice.
 pub fn render_table(r: &PlanReport) -> String {
+    plan_doc(r).plain
+}
+
+/// The plan as document blocks, for the HTML and Markdown reports: the same text as
+/// [`render_table`], with every table a real table.
+pub fn plan_blocks(r: &PlanReport) -> Vec<crate::report::Block> {
+    plan_doc(r).blocks
+}
+
+/// Text and tables in order, kept both as terminal text and as document blocks.
+#[derive(Default)]
+struct Doc {
+    blocks: Vec<crate::report::Block>,
+    pending: String,
+    plain: String,
+}
+
+impl std::fmt::Write for Doc {
+    fn write_str(&mut self, s: &str) -> std::fmt::Result {
+        self.pending.push_str(s);
+        self.plain.push_str(s);
+        Ok(())
+    }
+}
+
+impl Doc {
+    fn flush(&mut self) {
+        let text = std::mem::take(&mut self.pending);
+        let text = text.trim();
+        if !text.is_empty() {
+            self.blocks
+                .push(crate::report::Block::Paragraph(text.to_owned()));
+        }
+    }
+
+    fn table(&mut self, head: &[&str], align: &[Align], rows: &[Vec<String>]) {
+        self.plain.push_str(&table(head, align, rows));
+        self.flush();
+        let align = (0..head.len())
+            .map(|i| match align.get(i) {
+                Some(Align::Right) => crate::report::Align::Right,
+                _ => crate::report::Align::Left,
+            })
+            .collect();
+        self.blocks
+            .push(crate::report::Block::Table(crate::report::Table {
+                headers: head.iter().map(|h| h.to_string()).collect(),
+                rows: rows.to_vec(),
+                align,
+            }));
+    }
+
+    fn finish(mut self) -> Doc {
+        self.flush();
+        self
+    }
+}
+
+fn plan_doc(r: &PlanReport) -> Doc {
     const WIDTH: usize = 96;
-    let mut o = String::new();
+    let mut o = Doc::default();
     let m = &r.model;
     let _ = writeln!(
         o,
@@ -1461,7 +1521,7 @@ pub fn render_table(r: &PlanReport) -> String {
     if rows.is_empty() {
         let _ = writeln!(o, "  (no buffers: nothing trains)");
     } else {
-        o.push_str(&table(&head, &align, &rows));
+        o.table(&head, &align, &rows);
     }
     let c = &r.ram_categories;
     let _ = writeln!(
@@ -1491,7 +1551,7 @@ pub fn render_table(r: &PlanReport) -> String {
     if rows.is_empty() {
         let _ = writeln!(o, "  (none: the model has no parameters)");
     } else {
-        o.push_str(&table(&head, &align, &rows));
+        o.table(&head, &align, &rows);
     }
 
     // Totals, RAM and flash side by side in one table each.
@@ -1541,11 +1601,11 @@ pub fn render_table(r: &PlanReport) -> String {
     ]);
     rows.push(spare_row(r.ram.spare_bytes, r.ram.spare_percent));
     let _ = writeln!(o, "\nRAM totals");
-    o.push_str(&table(
+    o.table(
         &["", "bytes", ""],
         &[Align::Left, Align::Right, Align::Left],
         &rows,
-    ));
+    );
     let mut rows = vec![vec![
         "factory parameters".to_owned(),
         bytes(r.flash.parameters_bytes as u64),
@@ -1570,11 +1630,11 @@ pub fn render_table(r: &PlanReport) -> String {
     ]);
     rows.push(spare_row(r.flash.spare_bytes, r.flash.spare_percent));
     let _ = writeln!(o, "\nFlash totals");
-    o.push_str(&table(
+    o.table(
         &["", "bytes", ""],
         &[Align::Left, Align::Right, Align::Left],
         &rows,
-    ));
+    );
 
     let _ = writeln!(o, "\n{}", r.verdict);
 
@@ -1612,7 +1672,7 @@ pub fn render_table(r: &PlanReport) -> String {
         } else {
             &["change", "RAM saved", "flash saved", "fits alone"]
         };
-        o.push_str(&table(
+        o.table(
             head,
             &[
                 Align::Left,
@@ -1622,7 +1682,7 @@ pub fn render_table(r: &PlanReport) -> String {
                 Align::Left,
             ],
             &rows,
-        ));
+        );
     }
     if let Some(c) = &r.combination {
         let lead = if c.fits {
@@ -1665,7 +1725,7 @@ pub fn render_table(r: &PlanReport) -> String {
             );
         }
     }
-    o
+    o.finish()
 }
 
 // ---------------------------------------------------------------------------------------

@@ -362,51 +362,82 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
     })
 }
 
-/// Renders a quantization report as aligned text.
-pub fn render(r: &QuantReport) -> String {
+/// The two tables of a quantization report: the formats chosen from data (`None` when the
+/// config chose every format), and the error per parameter tensor.
+pub fn tables(r: &QuantReport) -> (Option<crate::report::Table>, crate::report::Table) {
+    use crate::report::{Align, Table};
+    let strings = |v: &[&str]| v.iter().map(|h| h.to_string()).collect::<Vec<_>>();
+    let chosen = (!r.chosen.is_empty()).then(|| Table {
+        headers: strings(&["layer", "role", "format", "max |value|", "margin"]),
+        rows: r
+            .chosen
+            .iter()
+            .map(|c| {
+                vec![
+                    c.layer.to_string(),
+                    c.role.clone(),
+                    c.format.clone(),
+                    format!("{:.5}", c.max_abs),
+                    match c.bound {
+                        Some(b) => format!("bound {b}"),
+                        None => format!("{:.2}×", c.margin),
+                    },
+                ]
+            })
+            .collect(),
+        align: vec![
+            Align::Right,
+            Align::Left,
+            Align::Left,
+            Align::Right,
+            Align::Right,
+        ],
+    });
+    let errors = Table {
+        headers: strings(&[
+            "layer", "tensor", "format", "values", "max |w|", "RMS err", "max err", "SQNR dB",
+            "sat.",
+        ]),
+        rows: r
+            .tensors
+            .iter()
+            .map(|t| {
+                vec![
+                    t.layer.to_string(),
+                    t.role.clone(),
+                    t.format.clone(),
+                    t.values.to_string(),
+                    format!("{:.3e}", t.max_abs),
+                    format!("{:.3e}", t.rms_error),
+                    format!("{:.3e}", t.max_error),
+                    if t.sqnr_db.is_finite() {
+                        format!("{:.1}", t.sqnr_db)
+                    } else {
+                        "exact".into()
+                    },
+                    t.saturated.to_string(),
+                ]
+            })
+            .collect(),
+        align: vec![
+            Align::Right,
+            Align::Left,
+            Align::Left,
+            Align::Right,
+            Align::Right,
+            Align::Right,
+            Align::Right,
+            Align::Right,
+            Align::Right,
+        ],
+    };
+    (chosen, errors)
+}
+
+/// The lines below the tables: the metrics before and after quantization against the true
+/// targets, and the values the formats could not hold.
+pub fn summary(r: &QuantReport) -> String {
     let mut s = String::new();
-    if !r.chosen.is_empty() {
-        s.push_str("Formats chosen from data\n");
-        s.push_str(&format!(
-            "  {:>5}  {:<12} {:<16} {:>12} {:>7}\n",
-            "layer", "role", "format", "max |value|", "margin"
-        ));
-        for c in &r.chosen {
-            let margin = match c.bound {
-                Some(b) => format!("bound {b}"),
-                None => format!("{:.2}×", c.margin),
-            };
-            s.push_str(&format!(
-                "  {:>5}  {:<12} {:<16} {:>12.5} {:>7}\n",
-                c.layer, c.role, c.format, c.max_abs, margin
-            ));
-        }
-        s.push('\n');
-    }
-    s.push_str("Quantization error per parameter tensor\n");
-    s.push_str(&format!(
-        "  {:>5}  {:<8} {:<16} {:>7} {:>11} {:>11} {:>11} {:>9} {:>5}\n",
-        "layer", "tensor", "format", "values", "max |w|", "RMS err", "max err", "SQNR dB", "sat."
-    ));
-    for t in &r.tensors {
-        let sqnr = if t.sqnr_db.is_finite() {
-            format!("{:.1}", t.sqnr_db)
-        } else {
-            "exact".into()
-        };
-        s.push_str(&format!(
-            "  {:>5}  {:<8} {:<16} {:>7} {:>11.3e} {:>11.3e} {:>11.3e} {:>9} {:>5}\n",
-            t.layer,
-            t.role,
-            t.format,
-            t.values,
-            t.max_abs,
-            t.rms_error,
-            t.max_error,
-            sqnr,
-            t.saturated
-        ));
-    }
     let figures = |metric: f64, mae: f64| {
         if r.metric == "accuracy_pct" {
             format!("accuracy {metric:.2} %")
@@ -419,7 +450,7 @@ pub fn render(r: &QuantReport) -> String {
         }
     };
     s.push_str(&format!(
-        "\nOn {} calibration samples, against the true targets:\n  float      {}, loss {:.6}\n  quantized  {}, loss {:.6} (change {:+.6})\n",
+        "On {} calibration samples, against the true targets:\n  float      {}, loss {:.6}\n  quantized  {}, loss {:.6} (change {:+.6})\n",
         r.samples,
         figures(r.float_metric, r.float_mae),
         r.float_loss,
@@ -440,6 +471,48 @@ pub fn render(r: &QuantReport) -> String {
         ));
     }
     s
+}
+
+/// What the margin column means, for documents.
+pub const MARGIN_NOTE: &str = "A format keeps as many fraction bits as its largest value \
+    times the margin leaves: weights and biases 1.25× (fine-tuning may grow them by a \
+    quarter), activations 2× (one integer bit for inputs beyond the calibration data), \
+    gradients and accumulators 4×; a bounded activation (tanh, sigmoid, hard-tanh, clipped \
+    ReLU) stops at its bound.";
+
+/// Renders a quantization report as aligned text.
+pub fn render(r: &QuantReport) -> String {
+    use crate::report::render_text_table;
+    let mut s = String::new();
+    let (chosen, errors) = tables(r);
+    if let Some(t) = chosen {
+        s.push_str("Formats chosen from data\n");
+        s.push_str(&render_text_table(&t));
+        s.push('\n');
+    }
+    s.push_str("Quantization error per parameter tensor\n");
+    s.push_str(&render_text_table(&errors));
+    s.push('\n');
+    s.push_str(&summary(r));
+    s
+}
+
+/// The report as document blocks: both tables, the margins explained, the summary.
+pub fn blocks(r: &QuantReport) -> Vec<crate::report::Block> {
+    use crate::report::Block;
+    let (chosen, errors) = tables(r);
+    let mut b = Vec::new();
+    if let Some(t) = chosen {
+        b.push(Block::Paragraph("Formats chosen from data".into()));
+        b.push(Block::Table(t));
+        b.push(Block::Paragraph(MARGIN_NOTE.into()));
+    }
+    b.push(Block::Paragraph(
+        "Quantization error per parameter tensor".into(),
+    ));
+    b.push(Block::Table(errors));
+    b.push(Block::Paragraph(summary(r).trim_end().to_owned()));
+    b
 }
 
 #[cfg(test)]

@@ -351,6 +351,7 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
         &dir.join("report"),
         &[
             "drift-divergence.svg",
+            "drift-gap.svg",
             "drift-loss.svg",
             "drift.html",
             "drift.json",
@@ -360,7 +361,7 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
     let html = fs::read_to_string(dir.join("report/drift.html")).unwrap();
     assert!(html.contains("<html"), "drift.html is not HTML");
     assert!(html.contains("<svg"), "drift.html carries no plot");
-    for svg in ["drift-divergence.svg", "drift-loss.svg"] {
+    for svg in ["drift-divergence.svg", "drift-gap.svg", "drift-loss.svg"] {
         let s = fs::read_to_string(dir.join("report").join(svg)).unwrap();
         assert!(
             s.contains("<svg") && s.trim_end().ends_with("</svg>"),
@@ -959,6 +960,12 @@ fn demo_runs_by_default_and_with_out() {
         assert_blob_frame(&fs::read(f.join("base-model.honb")).unwrap());
         let html = fs::read_to_string(f.join("report.html")).unwrap();
         assert!(html.contains("<svg"), "{folder}/report.html has no plot");
+        // Quantization, plan and guard are tables, not preformatted terminal text.
+        assert!(
+            !html.contains("<pre"),
+            "{folder}/report.html has a <pre> dump"
+        );
+        assert!(html.matches("<table").count() >= 8, "{folder}/report.html");
         let inspected = run_ok(dir, &["inspect", &format!("{folder}/base-model.honb")]);
         assert!(inspected.contains("hone model"), "{inspected}");
     }
