@@ -881,6 +881,8 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
     } else {
         out!("{}", hone_host::report::render_text_table(&t));
         outln!("● on the Pareto front of training RAM against drift (|fixed − float| evaluation loss, % of float)");
+        outln!("RAM B: the training memory alone, without the trainer object, stack and reserve that `hone plan` adds");
+        outln!("base: the setting as the config and the quantizer chose it");
     }
     if let Some(dir) = &a.out {
         let files = vec![
