@@ -190,6 +190,8 @@ pub struct DriftReport {
     pub steps: Vec<StepDrift>,
     /// Totals per tensor.
     pub tensors: Vec<TensorTotals>,
+    /// Regression only: each evaluation sample's reference and both predictions at the end.
+    pub predictions: Vec<crate::sim::Prediction>,
     /// The thresholds applied.
     pub thresholds: Thresholds,
     /// The verdict.
@@ -346,6 +348,7 @@ impl DriftReport {
             epochs: run.epochs.clone(),
             steps: run.steps.clone(),
             tensors: run.tensors.clone(),
+            predictions: run.predictions.clone(),
             thresholds: t,
             verdict: Verdict {
                 pass,
@@ -738,7 +741,7 @@ impl DriftReport {
             width: 720,
             height: 400,
         };
-        vec![
+        let mut plots = vec![
             (
                 "loss".into(),
                 "Training and evaluation loss of the fixed-point model and its float twin.".into(),
@@ -756,7 +759,37 @@ impl DriftReport {
                 "How far the fixed-point weights moved from the float weights.".into(),
                 divergence.to_svg(),
             ),
-        ]
+        ];
+        if !self.predictions.is_empty() {
+            use crate::plot::{Point, ScatterPlot};
+            let unit = if self.unit.is_empty() {
+                String::new()
+            } else {
+                format!(", {}", self.unit)
+            };
+            let mut scatter = ScatterPlot::new(
+                "Predicted against reference, after calibration",
+                format!("reference{unit}"),
+                format!("predicted{unit}"),
+            );
+            scatter.connect_highlighted = false;
+            for p in &self.predictions {
+                scatter.points.push(Point::new(p.reference, p.float));
+                scatter.points.push(Point {
+                    highlight: true,
+                    ..Point::new(p.reference, p.fixed)
+                });
+            }
+            plots.push((
+                "predicted".into(),
+                "Each evaluation sample's prediction against its reference after calibration: \
+                 filled dots fixed point, hollow circles the float twin; a perfect model lies on \
+                 the diagonal."
+                    .into(),
+                scatter.to_svg(),
+            ));
+        }
+        plots
     }
 
     /// The report as a document (HTML and Markdown).
@@ -855,6 +888,7 @@ mod tests {
             float_params: Vec::new(),
             tensors: Vec::new(),
             rng_state: [0; 4],
+            predictions: Vec::new(),
         }
     }
 

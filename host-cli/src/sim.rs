@@ -380,6 +380,18 @@ pub struct TensorTotals {
     pub divergence_pct: Option<f64>,
 }
 
+/// One evaluation sample at the end of a regression run: its reference (the true target of
+/// the first output) and what each side predicts for it.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Serialize)]
+pub struct Prediction {
+    /// The true target.
+    pub reference: f64,
+    /// The fixed-point model's output.
+    pub fixed: f64,
+    /// The float twin's output.
+    pub float: f64,
+}
+
 /// The outcome of [`run_side_by_side`].
 #[derive(Clone, Debug)]
 pub struct DriftRun {
@@ -395,6 +407,8 @@ pub struct DriftRun {
     pub tensors: Vec<TensorTotals>,
     /// The generator state of the fixed-point trainer at the end.
     pub rng_state: [u32; 4],
+    /// Regression only: every evaluation sample's reference and both predictions at the end.
+    pub predictions: Vec<Prediction>,
 }
 
 /// Progress of a run, for a progress bar.
@@ -852,6 +866,27 @@ pub fn run_side_by_side(
             None => (Vec::new(), Vec::new()),
         })
         .collect();
+    let mut predictions = Vec::new();
+    if let PreparedTargets::Values { y, .. } = &eval.target {
+        for (i, t) in y.iter().enumerate() {
+            let (x, _) = eval.fixed(i, in_fmt);
+            let out = fixed
+                .predict(x)
+                .map_err(|e| format!("evaluation sample {}: {e}", i + 1))?;
+            let fx = out.fmt.to_f64(out.raw.at(0));
+            let fl = float
+                .predict(&eval.x[i])
+                .map_err(|e| format!("evaluation sample {}: {e}", i + 1))?
+                .first()
+                .copied()
+                .unwrap_or(f64::NAN);
+            predictions.push(Prediction {
+                reference: t.first().copied().unwrap_or(f64::NAN),
+                fixed: fx,
+                float: fl,
+            });
+        }
+    }
     let rng_state = fixed.rng().state();
     Ok(DriftRun {
         epochs,
@@ -860,6 +895,7 @@ pub fn run_side_by_side(
         float_params,
         tensors,
         rng_state,
+        predictions,
     })
 }
 

@@ -353,6 +353,7 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
             "drift-divergence.svg",
             "drift-gap.svg",
             "drift-loss.svg",
+            "drift-predicted.svg",
             "drift.html",
             "drift.json",
             "drift.md",
@@ -361,7 +362,12 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
     let html = fs::read_to_string(dir.join("report/drift.html")).unwrap();
     assert!(html.contains("<html"), "drift.html is not HTML");
     assert!(html.contains("<svg"), "drift.html carries no plot");
-    for svg in ["drift-divergence.svg", "drift-gap.svg", "drift-loss.svg"] {
+    for svg in [
+        "drift-divergence.svg",
+        "drift-gap.svg",
+        "drift-loss.svg",
+        "drift-predicted.svg",
+    ] {
         let s = fs::read_to_string(dir.join("report").join(svg)).unwrap();
         assert!(
             s.contains("<svg") && s.trim_end().ends_with("</svg>"),
