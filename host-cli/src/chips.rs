@@ -375,6 +375,49 @@ static CHIPS: [Chip; 19] = [
     },
 ];
 
+/// Widest line of [`render_text`], in characters.
+pub const TEXT_WIDTH: usize = 120;
+
+/// The table as text for people: one row per chip, memory in bytes as `hone plan` writes
+/// them (`16 384 B`), and the source of its figures on the lines below it, all within
+/// [`TEXT_WIDTH`] columns.
+pub fn render_text(chips: &[Chip]) -> String {
+    use std::fmt::Write;
+    let name_w = chips
+        .iter()
+        .map(|c| c.name.chars().count())
+        .max()
+        .unwrap_or(4)
+        .max(4);
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "{:<12} {:<name_w$} {:<11} {:<7} {:>13} {:>13}",
+        "id", "name", "core", "FPU", "RAM", "flash"
+    );
+    let indent = 13;
+    for c in chips {
+        let _ = writeln!(
+            s,
+            "{:<12} {:<name_w$} {:<11} {:<7} {:>13} {:>13}",
+            c.id,
+            c.name,
+            c.core.to_string(),
+            c.fpu.to_string(),
+            crate::memplan::bytes(c.ram_bytes as u64),
+            crate::memplan::bytes(c.flash_bytes as u64)
+        );
+        let source = format!("source: {}", c.source);
+        let _ = writeln!(
+            s,
+            "{:indent$}{}",
+            "",
+            crate::memplan::wrap_at(&source, TEXT_WIDTH, indent, indent)
+        );
+    }
+    s
+}
+
 /// Every chip in the table, QEMU targets first.
 pub fn all() -> &'static [Chip] {
     &CHIPS
@@ -464,6 +507,20 @@ mod tests {
         }
         let emulated = all().iter().filter(|c| c.qemu_machine.is_some()).count();
         assert_eq!(emulated, 4);
+    }
+
+    #[test]
+    fn text_table_fits_its_width_and_shows_every_source() {
+        let text = render_text(all());
+        for line in text.lines() {
+            assert!(line.chars().count() <= TEXT_WIDTH, "{line}");
+        }
+        let flat = text.split_whitespace().collect::<Vec<_>>().join(" ");
+        for c in all() {
+            let source = c.source.split_whitespace().collect::<Vec<_>>().join(" ");
+            assert!(flat.contains(&format!("source: {source}")), "{}", c.id);
+        }
+        assert!(text.contains("16 384 B"), "{text}");
     }
 
     #[test]

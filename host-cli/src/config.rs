@@ -18,8 +18,11 @@
 //! The short form `"Qn"` means `"Q0.n"` (`"Q15"` is Q0.15, an `i16`). A table
 //! `{ word = 16, frac = 12 }` says the same as `"Q3.12"`. Fraction bits are at most 31.
 //!
-//! Weights, bias and activations may instead be **`"auto8"`, `"auto16"` or `"auto32"`**: the
-//! word is fixed (it decides memory) and the quantizer chooses the fraction bits from the data.
+//! Weights, bias, activations, gradients and accumulators may instead be **`"auto8"`,
+//! `"auto16"` or `"auto32"`**: the word is fixed (it decides memory) and the quantizer
+//! chooses the fraction bits from the data (see [`crate::quant`] for the headroom policy).
+//! Master copies are always given, with at least the fraction and integer bits of the values
+//! they feed.
 //!
 //! # Reference
 //! Top level:
@@ -45,8 +48,8 @@
 //! | `weights` | Q-format or auto | `"auto16"` | weights of dense and conv1d layers |
 //! | `bias` | Q-format or auto | `"auto16"` | biases |
 //! | `activations` | Q-format or auto | `"auto16"` | each layer's output |
-//! | `gradients` | Q-format | `"Q1.14"` | loss gradient of each layer's output |
-//! | `accumulators` | Q-format | `"Q7.24"` | mini-batch gradient sums, also the momentum buffers |
+//! | `gradients` | Q-format or auto | `"Q1.14"` | loss gradient of each layer's output |
+//! | `accumulators` | Q-format or auto | `"Q7.24"` | mini-batch gradient sums, also the momentum buffers |
 //! | `weights-master` | Q-format | none | a finer master copy of the weights that receives the updates |
 //! | `bias-master` | Q-format | none | the same for the biases |
 //!
@@ -103,6 +106,7 @@
 //! | `classes` | list | found in the data | class labels in output order, e.g. `[0, 1, 2, 3]` or `["dry", "wet"]` |
 //! | `standardize` | bool | true | scale each input channel to mean 0, standard deviation 1 over the training data |
 //! | `holdout` | decimal in [0, 1) | 0 | fraction of the rows kept out of training for evaluation |
+//! | `unit` | string | none | unit of the regression target, printed beside every RMSE and MAE (`"m³/m³"`) |
 //!
 //! # Complete example
 //! ```toml
@@ -470,12 +474,11 @@ impl FormatRole {
         }
     }
 
-    /// Whether the role may be `auto`: the quantizer picks weights, bias and activations.
+    /// Whether the role may be `auto`: the quantizer picks weights, bias and activations from
+    /// the float model and its outputs, gradients and accumulators from the float twin's
+    /// gradients; only the master copies are always given.
     pub fn may_be_auto(self) -> bool {
-        matches!(
-            self,
-            FormatRole::Weights | FormatRole::Bias | FormatRole::Activations
-        )
+        !matches!(self, FormatRole::WeightsMaster | FormatRole::BiasMaster)
     }
 
     /// Whether only layers with parameters have this role.
@@ -495,7 +498,7 @@ impl fmt::Display for FormatRole {
 pub struct AutoFormat {
     /// Layer index, from 0.
     pub layer: usize,
-    /// Weights, bias or activations.
+    /// Weights, bias, activations, gradients or accumulators.
     pub role: FormatRole,
     /// The storage word the chosen format must use.
     pub word: Word,
@@ -515,9 +518,9 @@ pub struct LayerFormats {
     /// Output activations.
     pub activations: FormatChoice,
     /// Loss gradient of the output.
-    pub gradients: QFormat,
+    pub gradients: FormatChoice,
     /// Gradient accumulators and momentum.
-    pub accumulators: QFormat,
+    pub accumulators: FormatChoice,
 }
 
 /// One checked layer.
@@ -736,6 +739,7 @@ struct RawData {
     classes: Option<Spanned<Vec<Label>>>,
     standardize: Option<bool>,
     holdout: Option<Spanned<f64>>,
+    unit: Option<String>,
 }
 
 /// One column name, or a list of them.
@@ -810,6 +814,9 @@ pub struct DataConfig {
     pub standardize: bool,
     /// Fraction of rows held out of training.
     pub holdout: f64,
+    /// The unit of the regression target, as reports print it (`m³/m³`, `°C`); empty when the
+    /// config names none.
+    pub unit: String,
 }
 
 /// A checked config. See the [module docs](self) for the file format.
@@ -1052,9 +1059,14 @@ impl Config {
                     (FormatRole::Weights, f.weights),
                     (FormatRole::Bias, f.bias),
                     (FormatRole::Activations, f.activations),
+                    (FormatRole::Gradients, f.gradients),
+                    (FormatRole::Accumulators, f.accumulators),
                 ]
             } else {
-                &[(FormatRole::Activations, f.activations)]
+                &[
+                    (FormatRole::Activations, f.activations),
+                    (FormatRole::Gradients, f.gradients),
+                ]
             };
             for &(role, choice) in roles {
                 if let FormatChoice::Auto { word } = choice {
@@ -1092,14 +1104,24 @@ impl Config {
 
     /// The model description, with the fraction bits of every `auto` format chosen by
     /// `resolve`, called once per entry of [`Config::auto_formats`]. Within a layer the
-    /// activations are resolved first, then weights and bias, so `resolve` must look at the
-    /// [`AutoFormat`] it is given rather than count calls.
+    /// activations and gradients are resolved first, then weights, bias and accumulators, so
+    /// `resolve` must look at the [`AutoFormat`] it is given rather than count calls.
     ///
     /// # Errors
     /// [`ConfigError::Invalid`] if `resolve` returns more than 31 fraction bits, if a chosen
     /// format is finer than the master copy configured for it, or if the core rejects the
     /// description.
-    pub fn model_desc_with<F>(&self, mut resolve: F) -> Result<ModelDesc, ConfigError>
+    pub fn model_desc_with<F>(&self, resolve: F) -> Result<ModelDesc, ConfigError>
+    where
+        F: FnMut(AutoFormat) -> u8,
+    {
+        self.build_desc(resolve, true)
+    }
+
+    /// [`Config::model_desc_with`]; without `final_choice`, the fraction bits of `auto`
+    /// formats are placeholders, so the check that a master copy spans its values' range is
+    /// left to the real choice.
+    fn build_desc<F>(&self, mut resolve: F, final_choice: bool) -> Result<ModelDesc, ConfigError>
     where
         F: FnMut(AutoFormat) -> u8,
     {
@@ -1130,12 +1152,20 @@ impl Config {
                 };
             let f = &l.formats;
             let out = fix(FormatRole::Activations, f.activations)?;
+            let grad = fix(FormatRole::Gradients, f.gradients)?;
             let desc = if l.kind.has_params() {
                 let w = fix(FormatRole::Weights, f.weights)?;
                 let b = fix(FormatRole::Bias, f.bias)?;
-                for (role, value, master) in [
-                    (FormatRole::WeightsMaster, w, f.weights_master),
-                    (FormatRole::BiasMaster, b, f.bias_master),
+                let accum = fix(FormatRole::Accumulators, f.accumulators)?;
+                let chosen = |c: FormatChoice| final_choice || matches!(c, FormatChoice::Fixed(_));
+                for (role, value, master, known) in [
+                    (
+                        FormatRole::WeightsMaster,
+                        w,
+                        f.weights_master,
+                        chosen(f.weights),
+                    ),
+                    (FormatRole::BiasMaster, b, f.bias_master, chosen(f.bias)),
                 ] {
                     if let Some(m) = master {
                         if m.frac < value.frac {
@@ -1149,6 +1179,25 @@ impl Config {
                                 ),
                             ));
                         }
+                        if known && m.max_value() < value.max_value() {
+                            // The first copy into the master would clamp every value beyond
+                            // its range, and each update would pull the values back to it.
+                            let int_bits = |q: QFormat| q.word.bits() as i32 - 1 - q.frac as i32;
+                            return Err(self.layer_err(
+                                i,
+                                &format!("layer[{i}].{role}"),
+                                format!(
+                                    "the master copy {m} holds values in [{}, {}), narrower \
+                                     than the values {value} it feeds, [{}, {}); give it at \
+                                     least {} integer bits, or leave the master out",
+                                    m.min_value(),
+                                    m.max_value() + m.step(),
+                                    value.min_value(),
+                                    value.max_value() + value.step(),
+                                    int_bits(value)
+                                ),
+                            ));
+                        }
                     }
                 }
                 LayerDesc {
@@ -1157,18 +1206,18 @@ impl Config {
                     weight: ParamFormats {
                         value: w,
                         master: f.weights_master,
-                        accum: f.accumulators,
+                        accum,
                     },
                     bias: ParamFormats {
                         value: b,
                         master: f.bias_master,
-                        accum: f.accumulators,
+                        accum,
                     },
                     out,
-                    grad: f.gradients,
+                    grad,
                 }
             } else {
-                LayerDesc::simple(l.kind, out, f.gradients)
+                LayerDesc::simple(l.kind, out, grad)
             };
             layers.push(desc);
         }
@@ -1454,7 +1503,7 @@ impl Checker<'_> {
         };
         // Shapes, loss and training through the core, with provisional fraction bits for the
         // auto formats (fraction bits never change shapes).
-        config.model_desc_with(|a| (a.word.bits() / 2) as u8)?;
+        config.build_desc(|a| (a.word.bits() / 2) as u8, false)?;
         self.outputs_match(&config, &raw)?;
         Ok(config)
     }
@@ -1570,14 +1619,10 @@ impl Checker<'_> {
                     v,
                     field,
                     format!(
-                        "auto{} is only for weights, bias and activations, whose ranges the \
-                         quantizer measures; give {role} a fixed format such as \"{}\"",
+                        "auto{} is not for master copies: a master's range is that of the \
+                         values it feeds and its fraction bits are the precision you ask \
+                         for; give {role} a fixed format such as \"Q3.28\"",
                         word.bits(),
-                        match role {
-                            FormatRole::Accumulators => "Q7.24",
-                            FormatRole::Gradients => "Q1.14",
-                            _ => "Q3.28",
-                        }
                     ),
                 ));
             }
@@ -1769,7 +1814,7 @@ impl Checker<'_> {
             }
         };
         // Every role with a default is Some, so the fallbacks below are those same defaults;
-        // masters may be None; the role checks keep gradients, accumulators and masters fixed.
+        // masters may be None; the role checks keep masters fixed.
         let formats = LayerFormats {
             weights: get(FormatRole::Weights).unwrap_or(DEFAULT_AUTO),
             bias: get(FormatRole::Bias).unwrap_or(DEFAULT_AUTO),
@@ -1784,8 +1829,9 @@ impl Checker<'_> {
                 None
             },
             activations: get(FormatRole::Activations).unwrap_or(DEFAULT_AUTO),
-            gradients: fixed(FormatRole::Gradients).unwrap_or(DEFAULT_GRADIENTS),
-            accumulators: fixed(FormatRole::Accumulators).unwrap_or(DEFAULT_ACCUMULATORS),
+            gradients: get(FormatRole::Gradients).unwrap_or(FormatChoice::Fixed(DEFAULT_GRADIENTS)),
+            accumulators: get(FormatRole::Accumulators)
+                .unwrap_or(FormatChoice::Fixed(DEFAULT_ACCUMULATORS)),
         };
         Ok(LayerConfig {
             kind,
@@ -2097,6 +2143,7 @@ impl Checker<'_> {
             classes,
             standardize: r.standardize.unwrap_or(true),
             holdout,
+            unit: r.unit.clone().unwrap_or_default(),
         })
     }
 }
@@ -2245,10 +2292,12 @@ target = "y"
             })
         );
         assert_eq!(c.data().holdout, 0.2);
-        let d = c.model_desc_with(|_| 10).unwrap();
+        // Q5.10 weights would outgrow the inherited Q3.28 master; Q3.12 fits under it.
+        assert!(c.model_desc_with(|_| 10).is_err());
+        let d = c.model_desc_with(|_| 12).unwrap();
         assert_eq!(
             d.layers[2].weight.value,
-            QFormat::new(Word::I16, 10).unwrap()
+            QFormat::new(Word::I16, 12).unwrap()
         );
         assert_eq!(d.layers[0].weight.value, QFormat::Q0_7);
     }
@@ -2304,15 +2353,44 @@ target = "y"
     fn formats_and_roles() {
         let t = BASE.replacen(
             "[[layer]]",
-            "[formats]\ngradients = \"auto16\"\n[[layer]]",
+            "[formats]\nweights-master = \"auto32\"\n[[layer]]",
             1,
         );
-        expect_err(&t, "formats.gradients", "only for weights");
+        expect_err(&t, "formats.weights-master", "not for master copies");
+        // Gradients and accumulators may be left to the quantizer.
+        let t = BASE.replacen(
+            "[[layer]]",
+            "[formats]\ngradients = \"auto16\"\naccumulators = \"auto32\"\n[[layer]]",
+            1,
+        );
+        let c = parse(&t).expect("auto gradients and accumulators");
+        let roles: Vec<(usize, FormatRole)> =
+            c.auto_formats().iter().map(|a| (a.layer, a.role)).collect();
+        assert!(roles.contains(&(1, FormatRole::Gradients)), "{roles:?}");
+        assert!(roles.contains(&(2, FormatRole::Accumulators)), "{roles:?}");
+        assert!(!roles.contains(&(1, FormatRole::Accumulators)), "{roles:?}");
         let t = BASE.replace(
             "units = 4",
             "units = 4\nweights = \"Q3.12\"\nweights-master = \"Q1.6\"",
         );
         expect_err(&t, "layer[0].weights-master", "coarser");
+        // Finer but narrower: Q6.1 values reach ±64, a Q3.28 master holds ±8.
+        let t = BASE.replace(
+            "units = 4",
+            "units = 4\nweights = \"Q6.1\"\nweights-master = \"Q3.28\"",
+        );
+        expect_err(&t, "layer[0].weights-master", "at least 6 integer bits");
+        // The same master for auto8 weights the quantizer puts in Q6.1.
+        let t = BASE.replace(
+            "units = 4",
+            "units = 4\nweights = \"auto8\"\nweights-master = \"Q3.28\"",
+        );
+        let c = parse(&t).expect("parses");
+        let e = c
+            .model_desc_with(|_| 1)
+            .expect_err("a Q6.1 value under a Q3.28 master");
+        assert!(e.to_string().contains("layer[0].weights-master"), "{e}");
+        assert!(c.model_desc_with(|_| 4).is_ok(), "Q3.4 fits a Q3.28 master");
         let t = BASE.replace("units = 4", "units = 4\nbias = { word = 16, frac = 40 }");
         expect_err(&t, "layer[0].bias", "at most 31");
         let t = BASE.replace("units = 4", "units = 4\nbias = { word = 12, frac = 4 }");

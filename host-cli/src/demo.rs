@@ -181,7 +181,8 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
             ),
         ),
     ];
-    let drift = DriftReport::from_run(&run, false, setup, Thresholds::default());
+    let mut drift = DriftReport::from_run(&run, false, setup, Thresholds::default());
+    drift.unit = base.config.data().unit.clone();
     write(
         out,
         "drift.json",
@@ -192,7 +193,8 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     )?;
 
     progress("5/5 guarding the calibrated weights");
-    let guard_text = guard_session(&q.desc, &q.params, &blob, &cal, &hold)?;
+    let guard = guard_session(&q.desc, &q.params, &blob, &cal, &hold)?;
+    let guard_text: String = guard.iter().map(|(k, v)| format!("  {k}: {v}\n")).collect();
 
     let mut report: Report = drift.document("hone demo: calibrating a soil-moisture probe");
     report.sections.insert(
@@ -207,15 +209,15 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     );
     report.sections.push(Section {
         heading: "Quantization".into(),
-        blocks: vec![Block::Code(quant_text.clone())],
+        blocks: crate::quant::blocks(&q.report),
     });
     report.sections.push(Section {
         heading: format!("Memory plan for {}", chip_info.name),
-        blocks: vec![Block::Code(plan_text.clone())],
+        blocks: memplan::plan_blocks(&plan_report),
     });
     report.sections.push(Section {
         heading: "Rollback guard".into(),
-        blocks: vec![Block::Code(guard_text.clone())],
+        blocks: vec![Block::KeyValues(guard)],
     });
     files.extend(
         report
@@ -262,7 +264,7 @@ fn guard_session(
     blob: &[u8],
     cal: &Prepared,
     hold: &Prepared,
-) -> Result<String, String> {
+) -> Result<Vec<(String, String)>, String> {
     let plan = Plan::of(desc).map_err(|e| e.to_string())?;
     let mut arena = vec![0u32; plan.ram_words()];
     let views = params.views();
@@ -276,14 +278,27 @@ fn guard_session(
     let cfg = GuardConfig::DEFAULT;
     let r =
         guard::calibrate(&mut t, train, holdout, &cfg, &last_good).map_err(|e| e.to_string())?;
-    Ok(format!(
-        "  held-back loss before {:.6}, after {:.6}; saturations {} ppm; trained on {} samples\n  verdict: {:?} (limits: loss may rise {} ‰, saturations ≤ {} ppm)\n",
-        r.before.mean_loss.to_f64(),
-        r.after.mean_loss.to_f64(),
-        r.after.saturation_ppm(),
-        r.trained,
-        r.verdict,
-        cfg.max_loss_rise_permille,
-        cfg.max_saturation_ppm
-    ))
+    Ok(vec![
+        (
+            "held-back loss".into(),
+            format!(
+                "before {:.6}, after {:.6}",
+                r.before.mean_loss.to_f64(),
+                r.after.mean_loss.to_f64()
+            ),
+        ),
+        (
+            "saturations".into(),
+            format!("{} ppm", r.after.saturation_ppm()),
+        ),
+        ("trained on".into(), format!("{} samples", r.trained)),
+        ("verdict".into(), format!("{:?}", r.verdict)),
+        (
+            "limits".into(),
+            format!(
+                "loss may rise {} ‰, saturations ≤ {} ppm",
+                cfg.max_loss_rise_permille, cfg.max_saturation_ppm
+            ),
+        ),
+    ])
 }

@@ -389,6 +389,35 @@ pub struct InspectReport {
     pub state: Option<StateInfo>,
     /// Every tensor.
     pub tensors: Vec<TensorInfo>,
+    /// What the decoder accepts but training would get wrong, one sentence each: a master
+    /// copy narrower than the values it feeds clamps them at the first copy.
+    pub warnings: Vec<String>,
+}
+
+/// Warnings about a valid description: master copies whose range is narrower than the values
+/// they feed (`hone` refuses such a config; a blob from elsewhere may carry one).
+pub fn master_warnings(desc: &hone_core::model::ModelDesc) -> Vec<String> {
+    let mut out = Vec::new();
+    for (k, l) in desc.layers.iter().enumerate() {
+        if !l.kind.has_params() {
+            continue;
+        }
+        for (what, p) in [("weights", l.weight), ("bias", l.bias)] {
+            if let Some(m) = p.master {
+                if m.max_value() < p.value.max_value() {
+                    out.push(format!(
+                        "layer {k} {what}: the master copy {m} holds at most {}, the values {} \
+                         reach {}; training clamps every value beyond the master's range at \
+                         its first copy",
+                        m.max_value() + m.step(),
+                        p.value,
+                        p.value.max_value() + p.value.step()
+                    ));
+                }
+            }
+        }
+    }
+    out
 }
 
 fn mode_name(m: TrainMode) -> &'static str {
@@ -559,6 +588,7 @@ fn describe(file: &str, bytes: &[u8], b: &CheckedBlob<'_>, shapes: &Shapes) -> I
             .collect(),
         state,
         tensors: b.tensors().map(|t| tensor_info(&t)).collect(),
+        warnings: master_warnings(desc),
     }
 }
 
@@ -913,6 +943,9 @@ pub fn render(r: &InspectReport) -> String {
         o,
         "  sat.: values at the word's smallest or largest raw value; mean and RMS in 4 digits"
     );
+    for w in &r.warnings {
+        let _ = writeln!(o, "\nwarning: {w}");
+    }
     o
 }
 
@@ -930,6 +963,21 @@ pub(crate) mod tests {
     const W16: QFormat = QFormat::new_unchecked(Word::I16, 12);
     const B32: QFormat = QFormat::new_unchecked(Word::I32, 16);
     const ACT: QFormat = QFormat::new_unchecked(Word::I16, 10);
+
+    #[test]
+    fn a_master_narrower_than_its_values_is_warned_of() {
+        let mut desc = sample_desc();
+        assert!(master_warnings(&desc).is_empty());
+        // Q6.9 values under a Q3.28 master.
+        desc.layers[0].weight.value = QFormat::new(Word::I16, 9).unwrap();
+        desc.layers[0].weight.master = Some(QFormat::new(Word::I32, 28).unwrap());
+        let w = master_warnings(&desc);
+        assert_eq!(w.len(), 1, "{w:?}");
+        assert!(
+            w[0].starts_with("layer 0 weights: the master copy Q3.28"),
+            "{w:?}"
+        );
+    }
 
     /// A small model for blob tests: 8 inputs, dense 16 with master weights, relu, dense 3;
     /// momentum on.

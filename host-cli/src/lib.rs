@@ -16,6 +16,7 @@ pub mod model;
 pub mod pipeline;
 pub mod plot;
 pub mod quant;
+pub mod ranges;
 pub mod report;
 pub mod scenario;
 pub mod sim;

@@ -72,7 +72,7 @@ enum Command {
     Drift(DriftArgs),
     /// Memory plan of training on a chip, with advice when it does not fit.
     ///
-    /// RAM counts the training arena, the trainer object, the engine's stack peak and the
+    /// RAM counts the training memory, the trainer object, the engine's stack peak and the
     /// reserve; flash counts the factory parameters, the engine's code and the reserve. The
     /// engine's figures are those measured on a board with the chip's core (or the core named
     /// by --core for a custom --ram/--flash target); for a core that was not measured they are
@@ -174,24 +174,29 @@ struct DriftArgs {
 /// negative value is refused as bad input (exit status 2).
 #[derive(Args)]
 struct Limits {
-    /// Largest evaluation-loss gap, % of the float loss.
+    /// Largest amount by which the fixed-point evaluation loss exceeds float, % of the float
+    /// loss.
     #[arg(long, default_value_t = Thresholds::default().max_loss_gap_pct, value_parser = limit)]
     max_loss_gap: f64,
-    /// Largest metric gap: accuracy points, or % of the float RMSE.
+    /// Largest amount by which the metric falls behind float: accuracy points, or % of the
+    /// float RMSE.
     #[arg(long, default_value_t = Thresholds::default().max_metric_gap, value_parser = limit)]
     max_metric_gap: f64,
-    /// Largest RMS weight divergence, steps of the weight format.
-    #[arg(long, default_value_t = Thresholds::default().max_weight_rms_steps, value_parser = limit)]
-    max_weight_rms: f64,
-    /// Smallest gradient SQNR, dB.
+    /// Largest divergence of a trained tensor from float, % of the tensor's RMS.
+    #[arg(long, default_value_t = Thresholds::default().max_weight_divergence_pct, value_parser = limit)]
+    max_weight_divergence: f64,
+    /// Smallest gradient SQNR at the start of the run, dB.
     #[arg(long, default_value_t = Thresholds::default().min_grad_sqnr_db, value_parser = limit)]
     min_grad_sqnr: f64,
-    /// Largest saturation rate, parts per million.
+    /// Largest saturation rate of any one tensor, parts per million.
     #[arg(long, default_value_t = Thresholds::default().max_saturation_ppm, value_parser = limit)]
     max_saturation_ppm: f64,
     /// Largest share of updates lost to rounding, %.
     #[arg(long, default_value_t = Thresholds::default().max_lost_updates_pct, value_parser = limit)]
     max_lost_updates: f64,
+    /// Fail the loss and metric gaps either way, also when fixed point does better than float.
+    #[arg(long)]
+    two_sided: bool,
 }
 
 /// A threshold of `hone drift`: see [`hone_host::drift::parse_limit`].
@@ -513,11 +518,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             }
             let model = &trained.model;
             model.save(&out).map_err(|e| anyhow!("{e}"))?;
-            let last = model
-                .history
-                .last()
-                .map(|h| (h.loss, h.metric))
-                .unwrap_or_default();
+            let last = model.history.last().map(|h| h.loss).unwrap_or_default();
             let held = if trained.held_out_rows > 0 {
                 format!(
                     " ({} held out of {} by data.holdout)",
@@ -528,16 +529,10 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                 String::new()
             };
             outln!(
-                "trained {} epochs on {} rows{held}: final loss {:.6}, {} {:.4}; written to {}",
+                "trained {} epochs on {} rows{held}: final loss {last:.6}; {}; written to {}",
                 config.epochs(),
                 trained.trained_rows,
-                last.0,
-                if dataset.classes().is_some() {
-                    "accuracy %"
-                } else {
-                    "MAE"
-                },
-                last.1,
+                hone_host::train::final_figures(&model.history, &config.data().unit),
                 out.display()
             );
             Ok(None)
@@ -621,27 +616,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                     .collect();
                 print_json(&rows)?;
             } else {
-                outln!(
-                    "{:<14} {:<28} {:<12} {:<7} {:>10} {:>10}  source",
-                    "id",
-                    "name",
-                    "core",
-                    "FPU",
-                    "RAM",
-                    "flash"
-                );
-                for c in chips {
-                    outln!(
-                        "{:<14} {:<28} {:<12} {:<7} {:>10} {:>10}  {}",
-                        c.id,
-                        c.name,
-                        c.core.to_string(),
-                        c.fpu.to_string(),
-                        c.ram_bytes,
-                        c.flash_bytes,
-                        c.source
-                    );
-                }
+                out!("{}", hone_host::chips::render_text(chips));
             }
             Ok(None)
         }
@@ -716,12 +691,17 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
     let t = Thresholds {
         max_loss_gap_pct: a.limits.max_loss_gap,
         max_metric_gap: a.limits.max_metric_gap,
-        max_weight_rms_steps: a.limits.max_weight_rms,
+        max_weight_divergence_pct: a.limits.max_weight_divergence,
         min_grad_sqnr_db: a.limits.min_grad_sqnr,
         max_saturation_ppm: a.limits.max_saturation_ppm,
         max_lost_updates_pct: a.limits.max_lost_updates,
+        two_sided: a.limits.two_sided,
     };
-    let report = DriftReport::from_run(&run, train.is_classification(), setup, t);
+    let mut report = DriftReport::from_run(&run, train.is_classification(), setup, t);
+    report.unit = base.config.data().unit.clone();
+    report
+        .advise_saturation(&q.desc, &run, &train, &q.float_params)
+        .map_err(|e| anyhow!("{e}"))?;
     if a.json {
         print_json(&report)?;
     } else {
@@ -815,6 +795,11 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
         print_json(&report)?;
     } else {
         out!("{}", render_table(&report));
+        if base.is_none() {
+            if let Some(note) = memplan::placeholder_note(&config) {
+                outln!("\n{note}");
+            }
+        }
     }
     Ok((!report.fits).then_some(CheckFailed))
 }
@@ -976,6 +961,8 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
     } else {
         out!("{}", hone_host::report::render_text_table(&t));
         outln!("● on the Pareto front of training RAM against drift (|fixed − float| evaluation loss, % of float)");
+        outln!("RAM B: the training memory alone, without the trainer object, stack and reserve that `hone plan` adds");
+        outln!("base: the setting as the config and the quantizer chose it");
     }
     if let Some(dir) = &a.out {
         let files = vec![

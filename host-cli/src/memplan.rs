@@ -1186,6 +1186,33 @@ pub(crate) fn group(n: u64) -> String {
     out
 }
 
+/// Which formats of a plan made without a float model are placeholders: the `auto` formats,
+/// whose fraction bits `hone quantize` chooses from data. Their word sizes, and so every byte
+/// count, are final. `None` when the config has no `auto` format.
+pub fn placeholder_note(config: &crate::config::Config) -> Option<String> {
+    let autos = config.auto_formats();
+    if autos.is_empty() {
+        return None;
+    }
+    let mut by_layer: Vec<(usize, Vec<&str>)> = Vec::new();
+    for a in &autos {
+        match by_layer.last_mut() {
+            Some((l, roles)) if *l == a.layer => roles.push(a.role.key()),
+            _ => by_layer.push((a.layer, vec![a.role.key()])),
+        }
+    }
+    let list: Vec<String> = by_layer
+        .iter()
+        .map(|(l, roles)| format!("layer {l} {}", roles.join(", ")))
+        .collect();
+    let text = format!(
+        "Placeholder formats (auto: the fraction bits are chosen from data by `hone quantize`, \
+         or here with --model and --train; word sizes and bytes are final): {}",
+        list.join("; ")
+    );
+    Some(wrap(&text, 96, 2))
+}
+
 /// "20 480 B".
 pub(crate) fn bytes(n: u64) -> String {
     format!("{} B", group(n))
@@ -1320,9 +1347,69 @@ fn drift_text(d: &Option<DriftCost>, not_computed: &Option<String>) -> String {
 }
 
 /// The report as aligned text for a terminal: budget, buffers, totals, verdict and advice.
+/// The plan as terminal text: model, budget, every buffer, totals, verdict and advice.
 pub fn render_table(r: &PlanReport) -> String {
+    plan_doc(r).plain
+}
+
+/// The plan as document blocks, for the HTML and Markdown reports: the same text as
+/// [`render_table`], with every table a real table.
+pub fn plan_blocks(r: &PlanReport) -> Vec<crate::report::Block> {
+    plan_doc(r).blocks
+}
+
+/// Text and tables in order, kept both as terminal text and as document blocks.
+#[derive(Default)]
+struct Doc {
+    blocks: Vec<crate::report::Block>,
+    pending: String,
+    plain: String,
+}
+
+impl std::fmt::Write for Doc {
+    fn write_str(&mut self, s: &str) -> std::fmt::Result {
+        self.pending.push_str(s);
+        self.plain.push_str(s);
+        Ok(())
+    }
+}
+
+impl Doc {
+    fn flush(&mut self) {
+        let text = std::mem::take(&mut self.pending);
+        let text = text.trim();
+        if !text.is_empty() {
+            self.blocks
+                .push(crate::report::Block::Paragraph(text.to_owned()));
+        }
+    }
+
+    fn table(&mut self, head: &[&str], align: &[Align], rows: &[Vec<String>]) {
+        self.plain.push_str(&table(head, align, rows));
+        self.flush();
+        let align = (0..head.len())
+            .map(|i| match align.get(i) {
+                Some(Align::Right) => crate::report::Align::Right,
+                _ => crate::report::Align::Left,
+            })
+            .collect();
+        self.blocks
+            .push(crate::report::Block::Table(crate::report::Table {
+                headers: head.iter().map(|h| h.to_string()).collect(),
+                rows: rows.to_vec(),
+                align,
+            }));
+    }
+
+    fn finish(mut self) -> Doc {
+        self.flush();
+        self
+    }
+}
+
+fn plan_doc(r: &PlanReport) -> Doc {
     const WIDTH: usize = 96;
-    let mut o = String::new();
+    let mut o = Doc::default();
     let m = &r.model;
     let _ = writeln!(
         o,
@@ -1377,7 +1464,8 @@ pub fn render_table(r: &PlanReport) -> String {
     match &r.engine {
         Some(e) => {
             let line = format!(
-                "Engine{}: code {} of flash, trainer state {} and stack peak {} of RAM",
+                "Engine{}: code {} of flash (rounded up to 2 KiB), trainer state {} and stack \
+                 peak {} (rounded up to 256 B) of RAM",
                 match e.basis {
                     OverheadBasis::Measured => "",
                     OverheadBasis::Estimated => " (estimate, not measured for this core)",
@@ -1446,14 +1534,14 @@ pub fn render_table(r: &PlanReport) -> String {
     ];
     let _ = writeln!(
         o,
-        "\nRAM: training arena, {}",
+        "\nRAM: training memory (the trainer's working buffers), {}",
         bytes_kib(r.ram.arena_bytes as u64)
     );
     let rows = buffer_rows(Memory::Ram);
     if rows.is_empty() {
         let _ = writeln!(o, "  (no buffers: nothing trains)");
     } else {
-        o.push_str(&table(&head, &align, &rows));
+        o.table(&head, &align, &rows);
     }
     let c = &r.ram_categories;
     let _ = writeln!(
@@ -1483,17 +1571,27 @@ pub fn render_table(r: &PlanReport) -> String {
     if rows.is_empty() {
         let _ = writeln!(o, "  (none: the model has no parameters)");
     } else {
-        o.push_str(&table(&head, &align, &rows));
+        o.table(&head, &align, &rows);
     }
 
     // Totals, RAM and flash side by side in one table each.
-    let measured = match r.engine.as_ref().map(|e| e.basis) {
-        Some(OverheadBasis::Estimated) => "estimate: largest measured",
-        _ => "measured",
+    // MEASURED_OVERHEADS: the trainer object is exact, the stack is rounded up to 256 B and
+    // the code to 2 KiB.
+    let (measured, stack_label, code_label) = match r.engine.as_ref().map(|e| e.basis) {
+        Some(OverheadBasis::Estimated) => (
+            "estimate: largest measured",
+            "estimate: largest measured, rounded up to 256 B",
+            "estimate: largest measured, rounded up to 2 KiB",
+        ),
+        _ => (
+            "measured",
+            "measured, rounded up to 256 B",
+            "measured, rounded up to 2 KiB",
+        ),
     };
     let unmeasured = "not measured, not counted";
     let mut rows = vec![vec![
-        "training arena".to_owned(),
+        "training memory".to_owned(),
         bytes(r.ram.arena_bytes as u64),
         String::new(),
     ]];
@@ -1508,7 +1606,7 @@ pub fn render_table(r: &PlanReport) -> String {
         &mut rows,
         "stack peak",
         r.ram.stack_bytes,
-        measured,
+        stack_label,
         unmeasured,
     );
     rows.push(vec![
@@ -1523,11 +1621,11 @@ pub fn render_table(r: &PlanReport) -> String {
     ]);
     rows.push(spare_row(r.ram.spare_bytes, r.ram.spare_percent));
     let _ = writeln!(o, "\nRAM totals");
-    o.push_str(&table(
+    o.table(
         &["", "bytes", ""],
         &[Align::Left, Align::Right, Align::Left],
         &rows,
-    ));
+    );
     let mut rows = vec![vec![
         "factory parameters".to_owned(),
         bytes(r.flash.parameters_bytes as u64),
@@ -1537,7 +1635,7 @@ pub fn render_table(r: &PlanReport) -> String {
         &mut rows,
         "engine code",
         r.flash.engine_code_bytes,
-        measured,
+        code_label,
         unmeasured,
     );
     rows.push(vec![
@@ -1552,11 +1650,11 @@ pub fn render_table(r: &PlanReport) -> String {
     ]);
     rows.push(spare_row(r.flash.spare_bytes, r.flash.spare_percent));
     let _ = writeln!(o, "\nFlash totals");
-    o.push_str(&table(
+    o.table(
         &["", "bytes", ""],
         &[Align::Left, Align::Right, Align::Left],
         &rows,
-    ));
+    );
 
     let _ = writeln!(o, "\n{}", r.verdict);
 
@@ -1594,7 +1692,7 @@ pub fn render_table(r: &PlanReport) -> String {
         } else {
             &["change", "RAM saved", "flash saved", "fits alone"]
         };
-        o.push_str(&table(
+        o.table(
             head,
             &[
                 Align::Left,
@@ -1604,7 +1702,7 @@ pub fn render_table(r: &PlanReport) -> String {
                 Align::Left,
             ],
             &rows,
-        ));
+        );
     }
     if let Some(c) = &r.combination {
         let lead = if c.fits {
@@ -1653,7 +1751,7 @@ pub fn render_table(r: &PlanReport) -> String {
     if let Some(e) = &r.session {
         let _ = writeln!(o, "{}", wrap(&e.render(), WIDTH, 2));
     }
-    o
+    o.finish()
 }
 
 // ---------------------------------------------------------------------------------------
@@ -2188,6 +2286,27 @@ mod tests {
             assert!(measured_row(chip).is_none(), "{id}");
             assert_eq!(engine_overhead(chip), e, "{id}");
         }
+    }
+
+    #[test]
+    fn placeholders_are_the_auto_formats() {
+        let text = "loss = \"squared-error\"\n[input]\nchannels = 2\n[formats]\n\
+                    weights = \"Q3.12\"\n[[layer]]\nkind = \"dense\"\nunits = 4\n\
+                    bias = \"Q3.12\"\n[[layer]]\nkind = \"dense\"\nunits = 1\n\
+                    [train]\nepochs = 1\nlearning-rate = 0.01\n[data]\ntarget = \"y\"\n";
+        let c = crate::config::Config::parse(std::path::Path::new("t.toml"), text).unwrap();
+        let note = placeholder_note(&c).expect("auto activations and a bias");
+        let flat = note.split_whitespace().collect::<Vec<_>>().join(" ");
+        assert!(
+            flat.ends_with("layer 0 activations; layer 1 bias, activations"),
+            "{flat}"
+        );
+        let fixed = text.replace(
+            "weights = \"Q3.12\"",
+            "weights = \"Q3.12\"\nbias = \"Q3.12\"\nactivations = \"Q3.12\"",
+        );
+        let c = crate::config::Config::parse(std::path::Path::new("t.toml"), &fixed).unwrap();
+        assert_eq!(placeholder_note(&c), None);
     }
 
     #[test]

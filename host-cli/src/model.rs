@@ -66,6 +66,12 @@ pub struct EpochRecord {
     /// The metric on the held-out rows, if any.
     #[serde(default)]
     pub eval_metric: Option<f64>,
+    /// Root-mean-square error on the training data, target units (regression only).
+    #[serde(default)]
+    pub rmse: Option<f64>,
+    /// Root-mean-square error on the held-out rows, if any (regression only).
+    #[serde(default)]
+    pub eval_rmse: Option<f64>,
 }
 
 /// A trained float model. See the [module docs](self).

@@ -11,6 +11,24 @@
 //! - **Activations**: the largest magnitude of the layer's output over the calibration data,
 //!   run through the float model, with a margin of [`ACTIVATION_MARGIN`] = 2, one integer
 //!   bit of headroom for inputs beyond the calibration data (common practice).
+//! - **Bounded activations** (tanh and hard-tanh: ±1; sigmoid: [0, 1]; clipped ReLU: [0,
+//!   ceiling]): the margin stops at the bound, since no input can push the output past it.
+//!   The bound itself must be representable: hard-tanh and clipped ReLU output it exactly
+//!   whenever they clamp, and the core's tanh and sigmoid tables return exactly ±1 (or 1)
+//!   past their domain, so a format that stops one step short (Q0.15 for tanh) would count
+//!   a saturation at every clamped output, and the per-tensor saturation check would fail
+//!   healthy models. So tanh gets Q1.14 in an `i16` (range [−2, 2), step 2^-14): one bit
+//!   finer than the Q2.13 the doubled data range gives, and never a saturation. When the
+//!   data stay below half the bound, the ordinary rule gives a finer format and is used.
+//! - **Gradients** (`auto` in `gradients`): the largest magnitude of the loss gradient of
+//!   the layer's output, run through the float twin forward and backward over the
+//!   calibration data, sample by sample, with a margin of
+//!   [`crate::ranges::GRADIENT_MARGIN`] = 4: a unit to be calibrated starts further from its
+//!   targets than the factory data, so its gradients are larger (our policy).
+//! - **Accumulators** (`auto` in `accumulators`): one sample's largest weight or bias
+//!   gradient, times what the buffer must hold ([`crate::ranges::accumulator_need`]: the
+//!   mini-batch sum, or the momentum buffer's steady state `ḡ/(1 − μ)`, after clipping),
+//!   with the same margin.
 //! - A tensor that is all zero gets the finest format whose range still covers ±1.
 //!
 //! # Report
@@ -26,12 +44,24 @@ use serde::Serialize;
 use crate::config::{AutoFormat, Config, FormatRole};
 use crate::data::Dataset;
 use crate::model::FloatModel;
+use crate::ranges::GRADIENT_MARGIN;
 use crate::sim::{evaluate_pair, Prepared, QuantParams};
 
 /// Margin over the largest weight or bias magnitude.
 pub const WEIGHT_MARGIN: f64 = 1.25;
 /// Margin over the largest activation magnitude seen on calibration data.
 pub const ACTIVATION_MARGIN: f64 = 2.0;
+
+/// The largest magnitude a layer kind can output whatever its input, if it is bounded: 1 for
+/// tanh, hard-tanh and sigmoid, the ceiling for clipped ReLU.
+pub fn output_bound(kind: hone_core::model::LayerKind) -> Option<f64> {
+    use hone_core::model::LayerKind;
+    match kind {
+        LayerKind::Tanh | LayerKind::HardTanh | LayerKind::Sigmoid => Some(1.0),
+        LayerKind::ClippedRelu { ceiling } => Some(ceiling as f64),
+        _ => None,
+    }
+}
 
 /// The most fraction bits for which `max_abs · margin` still fits `word`.
 pub fn frac_for(max_abs: f64, margin: f64, word: Word) -> u8 {
@@ -59,6 +89,8 @@ pub struct ChosenFormat {
     pub max_abs: f64,
     /// Margin applied.
     pub margin: f64,
+    /// For a bounded activation, the bound the margin stopped at.
+    pub bound: Option<f64>,
 }
 
 /// Quantization error of one parameter tensor.
@@ -93,7 +125,8 @@ pub struct QuantReport {
     pub tensors: Vec<TensorError>,
     /// Name of the metric: `accuracy_pct` or `rmse`.
     pub metric: String,
-    /// Float model on the calibration data: loss and metric.
+    /// Float model on the calibration data: loss, against the true targets (as every loss
+    /// and metric here).
     pub float_loss: f64,
     /// Float metric.
     pub float_metric: f64,
@@ -101,12 +134,19 @@ pub struct QuantReport {
     pub fixed_loss: f64,
     /// Quantized metric.
     pub fixed_metric: f64,
+    /// Float model's mean absolute error in target units (NaN, `null` in JSON, for
+    /// classification).
+    pub float_mae: f64,
+    /// Quantized model's mean absolute error.
+    pub fixed_mae: f64,
     /// Input values that saturated when quantized.
     pub input_saturations: usize,
     /// Regression targets that saturated the output format when quantized.
     pub target_saturations: usize,
     /// Samples evaluated.
     pub samples: usize,
+    /// Unit of the regression target (`data.unit`), empty if the config names none.
+    pub unit: String,
 }
 
 /// A quantized model ready to export or fine-tune.
@@ -196,6 +236,17 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         .model_desc_with(crate::train::provisional_frac)
         .map_err(|e| e.to_string())?;
     let ranges = activation_ranges(&provisional, &float_params, &scaled)?;
+    let auto_grads = cfg
+        .auto_formats()
+        .iter()
+        .any(|a| matches!(a.role, FormatRole::Gradients | FormatRole::Accumulators));
+    let grads = if auto_grads {
+        let p = Prepared::new(&scaled, &provisional)?;
+        crate::ranges::float_ranges(&provisional, &float_params, &p)?
+    } else {
+        Vec::new()
+    };
+    let train = cfg.train();
     let mut chosen = Vec::new();
     let desc = cfg
         .model_desc_with(|a: AutoFormat| {
@@ -214,15 +265,40 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
                         .fold(0f64, |m, v| m.max(v.abs())),
                     WEIGHT_MARGIN,
                 ),
+                FormatRole::Gradients => (grads[a.layer].grad, GRADIENT_MARGIN),
+                FormatRole::Accumulators => {
+                    let g = &grads[a.layer];
+                    (
+                        crate::ranges::accumulator_need(
+                            g.weight_grad.max(g.bias_grad),
+                            train.batch,
+                            train.momentum.to_f64(),
+                            train.clip.to_f64(),
+                        ),
+                        GRADIENT_MARGIN,
+                    )
+                }
                 _ => (ranges[a.layer], ACTIVATION_MARGIN),
             };
-            let frac = frac_for(max_abs, margin, a.word);
+            let bound = match a.role {
+                FormatRole::Activations => cfg
+                    .layers()
+                    .get(a.layer)
+                    .and_then(|l| output_bound(l.kind))
+                    .filter(|&b| max_abs * margin > b),
+                _ => None,
+            };
+            let frac = match bound {
+                Some(b) => frac_for(b, 1.0, a.word),
+                None => frac_for(max_abs, margin, a.word),
+            };
             chosen.push(ChosenFormat {
                 layer: a.layer,
                 role: a.role.key().into(),
                 format: QFormat::new_unchecked(a.word, frac).to_string(),
                 max_abs,
                 margin,
+                bound,
             });
             frac
         })
@@ -258,8 +334,7 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         ));
     }
     let prepared = Prepared::new(&scaled, &desc)?;
-    let (fixed_loss, float_loss, fixed_metric, float_metric) =
-        evaluate_pair(&desc, &params, &float_params, &prepared)?;
+    let pair = evaluate_pair(&desc, &params, &float_params, &prepared)?;
     let report = QuantReport {
         chosen,
         tensors,
@@ -268,13 +343,16 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         } else {
             "rmse".into()
         },
-        float_loss,
-        float_metric,
-        fixed_loss,
-        fixed_metric,
+        float_loss: pair.float_loss,
+        float_metric: pair.float_metric,
+        fixed_loss: pair.fixed_loss,
+        fixed_metric: pair.fixed_metric,
+        float_mae: pair.float_mae,
+        fixed_mae: pair.fixed_mae,
         input_saturations: prepared.input_saturations,
         target_saturations: prepared.target_saturations,
         samples: prepared.len(),
+        unit: cfg.data().unit.clone(),
     };
     Ok(Quantized {
         desc,
@@ -284,59 +362,100 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
     })
 }
 
-/// Renders a quantization report as aligned text.
-pub fn render(r: &QuantReport) -> String {
+/// The two tables of a quantization report: the formats chosen from data (`None` when the
+/// config chose every format), and the error per parameter tensor.
+pub fn tables(r: &QuantReport) -> (Option<crate::report::Table>, crate::report::Table) {
+    use crate::report::{Align, Table};
+    let strings = |v: &[&str]| v.iter().map(|h| h.to_string()).collect::<Vec<_>>();
+    let chosen = (!r.chosen.is_empty()).then(|| Table {
+        headers: strings(&["layer", "role", "format", "max |value|", "margin"]),
+        rows: r
+            .chosen
+            .iter()
+            .map(|c| {
+                vec![
+                    c.layer.to_string(),
+                    c.role.clone(),
+                    c.format.clone(),
+                    format!("{:.5}", c.max_abs),
+                    match c.bound {
+                        Some(b) => format!("bound {b}"),
+                        None => format!("{:.2}×", c.margin),
+                    },
+                ]
+            })
+            .collect(),
+        align: vec![
+            Align::Right,
+            Align::Left,
+            Align::Left,
+            Align::Right,
+            Align::Right,
+        ],
+    });
+    let errors = Table {
+        headers: strings(&[
+            "layer", "tensor", "format", "values", "max |w|", "RMS err", "max err", "SQNR dB",
+            "sat.",
+        ]),
+        rows: r
+            .tensors
+            .iter()
+            .map(|t| {
+                vec![
+                    t.layer.to_string(),
+                    t.role.clone(),
+                    t.format.clone(),
+                    t.values.to_string(),
+                    format!("{:.3e}", t.max_abs),
+                    format!("{:.3e}", t.rms_error),
+                    format!("{:.3e}", t.max_error),
+                    if t.sqnr_db.is_finite() {
+                        format!("{:.1}", t.sqnr_db)
+                    } else {
+                        "exact".into()
+                    },
+                    t.saturated.to_string(),
+                ]
+            })
+            .collect(),
+        align: vec![
+            Align::Right,
+            Align::Left,
+            Align::Left,
+            Align::Right,
+            Align::Right,
+            Align::Right,
+            Align::Right,
+            Align::Right,
+            Align::Right,
+        ],
+    };
+    (chosen, errors)
+}
+
+/// The lines below the tables: the metrics before and after quantization against the true
+/// targets, and the values the formats could not hold.
+pub fn summary(r: &QuantReport) -> String {
     let mut s = String::new();
-    if !r.chosen.is_empty() {
-        s.push_str("Formats chosen from data\n");
-        s.push_str(&format!(
-            "  {:>5}  {:<12} {:<16} {:>12} {:>7}\n",
-            "layer", "role", "format", "max |value|", "margin"
-        ));
-        for c in &r.chosen {
-            s.push_str(&format!(
-                "  {:>5}  {:<12} {:<16} {:>12.5} {:>6.2}×\n",
-                c.layer, c.role, c.format, c.max_abs, c.margin
-            ));
-        }
-        s.push('\n');
-    }
-    s.push_str("Quantization error per parameter tensor\n");
-    s.push_str(&format!(
-        "  {:>5}  {:<8} {:<16} {:>7} {:>11} {:>11} {:>11} {:>9} {:>5}\n",
-        "layer", "tensor", "format", "values", "max |w|", "RMS err", "max err", "SQNR dB", "sat."
-    ));
-    for t in &r.tensors {
-        let sqnr = if t.sqnr_db.is_finite() {
-            format!("{:.1}", t.sqnr_db)
+    let figures = |metric: f64, mae: f64| {
+        if r.metric == "accuracy_pct" {
+            format!("accuracy {metric:.2} %")
         } else {
-            "exact".into()
-        };
-        s.push_str(&format!(
-            "  {:>5}  {:<8} {:<16} {:>7} {:>11.3e} {:>11.3e} {:>11.3e} {:>9} {:>5}\n",
-            t.layer,
-            t.role,
-            t.format,
-            t.values,
-            t.max_abs,
-            t.rms_error,
-            t.max_error,
-            sqnr,
-            t.saturated
-        ));
-    }
-    let (unit, fmt_metric): (&str, fn(f64) -> String) = if r.metric == "accuracy_pct" {
-        ("accuracy", |v| format!("{v:.2} %"))
-    } else {
-        ("RMSE", |v| format!("{v:.5}"))
+            format!(
+                "RMSE {}, MAE {}",
+                crate::train::in_unit(metric, &r.unit),
+                crate::train::in_unit(mae, &r.unit)
+            )
+        }
     };
     s.push_str(&format!(
-        "\nOn {} calibration samples: float loss {:.6}, {unit} {}; quantized loss {:.6}, {unit} {} (change {:+.6} loss)\n",
+        "On {} calibration samples, against the true targets:\n  float      {}, loss {:.6}\n  quantized  {}, loss {:.6} (change {:+.6})\n",
         r.samples,
+        figures(r.float_metric, r.float_mae),
         r.float_loss,
-        fmt_metric(r.float_metric),
+        figures(r.fixed_metric, r.fixed_mae),
         r.fixed_loss,
-        fmt_metric(r.fixed_metric),
         r.fixed_loss - r.float_loss
     ));
     if r.input_saturations > 0 {
@@ -352,6 +471,48 @@ pub fn render(r: &QuantReport) -> String {
         ));
     }
     s
+}
+
+/// What the margin column means, for documents.
+pub const MARGIN_NOTE: &str = "A format keeps as many fraction bits as its largest value \
+    times the margin leaves: weights and biases 1.25× (fine-tuning may grow them by a \
+    quarter), activations 2× (one integer bit for inputs beyond the calibration data), \
+    gradients and accumulators 4×; a bounded activation (tanh, sigmoid, hard-tanh, clipped \
+    ReLU) stops at its bound.";
+
+/// Renders a quantization report as aligned text.
+pub fn render(r: &QuantReport) -> String {
+    use crate::report::render_text_table;
+    let mut s = String::new();
+    let (chosen, errors) = tables(r);
+    if let Some(t) = chosen {
+        s.push_str("Formats chosen from data\n");
+        s.push_str(&render_text_table(&t));
+        s.push('\n');
+    }
+    s.push_str("Quantization error per parameter tensor\n");
+    s.push_str(&render_text_table(&errors));
+    s.push('\n');
+    s.push_str(&summary(r));
+    s
+}
+
+/// The report as document blocks: both tables, the margins explained, the summary.
+pub fn blocks(r: &QuantReport) -> Vec<crate::report::Block> {
+    use crate::report::Block;
+    let (chosen, errors) = tables(r);
+    let mut b = Vec::new();
+    if let Some(t) = chosen {
+        b.push(Block::Paragraph("Formats chosen from data".into()));
+        b.push(Block::Table(t));
+        b.push(Block::Paragraph(MARGIN_NOTE.into()));
+    }
+    b.push(Block::Paragraph(
+        "Quantization error per parameter tensor".into(),
+    ));
+    b.push(Block::Table(errors));
+    b.push(Block::Paragraph(summary(r).trim_end().to_owned()));
+    b
 }
 
 #[cfg(test)]
@@ -370,6 +531,25 @@ mod tests {
         assert_eq!(frac_for(0.0, 2.0, Word::I8), 6);
         // Tiny values get many fraction bits, capped at 31.
         assert_eq!(frac_for(1e-12, 1.0, Word::I32), 31);
+    }
+
+    #[test]
+    fn bounded_outputs_get_the_format_of_their_bound() {
+        use hone_core::model::LayerKind;
+        // ±1 needs one integer bit to be representable: Q1.14 in i16, Q1.6 in i8.
+        assert_eq!(output_bound(LayerKind::Tanh), Some(1.0));
+        assert_eq!(frac_for(1.0, 1.0, Word::I16), 14);
+        assert_eq!(frac_for(1.0, 1.0, Word::I8), 6);
+        // The data rule gives Q2.13 once a float tanh output reaches 1 (it does for inputs
+        // beyond about 19, where f64's tanh rounds to 1).
+        assert_eq!(frac_for(1.0, ACTIVATION_MARGIN, Word::I16), 13);
+        // A ceiling of 6 needs three integer bits.
+        assert_eq!(
+            output_bound(LayerKind::ClippedRelu { ceiling: 6 }),
+            Some(6.0)
+        );
+        assert_eq!(frac_for(6.0, 1.0, Word::I16), 12);
+        assert_eq!(output_bound(LayerKind::Relu), None);
     }
 
     #[test]

@@ -319,12 +319,23 @@ pub struct EpochDrift {
     pub fixed_metric: f64,
     /// The same for the float twin.
     pub float_metric: f64,
+    /// Mean absolute error after the epoch in target units, fixed point (NaN, written `null`
+    /// in JSON, for classification).
+    pub fixed_mae: f64,
+    /// The same for the float twin.
+    pub float_mae: f64,
+    /// Divergence of the trained tensor that moved furthest from float, relative to its own
+    /// magnitude: `100 · RMS(fixed − float) / RMS(float)` in %, the denominator at least one
+    /// step of the tensor's format.
+    pub weight_rel_pct: f64,
     /// RMS over all trained values of |fixed − float| in steps of each value's format.
     pub weight_rms_steps: f64,
     /// Largest |fixed − float| of a trained value, in steps of its format.
     pub weight_max_steps: f64,
     /// SQNR of the fixed-point gradients against the float gradients on the probe samples, dB
-    /// (`None` when not probed or no gradient).
+    /// (`None` when not probed or no gradient). Each probe sample's weight and bias gradients
+    /// are measured on their own, so gradients of opposite sign do not cancel into a sum that
+    /// is mostly noise: `10·log10(Σ g² / Σ (g_fixed − g)²)` over samples and values.
     pub grad_sqnr_db: Option<f64>,
     /// Values that saturated during the epoch (activations, gradients, accumulators, updates).
     pub saturations: u64,
@@ -364,6 +375,21 @@ pub struct TensorTotals {
     pub saturations: u64,
     /// Updates lost to rounding.
     pub lost_updates: u64,
+    /// For trained weights and biases: the divergence from float at the end of the run,
+    /// relative to the tensor's own magnitude, % (as [`EpochDrift::weight_rel_pct`]).
+    pub divergence_pct: Option<f64>,
+}
+
+/// One evaluation sample at the end of a regression run: its reference (the true target of
+/// the first output) and what each side predicts for it.
+#[derive(Clone, Copy, Debug, Default, PartialEq, Serialize)]
+pub struct Prediction {
+    /// The true target.
+    pub reference: f64,
+    /// The fixed-point model's output.
+    pub fixed: f64,
+    /// The float twin's output.
+    pub float: f64,
 }
 
 /// The outcome of [`run_side_by_side`].
@@ -381,6 +407,8 @@ pub struct DriftRun {
     pub tensors: Vec<TensorTotals>,
     /// The generator state of the fixed-point trainer at the end.
     pub rng_state: [u32; 4],
+    /// Regression only: every evaluation sample's reference and both predictions at the end.
+    pub predictions: Vec<Prediction>,
 }
 
 /// Progress of a run, for a progress bar.
@@ -411,60 +439,128 @@ fn stats_totals(s: &LayerStats) -> (u64, u64, u64, u64) {
     )
 }
 
-/// Divergence of the trained values: RMS and max of |fixed − float| in steps of each value's
-/// format. Frozen tensors are equal on both sides by construction and are left out.
+/// Divergence of the trained values from float.
+#[derive(Clone, Debug, Default)]
+struct Divergence {
+    /// RMS of |fixed − float| in steps of each value's format, over every trained value.
+    rms_steps: f64,
+    /// Largest |fixed − float| in steps of its format.
+    max_steps: f64,
+    /// Per trained tensor: layer, `weight` or `bias`, and `100 · RMS(fixed − float) /
+    /// max(RMS(float), step)`.
+    relative: Vec<(usize, &'static str, f64)>,
+}
+
+impl Divergence {
+    /// The largest relative divergence of any trained tensor, %.
+    fn worst_pct(&self) -> f64 {
+        self.relative.iter().map(|r| r.2).fold(0.0, f64::max)
+    }
+}
+
+/// Divergence of the trained values: in steps of each value's format, and per tensor relative
+/// to the tensor's own magnitude. Frozen tensors are equal on both sides by construction and
+/// are left out.
 fn divergence(
     desc: &ModelDesc,
     plan: &Plan,
     fixed: &Trainer<'_>,
     float: &Twin<'_, f64>,
-) -> (f64, f64) {
+) -> Divergence {
     let (mut sum, mut n, mut max) = (0f64, 0usize, 0f64);
+    let mut relative = Vec::new();
     for (k, l) in desc.layers.iter().enumerate() {
         let (Some(q), Some(f)) = (fixed.params(k), float.params(k)) else {
             continue;
         };
         let s = plan.layers[k];
-        for (raw, fv, fmt, trained) in [
-            (q.weight, f.weight, l.weight.value, s.weight.is_some()),
-            (q.bias, f.bias, l.bias.value, s.bias.is_some()),
+        for (name, raw, fv, fmt, trained) in [
+            (
+                "weight",
+                q.weight,
+                f.weight,
+                l.weight.value,
+                s.weight.is_some(),
+            ),
+            ("bias", q.bias, f.bias, l.bias.value, s.bias.is_some()),
         ] {
-            if !trained {
+            if !trained || fv.is_empty() {
                 continue;
             }
             let step = fmt.step();
+            let (mut d2, mut f2) = (0f64, 0f64);
             for (i, &x) in fv.iter().enumerate() {
-                let d = ((fmt.to_f64(raw.at(i)) - x) / step).abs();
+                let e = fmt.to_f64(raw.at(i)) - x;
+                let d = (e / step).abs();
                 sum += d * d;
                 n += 1;
                 max = max.max(d);
+                d2 += e * e;
+                f2 += x * x;
             }
+            let m = fv.len() as f64;
+            let scale = (f2 / m).sqrt().max(step);
+            relative.push((k, name, 100.0 * (d2 / m).sqrt() / scale));
         }
     }
-    if n == 0 {
-        (0.0, 0.0)
-    } else {
-        ((sum / n as f64).sqrt(), max)
+    Divergence {
+        rms_steps: if n == 0 { 0.0 } else { (sum / n as f64).sqrt() },
+        max_steps: max,
+        relative,
     }
 }
 
-/// Mean loss and metric of both sides on `data` (no training, generators untouched).
+/// Loss and metrics of the fixed-point model and its float twin on one data set, every one
+/// computed against the true targets (a target the output format cannot hold still counts
+/// at its real value).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Serialize)]
+pub struct PairFigures {
+    /// Mean loss, fixed point.
+    pub fixed_loss: f64,
+    /// Mean loss, float twin.
+    pub float_loss: f64,
+    /// Accuracy in % or RMSE in target units, fixed point.
+    pub fixed_metric: f64,
+    /// The same for the float twin.
+    pub float_metric: f64,
+    /// Mean absolute error in target units, fixed point (NaN for classification).
+    pub fixed_mae: f64,
+    /// The same for the float twin.
+    pub float_mae: f64,
+}
+
+/// `½ Σ (y − t)²` of a fixed-point output against real targets: the core's squared-error
+/// loss, but against the true targets rather than their quantized form.
+fn squared_error_true(y: Tensor<'_>, t: &[f64]) -> f64 {
+    t.iter()
+        .enumerate()
+        .map(|(j, &t)| 0.5 * (y.fmt.to_f64(y.raw.at(j)) - t).powi(2))
+        .sum()
+}
+
+/// Mean loss and metrics of both sides on `data` (no training, generators untouched).
 fn evaluate_both(
     fixed: &mut Trainer<'_>,
     float: &mut Twin<'_, f64>,
     data: &Prepared,
     in_fmt: QFormat,
-) -> Result<(f64, f64, f64, f64), String> {
+) -> Result<PairFigures, String> {
     if data.is_empty() {
-        return Ok((f64::NAN, f64::NAN, f64::NAN, f64::NAN));
+        return Ok(PairFigures {
+            fixed_loss: f64::NAN,
+            float_loss: f64::NAN,
+            fixed_metric: f64::NAN,
+            float_metric: f64::NAN,
+            fixed_mae: f64::NAN,
+            float_mae: f64::NAN,
+        });
     }
-    let (mut lq, mut lf, mut mq, mut mf) = (0f64, 0f64, 0f64, 0f64);
+    let (mut lq, mut lf, mut mq, mut mf, mut aq, mut af) = (0f64, 0f64, 0f64, 0f64, 0f64, 0f64);
     for i in 0..data.len() {
         let (x, t) = data.fixed(i, in_fmt);
         let oq = fixed
             .evaluate(x, t)
             .map_err(|e| format!("sample {}: {e}", i + 1))?;
-        lq += oq.loss.to_f64();
         let (xf, tf) = data.float(i);
         let of = float
             .evaluate(xf, tf)
@@ -472,32 +568,51 @@ fn evaluate_both(
         lf += of.loss;
         match &data.target {
             PreparedTargets::Classes(labels) => {
+                lq += oq.loss.to_f64();
                 mq += (oq.predicted == Some(labels[i])) as u8 as f64;
                 mf += (of.predicted == Some(labels[i])) as u8 as f64;
             }
             PreparedTargets::Values { y, .. } => {
                 let yq = fixed.output();
-                let fmt = yq.fmt;
+                lq += squared_error_true(yq, &y[i]);
+                let m = y[i].len() as f64;
                 for (j, &t) in y[i].iter().enumerate() {
-                    mq += (fmt.to_f64(yq.raw.at(j)) - t).powi(2) / y[i].len() as f64;
+                    let e = yq.fmt.to_f64(yq.raw.at(j)) - t;
+                    mq += e * e / m;
+                    aq += e.abs() / m;
                 }
                 let out = float.output();
                 for (j, &t) in y[i].iter().enumerate() {
-                    mf += (out[j] - t).powi(2) / y[i].len() as f64;
+                    let e = out[j] - t;
+                    mf += e * e / m;
+                    af += e.abs() / m;
                 }
             }
         }
     }
     let n = data.len() as f64;
-    let (mq, mf) = if data.is_classification() {
-        (100.0 * mq / n, 100.0 * mf / n)
+    Ok(if data.is_classification() {
+        PairFigures {
+            fixed_loss: lq / n,
+            float_loss: lf / n,
+            fixed_metric: 100.0 * mq / n,
+            float_metric: 100.0 * mf / n,
+            fixed_mae: f64::NAN,
+            float_mae: f64::NAN,
+        }
     } else {
-        ((mq / n).sqrt(), (mf / n).sqrt())
-    };
-    Ok((lq / n, lf / n, mq, mf))
+        PairFigures {
+            fixed_loss: lq / n,
+            float_loss: lf / n,
+            fixed_metric: (mq / n).sqrt(),
+            float_metric: (mf / n).sqrt(),
+            fixed_mae: aq / n,
+            float_mae: af / n,
+        }
+    })
 }
 
-/// Gradient SQNR on the first `probe` training samples, in dB.
+/// Gradient SQNR on the first `probe` training samples, each probed on its own, in dB.
 fn grad_sqnr(
     desc: &ModelDesc,
     fixed: &mut Trainer<'_>,
@@ -510,41 +625,72 @@ fn grad_sqnr(
         return Ok(None);
     }
     let in_fmt = desc.input_format;
-    fixed
-        .probe_gradients((0..n).map(|i| data.fixed(i, in_fmt)))
-        .map_err(|e| e.to_string())?;
-    float
-        .probe_gradients((0..n).map(|i| data.float(i)))
-        .map_err(|e| e.to_string())?;
     let (mut sig, mut noise) = (0f64, 0f64);
-    for (k, l) in desc.layers.iter().enumerate() {
-        let (Some(q), Some(f)) = (fixed.accumulators(k), float.accumulators(k)) else {
-            continue;
-        };
-        let live = fixed.live_fracs(k).unwrap_or_default();
-        let fw = QFormat {
-            word: l.weight.accum.word,
-            frac: live.accum_weight,
-        };
-        let fb = QFormat {
-            word: l.bias.accum.word,
-            frac: live.accum_bias,
-        };
-        for (raw, fv, fmt) in [(q.weight, f.weight, fw), (q.bias, f.bias, fb)] {
-            for (i, &g) in fv.iter().enumerate() {
-                let e = fmt.to_f64(raw.at(i)) - g;
-                sig += g * g;
-                noise += e * e;
+    for i in 0..n {
+        fixed
+            .probe_gradients(std::iter::once(data.fixed(i, in_fmt)))
+            .map_err(|e| e.to_string())?;
+        float
+            .probe_gradients(std::iter::once(data.float(i)))
+            .map_err(|e| e.to_string())?;
+        for (k, l) in desc.layers.iter().enumerate() {
+            let (Some(q), Some(f)) = (fixed.accumulators(k), float.accumulators(k)) else {
+                continue;
+            };
+            let live = fixed.live_fracs(k).unwrap_or_default();
+            let fw = QFormat {
+                word: l.weight.accum.word,
+                frac: live.accum_weight,
+            };
+            let fb = QFormat {
+                word: l.bias.accum.word,
+                frac: live.accum_bias,
+            };
+            for (raw, fv, fmt) in [(q.weight, f.weight, fw), (q.bias, f.bias, fb)] {
+                for (i, &g) in fv.iter().enumerate() {
+                    let e = fmt.to_f64(raw.at(i)) - g;
+                    sig += g * g;
+                    noise += e * e;
+                }
             }
         }
+        fixed.clear_probe();
+        float.clear_probe();
     }
-    fixed.clear_probe();
-    float.clear_probe();
     Ok(match (sig > 0.0, noise > 0.0) {
         (false, _) => None,
         (true, false) => Some(f64::INFINITY),
         (true, true) => Some(10.0 * (sig / noise).log10()),
     })
+}
+
+/// Saturations of the first copy of each trained value into its master copy: a value the
+/// master's range cannot hold is clamped there before any update (the config refuses such a
+/// master, but a description from elsewhere may carry one). Per layer: weights, bias.
+fn master_copy_saturations(desc: &ModelDesc, plan: &Plan, init: &QuantParams) -> Vec<(u64, u64)> {
+    desc.layers
+        .iter()
+        .enumerate()
+        .map(|(k, l)| {
+            let Some((w, b)) = init.layers.get(k) else {
+                return (0, 0);
+            };
+            let s = plan.layers[k];
+            let count = |vals: &OwnedRaw, pf: hone_core::model::ParamFormats, on: bool| {
+                let Some(m) = pf.master.filter(|_| on) else {
+                    return 0;
+                };
+                vals.real(pf.value)
+                    .iter()
+                    .filter(|&&v| v > m.max_value() || v < m.min_value())
+                    .count() as u64
+            };
+            (
+                count(w, l.weight, s.master_weight.is_some()),
+                count(b, l.bias, s.master_bias.is_some()),
+            )
+        })
+        .collect()
 }
 
 /// Trains the fixed-point model and its float twin side by side. See the [module docs](self).
@@ -581,21 +727,25 @@ pub fn run_side_by_side(
     let mut epochs = Vec::new();
     let mut steps = Vec::new();
 
-    let (eq, ef, mq, mf) = evaluate_both(&mut fixed, &mut float, eval, in_fmt)?;
+    let e0 = evaluate_both(&mut fixed, &mut float, eval, in_fmt)?;
     let g0 = grad_sqnr(desc, &mut fixed, &mut float, train, opts.probe)?;
     // Before any step the weights differ by the quantization error alone.
-    let (rms0, max0) = divergence(desc, &plan, &fixed, &float);
+    let d0 = divergence(desc, &plan, &fixed, &float);
     epochs.push(EpochDrift {
         epoch: 0,
-        fixed_eval_loss: eq,
-        float_eval_loss: ef,
-        fixed_metric: mq,
-        float_metric: mf,
-        weight_rms_steps: rms0,
-        weight_max_steps: max0,
+        fixed_eval_loss: e0.fixed_loss,
+        float_eval_loss: e0.float_loss,
+        fixed_metric: e0.fixed_metric,
+        float_metric: e0.float_metric,
+        fixed_mae: e0.fixed_mae,
+        float_mae: e0.float_mae,
+        weight_rel_pct: d0.worst_pct(),
+        weight_rms_steps: d0.rms_steps,
+        weight_max_steps: d0.max_steps,
         grad_sqnr_db: g0,
         ..Default::default()
     });
+    let first_copy = master_copy_saturations(desc, &plan, init_fixed);
     let mut prev = vec![(0u64, 0u64, 0u64, 0u64); desc.layers.len()];
     for epoch in 1..=opts.epochs {
         let order: Vec<usize> = if opts.shuffle {
@@ -610,20 +760,25 @@ pub fn run_side_by_side(
                 .step(x, t)
                 .map_err(|e| format!("training sample {}: {e}", i + 1))?;
             let (xf, tf) = train.float(i);
+            // Regression losses count against the true targets, not their quantized form.
+            let fixed_loss = match &train.target {
+                PreparedTargets::Values { y, .. } => squared_error_true(fixed.output(), &y[i]),
+                PreparedTargets::Classes(_) => oq.loss.to_f64(),
+            };
             let of = float
                 .step(xf, tf)
                 .map_err(|e| format!("training sample {}: {e}", i + 1))?;
-            lq += oq.loss.to_f64();
+            lq += fixed_loss;
             lf += of.loss;
             done += 1;
             if opts.per_step {
-                let (rms, max) = divergence(desc, &plan, &fixed, &float);
+                let d = divergence(desc, &plan, &fixed, &float);
                 steps.push(StepDrift {
                     step: done as u32,
-                    fixed_loss: oq.loss.to_f64(),
+                    fixed_loss,
                     float_loss: of.loss,
-                    weight_rms_steps: rms,
-                    weight_max_steps: max,
+                    weight_rms_steps: d.rms_steps,
+                    weight_max_steps: d.max_steps,
                 });
             }
             if done.is_multiple_of(64) {
@@ -633,22 +788,30 @@ pub fn run_side_by_side(
         fixed.flush();
         float.flush();
         let n = train.len().max(1) as f64;
-        let (eq, ef, mq, mf) = evaluate_both(&mut fixed, &mut float, eval, in_fmt)?;
-        let (rms, max) = divergence(desc, &plan, &fixed, &float);
+        let ev = evaluate_both(&mut fixed, &mut float, eval, in_fmt)?;
+        let d = divergence(desc, &plan, &fixed, &float);
         let g = grad_sqnr(desc, &mut fixed, &mut float, train, opts.probe)?;
         let mut e = EpochDrift {
             epoch,
             fixed_train_loss: lq / n,
             float_train_loss: lf / n,
-            fixed_eval_loss: eq,
-            float_eval_loss: ef,
-            fixed_metric: mq,
-            float_metric: mf,
-            weight_rms_steps: rms,
-            weight_max_steps: max,
+            fixed_eval_loss: ev.fixed_loss,
+            float_eval_loss: ev.float_loss,
+            fixed_metric: ev.fixed_metric,
+            float_metric: ev.float_metric,
+            fixed_mae: ev.fixed_mae,
+            float_mae: ev.float_mae,
+            weight_rel_pct: d.worst_pct(),
+            weight_rms_steps: d.rms_steps,
+            weight_max_steps: d.max_steps,
             grad_sqnr_db: g,
             ..Default::default()
         };
+        if epoch == 1 {
+            // The first copy into the master happened before the first step.
+            let extra: u64 = first_copy.iter().map(|c| c.0 + c.1).sum();
+            e.saturations += extra;
+        }
         for (k, p) in prev.iter_mut().enumerate() {
             let now = fixed.stats(k).map(stats_totals).unwrap_or_default();
             e.saturations += now.0 - p.0;
@@ -660,24 +823,31 @@ pub fn run_side_by_side(
         epochs.push(e);
         progress(Progress { done, total });
     }
+    let last = divergence(desc, &plan, &fixed, &float);
     let mut tensors = Vec::new();
     for k in 0..desc.layers.len() {
         let Some(s) = fixed.stats(k) else { continue };
-        for (name, t) in [
-            ("out", s.out),
-            ("grad", s.grad),
-            ("weight", s.weight),
-            ("bias", s.bias),
-            ("accum_weight", s.accum_weight),
-            ("accum_bias", s.accum_bias),
+        let copy = first_copy.get(k).copied().unwrap_or_default();
+        for (name, t, extra) in [
+            ("out", s.out, 0),
+            ("grad", s.grad, 0),
+            ("weight", s.weight, copy.0),
+            ("bias", s.bias, copy.1),
+            ("accum_weight", s.accum_weight, 0),
+            ("accum_bias", s.accum_bias, 0),
         ] {
-            if t.values > 0 {
+            if t.values > 0 || extra > 0 {
                 tensors.push(TensorTotals {
                     layer: k,
                     tensor: name,
                     values: t.values as u64,
-                    saturations: t.saturations as u64,
+                    saturations: t.saturations as u64 + extra,
                     lost_updates: t.lost_updates as u64,
+                    divergence_pct: last
+                        .relative
+                        .iter()
+                        .find(|r| r.0 == k && r.1 == name)
+                        .map(|r| r.2),
                 });
             }
         }
@@ -696,6 +866,27 @@ pub fn run_side_by_side(
             None => (Vec::new(), Vec::new()),
         })
         .collect();
+    let mut predictions = Vec::new();
+    if let PreparedTargets::Values { y, .. } = &eval.target {
+        for (i, t) in y.iter().enumerate() {
+            let (x, _) = eval.fixed(i, in_fmt);
+            let out = fixed
+                .predict(x)
+                .map_err(|e| format!("evaluation sample {}: {e}", i + 1))?;
+            let fx = out.fmt.to_f64(out.raw.at(0));
+            let fl = float
+                .predict(&eval.x[i])
+                .map_err(|e| format!("evaluation sample {}: {e}", i + 1))?
+                .first()
+                .copied()
+                .unwrap_or(f64::NAN);
+            predictions.push(Prediction {
+                reference: t.first().copied().unwrap_or(f64::NAN),
+                fixed: fx,
+                float: fl,
+            });
+        }
+    }
     let rng_state = fixed.rng().state();
     Ok(DriftRun {
         epochs,
@@ -704,12 +895,12 @@ pub fn run_side_by_side(
         float_params,
         tensors,
         rng_state,
+        predictions,
     })
 }
 
-/// Mean loss and metric of the quantized model and its float original on `data`, without
-/// training: `(fixed loss, float loss, fixed metric, float metric)`; the metric is accuracy
-/// in % or RMSE in target units.
+/// Mean loss and metrics of the quantized model and its float original on `data`, without
+/// training, against the true targets.
 ///
 /// # Errors
 /// As [`run_side_by_side`].
@@ -718,7 +909,7 @@ pub fn evaluate_pair(
     fixed: &QuantParams,
     float: &[(Vec<f64>, Vec<f64>)],
     data: &Prepared,
-) -> Result<(f64, f64, f64, f64), String> {
+) -> Result<PairFigures, String> {
     let plan = Plan::of(desc).map_err(|e| format!("the model does not plan: {e}"))?;
     let fplan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8)
         .map_err(|e| e.to_string())?;
@@ -732,4 +923,68 @@ pub fn evaluate_pair(
     let mut tq = Trainer::new(desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
     let mut tf = Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|e| e.to_string())?;
     evaluate_both(&mut tq, &mut tf, data, desc.input_format)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const ONE_DENSE: &str = r#"
+loss = "squared-error"
+[input]
+channels = 2
+[[layer]]
+kind = "dense"
+units = 1
+[train]
+epochs = 1
+learning-rate = 0.01
+[data]
+target = "y"
+"#;
+
+    /// One step of a 2-1 dense model on `target`: the core's loss (against the target as
+    /// quantized into the output format) and the host's loss against the true target.
+    fn step_losses(target: f64) -> (f64, f64) {
+        let cfg = crate::config::Config::parse(std::path::Path::new("t.toml"), ONE_DENSE)
+            .expect("config");
+        // Every auto format Q3.12: outputs and targets up to ±8.
+        let desc = cfg.model_desc_with(|_| 12).expect("description");
+        let float = vec![(vec![0.5, -0.25], vec![0.1])];
+        let (params, _) = QuantParams::quantize(&desc, &float).expect("quantizes");
+        let plan = Plan::of(&desc).expect("plans");
+        let mut arena = vec![0u32; plan.ram_words()];
+        let views = params.views();
+        let mut t = Trainer::new(&desc, &plan, &mut arena, &views).expect("trainer");
+        let (x, _) = OwnedRaw::quantize(&[1.0, 2.0], desc.input_format).expect("input");
+        let out = desc.layers[0].out;
+        let (y, _) = OwnedRaw::quantize(&[target], out).expect("target");
+        let o = t
+            .step(
+                Tensor {
+                    raw: x.raw(),
+                    fmt: desc.input_format,
+                },
+                Target::Values(Tensor {
+                    raw: y.raw(),
+                    fmt: out,
+                }),
+            )
+            .expect("steps");
+        (o.loss.to_f64(), squared_error_true(t.output(), &[target]))
+    }
+
+    #[test]
+    fn host_loss_matches_the_core_until_the_target_saturates() {
+        // 0.5·1 − 0.25·2 + 0.1 = 0.1; against 0.375 (exact in Q3.12) the loss is ½·0.275²
+        // on both sides, so the output read after a step is the step's own forward output.
+        let (core, host) = step_losses(0.375);
+        assert!((core - 0.5 * 0.275f64.powi(2)).abs() < 1e-3, "{core}");
+        assert!((host - core).abs() < 1e-6, "{host} vs {core}");
+        // A target of 100 saturates the Q3.12 output format at 8: the core sees ½·(8 − 0.1)²,
+        // the host counts the true ½·(100 − 0.1)².
+        let (core, host) = step_losses(100.0);
+        assert!((core - 0.5 * 7.9f64.powi(2)).abs() < 1e-2, "{core}");
+        assert!((host - 0.5 * 99.9f64.powi(2)).abs() < 1e-2, "{host}");
+    }
 }

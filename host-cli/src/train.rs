@@ -92,9 +92,10 @@ pub struct Trained {
     pub constant: Vec<ConstantChannel>,
 }
 
-/// Mean loss and metric (accuracy in % or mean absolute error) of the twin on `data`.
-fn score(twin: &mut Twin<'_, f64>, data: &Dataset) -> Result<(f64, f64), String> {
-    let (mut loss, mut metric, mut count) = (0f64, 0f64, 0usize);
+/// Mean loss, metric (accuracy in % or mean absolute error) and, for regression, the RMSE of
+/// the twin on `data`.
+fn score(twin: &mut Twin<'_, f64>, data: &Dataset) -> Result<(f64, f64, Option<f64>), String> {
+    let (mut loss, mut metric, mut count, mut sq) = (0f64, 0f64, 0usize, 0f64);
     for (i, x) in data.x.iter().enumerate() {
         match &data.target {
             Targets::Classes { labels, .. } => {
@@ -112,17 +113,51 @@ fn score(twin: &mut Twin<'_, f64>, data: &Dataset) -> Result<(f64, f64), String>
                 loss += o.loss;
                 for (p, t) in twin.output().iter().zip(y[i].iter()) {
                     metric += (p - t).abs();
+                    sq += (p - t) * (p - t);
                     count += 1;
                 }
             }
         }
     }
     let n = data.x.len().max(1) as f64;
-    let metric = match &data.target {
-        Targets::Classes { .. } => 100.0 * metric / n,
-        Targets::Values { .. } => metric / count.max(1) as f64,
+    Ok(match &data.target {
+        Targets::Classes { .. } => (loss / n, 100.0 * metric / n, None),
+        Targets::Values { .. } => {
+            let m = count.max(1) as f64;
+            (loss / n, metric / m, Some((sq / m).sqrt()))
+        }
+    })
+}
+
+/// A value in the target's unit: `0.01300 m³/m³`, or the bare number when the config names
+/// no unit.
+pub fn in_unit(v: f64, unit: &str) -> String {
+    if unit.is_empty() {
+        format!("{v:.5}")
+    } else {
+        format!("{v:.5} {unit}")
+    }
+}
+
+/// The last epoch's figures in one line: on the held-out rows when `data.holdout` kept some,
+/// else on the training rows; RMSE and MAE in `unit` for regression, accuracy for
+/// classification.
+pub fn final_figures(history: &[EpochRecord], unit: &str) -> String {
+    let Some(h) = history.last() else {
+        return "no epoch recorded".into();
     };
-    Ok((loss / n, metric))
+    let (rows, metric, rmse) = match h.eval_metric {
+        Some(m) => ("held-out rows", m, h.eval_rmse),
+        None => ("training rows", h.metric, h.rmse),
+    };
+    match rmse {
+        Some(r) => format!(
+            "{rows}: RMSE {}, MAE {}",
+            in_unit(r, unit),
+            in_unit(metric, unit)
+        ),
+        None => format!("{rows}: accuracy {metric:.2} %"),
+    }
 }
 
 /// Trains a float base model on `data` (unscaled, as loaded). `progress` is called with
@@ -203,19 +238,21 @@ pub fn train_float(
         if !loss.is_finite() {
             return Err(diverged());
         }
-        let (_, metric) = score(&mut twin, &scaled)?;
-        let (eval_loss, eval_metric) = if held.is_empty() {
-            (None, None)
+        let (_, metric, rmse) = score(&mut twin, &scaled)?;
+        let (eval_loss, eval_metric, eval_rmse) = if held.is_empty() {
+            (None, None, None)
         } else {
-            let (l, m) = score(&mut twin, &held)?;
-            (Some(l), Some(m))
+            let (l, m, r) = score(&mut twin, &held)?;
+            (Some(l), Some(m), r)
         };
         history.push(EpochRecord {
             epoch,
             loss,
             metric,
+            rmse,
             eval_loss,
             eval_metric,
+            eval_rmse,
         });
         progress(epoch, cfg.epochs(), loss);
     }

@@ -351,7 +351,9 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
         &dir.join("report"),
         &[
             "drift-divergence.svg",
+            "drift-gap.svg",
             "drift-loss.svg",
+            "drift-predicted.svg",
             "drift.html",
             "drift.json",
             "drift.md",
@@ -360,7 +362,12 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
     let html = fs::read_to_string(dir.join("report/drift.html")).unwrap();
     assert!(html.contains("<html"), "drift.html is not HTML");
     assert!(html.contains("<svg"), "drift.html carries no plot");
-    for svg in ["drift-divergence.svg", "drift-loss.svg"] {
+    for svg in [
+        "drift-divergence.svg",
+        "drift-gap.svg",
+        "drift-loss.svg",
+        "drift-predicted.svg",
+    ] {
         let s = fs::read_to_string(dir.join("report").join(svg)).unwrap();
         assert!(
             s.contains("<svg") && s.trim_end().ends_with("</svg>"),
@@ -395,7 +402,7 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
         CHECK_FAILED,
     );
     assert!(
-        said.contains("FAIL lowest gradient SQNR of the probes, dB"),
+        said.contains("FAIL gradient SQNR at the start, per probe sample, dB"),
         "{said}"
     );
     assert!(said.contains("verdict: thresholds exceeded"), "{said}");
@@ -740,13 +747,22 @@ fn chips_lists_the_table() {
         // Every row names where its figures come from: a document, or "from memory".
         let source = r["source"].as_str().unwrap_or_default();
         assert!(!source.trim().is_empty(), "{id} has no source: {r}");
-        let line = said
-            .lines()
-            .find(|l| l.split_whitespace().next() == Some(id))
+        // The row, then its source on the indented lines below it.
+        let lines: Vec<&str> = said.lines().collect();
+        let at = lines
+            .iter()
+            .position(|l| l.split_whitespace().next() == Some(id))
             .unwrap_or_else(|| panic!("`{id}` missing from the text table"));
-        assert!(
-            line.trim_end().ends_with(source),
-            "the row of {id} does not show its source `{source}`: {line}"
+        let below: Vec<&str> = lines[at + 1..]
+            .iter()
+            .take_while(|l| l.starts_with(' '))
+            .flat_map(|l| l.split_whitespace())
+            .collect();
+        let words: Vec<&str> = source.split_whitespace().collect();
+        assert_eq!(
+            below[1..],
+            words[..],
+            "the row of {id} does not show its source `{source}`"
         );
     }
     let nrf = rows
@@ -950,6 +966,12 @@ fn demo_runs_by_default_and_with_out() {
         assert_blob_frame(&fs::read(f.join("base-model.honb")).unwrap());
         let html = fs::read_to_string(f.join("report.html")).unwrap();
         assert!(html.contains("<svg"), "{folder}/report.html has no plot");
+        // Quantization, plan and guard are tables, not preformatted terminal text.
+        assert!(
+            !html.contains("<pre"),
+            "{folder}/report.html has a <pre> dump"
+        );
+        assert!(html.matches("<table").count() >= 8, "{folder}/report.html");
         let inspected = run_ok(dir, &["inspect", &format!("{folder}/base-model.honb")]);
         assert!(inspected.contains("hone model"), "{inspected}");
     }

@@ -407,10 +407,10 @@ const MODEL_EDITS: &[(&str, &str, &str, &[&str])] = &[
         &["`(top level)`", "missing key `train`"],
     ),
     (
-        "gradients-auto",
-        "[[layer]]\nkind = \"relu\"",
-        "[[layer]]\nkind = \"relu\"\ngradients = \"auto16\"",
-        &[":13:13:", "`layer[1].gradients`", "only for weights, bias and activations"],
+        "master-auto",
+        "units = 4",
+        "units = 4\nweights-master = \"auto32\"",
+        &[":10:18:", "`layer[0].weights-master`", "not for master copies"],
     ),
     (
         "features-do-not-fit-input",
