@@ -668,3 +668,115 @@ fn bad_files_and_graph_shapes_are_refused() {
         );
     }
 }
+
+/// The soil fixture quantized with the soil example config, as a model blob, and a unit's
+/// checkpoint after a few training steps on its calibration data.
+fn soil_blobs() -> (crate::pipeline::Base, Vec<u8>, Vec<u8>) {
+    use hone_core::plan::Plan;
+    use hone_core::train::Trainer;
+    let repo = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("..");
+    let config = crate::config::Config::load(&repo.join("examples/soil-moisture.toml")).unwrap();
+    let base = crate::pipeline::Base::from_float(
+        config,
+        fixture("soil"),
+        &repo.join("demo-data/soil_factory.csv"),
+    )
+    .unwrap();
+    let desc = &base.quant.desc;
+    let blob = crate::export::model_blob(desc, &base.quant.params, &base.float.scaling).unwrap();
+    let cal = base
+        .prepare(&repo.join("demo-data/soil_unit_calibration.csv"))
+        .unwrap();
+    let plan = Plan::of(desc).unwrap();
+    let mut arena = vec![0u32; plan.ram_words()];
+    let views = base.quant.params.views();
+    let mut t = Trainer::new(desc, &plan, &mut arena, &views).unwrap();
+    for i in 0..cal.len() {
+        let (x, target) = cal.fixed(i, desc.input_format);
+        t.step(x, target).unwrap();
+    }
+    t.flush();
+    let mut ck = vec![0u8; 4096];
+    let n = t.write_checkpoint(&base.float.scaling, &mut ck).unwrap();
+    ck.truncate(n);
+    (base, blob, ck)
+}
+
+#[test]
+fn blobs_export_dequantized() {
+    let (base, blob, ck) = soil_blobs();
+    let real = base.quant.params.real(&base.quant.desc);
+    // The model blob alone: exactly the quantized values, within half a step of the float
+    // model's (the quantizer rounds to nearest and nothing saturated here).
+    let m = from_blobs(("soil.honb", &blob), None, None, None).unwrap();
+    assert_eq!(m.features, ["input_0", "input_1"]);
+    assert_eq!(m.outputs, ["output_0"]);
+    assert_eq!(m.scaling, base.float.scaling);
+    for (k, l) in m.layers.iter().enumerate() {
+        assert_eq!((&l.weights, &l.bias), (&real[k].0, &real[k].1), "layer {k}");
+        let d = base.quant.desc.layers[k];
+        for (got, was, step) in [
+            (
+                &l.weights,
+                &base.float.layers[k].weights,
+                d.weight.value.step(),
+            ),
+            (&l.bias, &base.float.layers[k].bias, d.bias.value.step()),
+        ] {
+            for (a, b) in got.iter().zip(was) {
+                assert!((a - b).abs() <= step / 2.0, "layer {k}: {a} {b}");
+            }
+        }
+    }
+    // With the unit's checkpoint: its trained values, which differ from the factory's.
+    let names = (
+        Some(vec!["raw_counts".into(), "temp_c".into()]),
+        Some(vec!["vwc".into()]),
+    );
+    let unit = from_blobs(
+        ("soil.honb", &blob),
+        Some(("unit.honb", &ck)),
+        names.0,
+        names.1,
+    )
+    .unwrap();
+    assert_eq!(unit.features, ["raw_counts", "temp_c"]);
+    let c = hone_core::blob::decode(&ck).unwrap();
+    let mut changed = 0;
+    for (k, l) in unit.layers.iter().enumerate() {
+        if let Some(t) = c.tensor(k, hone_core::blob::TensorRole::Weight) {
+            let want: Vec<f64> = (0..t.elems as usize)
+                .map(|i| {
+                    let b = t.format.word.bytes();
+                    let raw = &t.data[i * b..(i + 1) * b];
+                    let v = match b {
+                        1 => i32::from(raw[0] as i8),
+                        2 => i32::from(i16::from_le_bytes([raw[0], raw[1]])),
+                        _ => i32::from_le_bytes([raw[0], raw[1], raw[2], raw[3]]),
+                    };
+                    t.format.to_f64(v)
+                })
+                .collect();
+            assert_eq!(l.weights, want, "layer {k}");
+            changed += usize::from(l.weights != m.layers[k].weights);
+        }
+    }
+    assert!(changed > 0, "training changed no weights");
+    // Blobs swapped are refused naming the file.
+    let e = from_blobs(("unit.honb", &ck), None, None, None)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.starts_with("unit.honb: a checkpoint, not a model blob"),
+        "{e}"
+    );
+    let e = from_blobs(("soil.honb", &blob), Some(("b.honb", &blob)), None, None)
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.starts_with("b.honb: a model blob, not a checkpoint"),
+        "{e}"
+    );
+    // And the export of a unit imports back as the same model.
+    assert_eq!(round_trip(&unit, Precision::F64), unit);
+}
