@@ -201,6 +201,25 @@ impl FloatModel {
         })
     }
 
+    /// The shapes of every layer, from the architecture alone (formats play no part).
+    ///
+    /// # Errors
+    /// The core's message for an architecture it rejects.
+    pub fn shapes(&self) -> Result<hone_core::model::Shapes, String> {
+        let probe: Vec<hone_core::model::LayerDesc> = self
+            .layers
+            .iter()
+            .map(|l| {
+                hone_core::model::LayerDesc::simple(
+                    l.kind,
+                    hone_core::num::QFormat::Q0_7,
+                    hone_core::num::QFormat::Q0_7,
+                )
+            })
+            .collect();
+        hone_core::model::shapes(self.input, &probe, self.loss).map_err(|e| e.to_string())
+    }
+
     /// Checks format name, version, shapes against the architecture, and finiteness.
     ///
     /// # Errors
@@ -218,19 +237,7 @@ impl FloatModel {
                 self.version
             ));
         }
-        let probe: Vec<hone_core::model::LayerDesc> = self
-            .layers
-            .iter()
-            .map(|l| {
-                hone_core::model::LayerDesc::simple(
-                    l.kind,
-                    hone_core::num::QFormat::Q0_7,
-                    hone_core::num::QFormat::Q0_7,
-                )
-            })
-            .collect();
-        let shapes = hone_core::model::shapes(self.input, &probe, self.loss)
-            .map_err(|e| format!("architecture: {e}"))?;
+        let shapes = self.shapes().map_err(|e| format!("architecture: {e}"))?;
         for (k, l) in self.layers.iter().enumerate() {
             let g = shapes.layers[k];
             if l.weights.len() != g.weights as usize || l.bias.len() != g.biases as usize {

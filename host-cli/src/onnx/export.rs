@@ -5,7 +5,6 @@ use std::path::Path;
 
 use hone_core::blob::{BlobKind, TensorBlob, TensorRole};
 use hone_core::model::{LayerKind, Loss};
-use hone_core::num::Word;
 use prost::Message;
 
 use super::pb;
@@ -46,7 +45,7 @@ struct Builder {
     count: usize,
 }
 
-fn attr_int(name: &str, v: i64) -> pb::AttributeProto {
+pub(super) fn attr_int(name: &str, v: i64) -> pb::AttributeProto {
     pb::AttributeProto {
         name: Some(name.into()),
         r#type: Some(pb::attribute_proto::AttributeType::Int as i32),
@@ -55,7 +54,7 @@ fn attr_int(name: &str, v: i64) -> pb::AttributeProto {
     }
 }
 
-fn attr_float(name: &str, v: f32) -> pb::AttributeProto {
+pub(super) fn attr_float(name: &str, v: f32) -> pb::AttributeProto {
     pb::AttributeProto {
         name: Some(name.into()),
         r#type: Some(pb::attribute_proto::AttributeType::Float as i32),
@@ -64,7 +63,7 @@ fn attr_float(name: &str, v: f32) -> pb::AttributeProto {
     }
 }
 
-fn attr_ints(name: &str, v: &[i64]) -> pb::AttributeProto {
+pub(super) fn attr_ints(name: &str, v: &[i64]) -> pb::AttributeProto {
     pb::AttributeProto {
         name: Some(name.into()),
         r#type: Some(pb::attribute_proto::AttributeType::Ints as i32),
@@ -167,18 +166,8 @@ pub fn export(m: &FloatModel, precision: Precision, source: &str) -> Result<Vec<
         message,
     };
     m.check().map_err(invalid)?;
-    let probe: Vec<hone_core::model::LayerDesc> = m
-        .layers
-        .iter()
-        .map(|l| {
-            hone_core::model::LayerDesc::simple(
-                l.kind,
-                hone_core::num::QFormat::Q0_7,
-                hone_core::num::QFormat::Q0_7,
-            )
-        })
-        .collect();
-    let shapes = hone_core::model::shapes(m.input, &probe, m.loss)
+    let shapes = m
+        .shapes()
         .map_err(|e| invalid(format!("architecture: {e}")))?;
     let flat_in = m.input.len == 1;
     let dims = |c: u16, l: u16, flat: bool| -> Vec<Option<i64>> {
@@ -354,21 +343,10 @@ pub fn export_file(m: &FloatModel, precision: Precision, out: &Path) -> Result<(
 
 /// The values of a blob tensor in `f64` (exact: every raw value times its step).
 fn dequantize(t: &TensorBlob<'_>) -> Vec<f64> {
-    let f = t.format;
-    let raws: Vec<i32> = match f.word {
-        Word::I8 => t.data.iter().map(|&b| i32::from(b as i8)).collect(),
-        Word::I16 => t
-            .data
-            .chunks_exact(2)
-            .map(|c| i32::from(i16::from_le_bytes([c[0], c[1]])))
-            .collect(),
-        Word::I32 => t
-            .data
-            .chunks_exact(4)
-            .map(|c| i32::from_le_bytes([c[0], c[1], c[2], c[3]]))
-            .collect(),
-    };
-    raws.into_iter().map(|r| f.to_f64(r)).collect()
+    crate::inspect::raw_values(t)
+        .into_iter()
+        .map(|r| t.format.to_f64(r))
+        .collect()
 }
 
 /// A model blob, optionally with a unit's checkpoint over it, as a float model: every

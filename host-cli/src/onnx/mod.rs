@@ -111,18 +111,7 @@ pub fn forward(m: &crate::model::FloatModel, raw: &[f64]) -> Result<Vec<f64>, St
             m.input.size()
         ));
     }
-    let probe: Vec<hone_core::model::LayerDesc> = m
-        .layers
-        .iter()
-        .map(|l| {
-            hone_core::model::LayerDesc::simple(
-                l.kind,
-                hone_core::num::QFormat::Q0_7,
-                hone_core::num::QFormat::Q0_7,
-            )
-        })
-        .collect();
-    let shapes = hone_core::model::shapes(m.input, &probe, m.loss).map_err(|e| format!("{e}"))?;
+    let shapes = m.shapes()?;
     let len = m.input.len as usize;
     let mut x: Vec<f64> = raw
         .iter()

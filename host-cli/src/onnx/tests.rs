@@ -79,18 +79,7 @@ fn check_fixture(name: &str, m: &FloatModel) -> Result<f64, String> {
         let nu = f64::from(n + 1) * u;
         nu / (1.0 - nu)
     };
-    let probe: Vec<hone_core::model::LayerDesc> = m
-        .layers
-        .iter()
-        .map(|l| {
-            hone_core::model::LayerDesc::simple(
-                l.kind,
-                hone_core::num::QFormat::Q0_7,
-                hone_core::num::QFormat::Q0_7,
-            )
-        })
-        .collect();
-    let shapes = hone_core::model::shapes(m.input, &probe, m.loss).expect("shapes");
+    let shapes = m.shapes().expect("shapes");
     let abs = |v: &[f64]| -> Vec<f64> { v.iter().map(|x| x.abs()).collect() };
     let mut worst = 0f64;
     assert_eq!(e.inputs.len(), e.outputs.len());
@@ -353,33 +342,6 @@ fn set_attr(n: &mut pb::NodeProto, a: pb::AttributeProto) {
     n.attribute.push(a);
 }
 
-fn int_attr(name: &str, v: i64) -> pb::AttributeProto {
-    pb::AttributeProto {
-        name: Some(name.into()),
-        r#type: Some(pb::attribute_proto::AttributeType::Int as i32),
-        i: Some(v),
-        ..Default::default()
-    }
-}
-
-fn ints_attr(name: &str, v: &[i64]) -> pb::AttributeProto {
-    pb::AttributeProto {
-        name: Some(name.into()),
-        r#type: Some(pb::attribute_proto::AttributeType::Ints as i32),
-        ints: v.to_vec(),
-        ..Default::default()
-    }
-}
-
-fn float_attr(name: &str, v: f32) -> pb::AttributeProto {
-    pb::AttributeProto {
-        name: Some(name.into()),
-        r#type: Some(pb::attribute_proto::AttributeType::Float as i32),
-        f: Some(v),
-        ..Default::default()
-    }
-}
-
 type Edit = fn(&mut pb::GraphProto);
 
 /// Every refusal names the node (position and name), its operator and the reason. Each case:
@@ -395,19 +357,19 @@ fn unsupported_nodes_are_refused_naming_node_operator_and_reason() {
         ),
         (
             "soil",
-            |g| set_attr(node_named(g, "hidden"), float_attr("alpha", 2.0)),
+            |g| set_attr(node_named(g, "hidden"), export::attr_float("alpha", 2.0)),
             "node 2 \"hidden\" (Gemm)",
             "alpha = 2",
         ),
         (
             "soil",
-            |g| set_attr(node_named(g, "hidden"), int_attr("transA", 1)),
+            |g| set_attr(node_named(g, "hidden"), export::attr_int("transA", 1)),
             "node 2 \"hidden\" (Gemm)",
             "transA = 1",
         ),
         (
             "soil",
-            |g| set_attr(node_named(g, "squash"), float_attr("beta", 1.0)),
+            |g| set_attr(node_named(g, "squash"), export::attr_float("beta", 1.0)),
             "node 3 \"squash\" (Tanh)",
             "attribute `beta` is not supported",
         ),
@@ -437,43 +399,48 @@ fn unsupported_nodes_are_refused_naming_node_operator_and_reason() {
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "front"), ints_attr("pads", &[1, 1])),
+            |g| set_attr(node_named(g, "front"), export::attr_ints("pads", &[1, 1])),
             "node 1 \"front\" (Conv)",
             "unpadded",
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "front"), int_attr("group", 2)),
+            |g| set_attr(node_named(g, "front"), export::attr_int("group", 2)),
             "node 1 \"front\" (Conv)",
             "group = 2",
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "front"), ints_attr("dilations", &[2])),
+            |g| set_attr(node_named(g, "front"), export::attr_ints("dilations", &[2])),
             "node 1 \"front\" (Conv)",
             "dilated",
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "front"), ints_attr("strides", &[2, 2])),
+            |g| {
+                set_attr(
+                    node_named(g, "front"),
+                    export::attr_ints("strides", &[2, 2]),
+                )
+            },
             "node 1 \"front\" (Conv)",
             "one spatial axis",
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "level"), int_attr("ceil_mode", 1)),
+            |g| set_attr(node_named(g, "level"), export::attr_int("ceil_mode", 1)),
             "node 3 \"level\" (AveragePool)",
             "ceil_mode",
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "leaky"), float_attr("alpha", 0.01)),
+            |g| set_attr(node_named(g, "leaky"), export::attr_float("alpha", 0.01)),
             "node 6 \"leaky\" (LeakyRelu)",
             "power of two",
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "flat"), int_attr("axis", 2)),
+            |g| set_attr(node_named(g, "flat"), export::attr_int("axis", 2)),
             "node 4 \"flat\" (Flatten)",
             "axis = 2",
         ),
@@ -488,13 +455,18 @@ fn unsupported_nodes_are_refused_naming_node_operator_and_reason() {
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "probabilities"), int_attr("axis", 0)),
+            |g| set_attr(node_named(g, "probabilities"), export::attr_int("axis", 0)),
             "node 8 \"probabilities\" (Softmax)",
             "axis 0",
         ),
         (
             "vibration",
-            |g| set_attr(node_named(g, "standardize"), int_attr("training_mode", 1)),
+            |g| {
+                set_attr(
+                    node_named(g, "standardize"),
+                    export::attr_int("training_mode", 1),
+                )
+            },
             "node 0 \"standardize\" (BatchNormalization)",
             "training_mode",
         ),
@@ -564,7 +536,7 @@ fn unsupported_nodes_are_refused_naming_node_operator_and_reason() {
         ),
         (
             "wide",
-            |g| set_attr(node_named(g, "hardtanh"), float_attr("min", -1.0)),
+            |g| set_attr(node_named(g, "hardtanh"), export::attr_float("min", -1.0)),
             "node 3 \"hardtanh\" (Clip)",
             "attribute `min`",
         ),
@@ -745,17 +717,9 @@ fn blobs_export_dequantized() {
     let mut changed = 0;
     for (k, l) in unit.layers.iter().enumerate() {
         if let Some(t) = c.tensor(k, hone_core::blob::TensorRole::Weight) {
-            let want: Vec<f64> = (0..t.elems as usize)
-                .map(|i| {
-                    let b = t.format.word.bytes();
-                    let raw = &t.data[i * b..(i + 1) * b];
-                    let v = match b {
-                        1 => i32::from(raw[0] as i8),
-                        2 => i32::from(i16::from_le_bytes([raw[0], raw[1]])),
-                        _ => i32::from_le_bytes([raw[0], raw[1], raw[2], raw[3]]),
-                    };
-                    t.format.to_f64(v)
-                })
+            let want: Vec<f64> = crate::inspect::raw_values(&t)
+                .into_iter()
+                .map(|r| t.format.to_f64(r))
                 .collect();
             assert_eq!(l.weights, want, "layer {k}");
             changed += usize::from(l.weights != m.layers[k].weights);
