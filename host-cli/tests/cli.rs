@@ -1,5 +1,5 @@
 //! The `hone` command as a user runs it: the real binary, in a fresh temporary directory per
-//! test, on the bundled examples and demo data.
+//! test, on the bundled configs and demo data.
 //!
 //! The good paths check exit statuses, the files written and a few stable fields of the JSON
 //! outputs. The malformed inputs are one table ([`malformed_cases`]): every case must end with
@@ -26,9 +26,9 @@ fn repo() -> PathBuf {
         .to_path_buf()
 }
 
-/// A file of `examples/`, as an argument.
+/// A file of `configs/`, as an argument.
 fn example(name: &str) -> String {
-    repo().join("examples").join(name).display().to_string()
+    repo().join("configs").join(name).display().to_string()
 }
 
 /// An ONNX fixture of `host-cli/tests/onnx/`, as an argument.

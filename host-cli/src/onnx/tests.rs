@@ -647,7 +647,7 @@ fn soil_blobs() -> (crate::pipeline::Base, Vec<u8>, Vec<u8>) {
     use hone_core::plan::Plan;
     use hone_core::train::Trainer;
     let repo = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("..");
-    let config = crate::config::Config::load(&repo.join("examples/soil-moisture.toml")).unwrap();
+    let config = crate::config::Config::load(&repo.join("configs/soil-moisture.toml")).unwrap();
     let base = crate::pipeline::Base::from_float(
         config,
         fixture("soil"),
