@@ -408,6 +408,35 @@ fn expected(
 
 /// Validates a blob and returns its checked form. See the [module docs](self).
 ///
+/// # Example
+/// ```
+/// use hone_core::blob::{self, BlobKind, TensorBlob, TensorRole};
+/// # use hone_core::model::{LayerDesc, LayerKind, Loss, ModelDesc, ParamFormats, Shape};
+/// # use hone_core::model::{TrainDesc, TrainMode};
+/// # use hone_core::num::{QFormat, QScalar, Word};
+/// # let q = QFormat::new_unchecked(Word::I16, 12);
+/// # let p = ParamFormats::plain(q, 20);
+/// # let dense = LayerDesc { kind: LayerKind::Dense { units: 1 }, mode: TrainMode::Full,
+/// #                         weight: p, bias: p, out: q, grad: q };
+/// # let train = TrainDesc::sgd(QScalar { raw: 1, frac: 1 });
+/// // A one-weight model y = w·x + b in Q3.12, w = 0.5 (raw 2048), b = 0, as a factory blob.
+/// let desc = ModelDesc::new(Shape::vector(1), q, &[dense], Loss::SquaredError, train)?;
+/// let w = TensorBlob { layer: 0, role: TensorRole::Weight, format: q, elems: 1,
+///                      data: &2048i16.to_le_bytes() };
+/// let b = TensorBlob { role: TensorRole::Bias, data: &[0, 0], ..w };
+/// let mut buf = [0u8; 256];
+/// let n = blob::encode_parts(BlobKind::Model, &desc, &[], None, 2, [w, b].into_iter(), &mut buf)?;
+/// let checked = blob::decode(&buf[..n])?;
+/// assert_eq!(checked.kind(), BlobKind::Model);
+/// assert_eq!(checked.desc(), &desc);
+/// let weight = checked.tensor(0, TensorRole::Weight).unwrap();
+/// assert_eq!(weight.format.to_f64(i32::from(i16::from_le_bytes([weight.data[0], weight.data[1]]))), 0.5);
+/// // One flipped bit and the CRC refuses the blob.
+/// buf[8] ^= 1;
+/// assert!(blob::decode(&buf[..n]).is_err());
+/// # Ok::<(), hone_core::Error>(())
+/// ```
+///
 /// # Errors
 /// [`Error::Blob`] for framing and tensor problems; the description's own errors for an
 /// invalid model description inside a well-framed blob.

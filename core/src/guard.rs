@@ -176,6 +176,46 @@ pub struct SessionReport {
 /// with a factory model it also puts back the training state the trainer had before the
 /// session, so the trainer is exactly as it was.
 ///
+/// # Example
+/// ```
+/// use hone_core::blob::{self, BlobKind, TensorBlob, TensorRole};
+/// use hone_core::guard::{self, GuardConfig, Verdict};
+/// # use hone_core::layer::{loss::Target, Tensor};
+/// # use hone_core::num::Raw;
+/// # use hone_core::plan::Plan;
+/// # use hone_core::train::{LayerParams, Trainer};
+/// # use hone_core::model::{LayerDesc, LayerKind, Loss, ModelDesc, ParamFormats, Shape};
+/// # use hone_core::model::{TrainDesc, TrainMode};
+/// # use hone_core::num::{QFormat, QScalar, Word};
+/// # let q = QFormat::new_unchecked(Word::I16, 12);
+/// # let p = ParamFormats::plain(q, 20);
+/// # let dense = LayerDesc { kind: LayerKind::Dense { units: 1 }, mode: TrainMode::Full,
+/// #                         weight: p, bias: p, out: q, grad: q };
+/// # let train = TrainDesc::sgd(QScalar { raw: 1, frac: 1 });
+/// // A one-weight model y = w·x + b in Q3.12, w = 0.5 (raw 2048), b = 0, as a factory blob.
+/// let desc = ModelDesc::new(Shape::vector(1), q, &[dense], Loss::SquaredError, train)?;
+/// let w = TensorBlob { layer: 0, role: TensorRole::Weight, format: q, elems: 1,
+///                      data: &2048i16.to_le_bytes() };
+/// let b = TensorBlob { role: TensorRole::Bias, data: &[0, 0], ..w };
+/// let mut buf = [0u8; 256];
+/// let n = blob::encode_parts(BlobKind::Model, &desc, &[], None, 2, [w, b].into_iter(), &mut buf)?;
+/// let last_good = blob::decode(&buf[..n])?;
+/// let plan = Plan::of(&desc)?;
+/// let mut arena = vec![0u32; plan.ram_words()];
+/// let init = [LayerParams { weight: Raw::I16(&[2048]), bias: Raw::I16(&[0]) }];
+/// let mut t = Trainer::new(&desc, &plan, &mut arena, &init)?;
+/// // One sample x = 1 → 1 to train on, and the same one held back.
+/// let x = Tensor { raw: Raw::I16(&[4096]), fmt: q };
+/// let target = Target::Values(Tensor { raw: Raw::I16(&[4096]), fmt: q });
+/// let r = guard::calibrate(&mut t, [(x, target)], [(x, target)], &GuardConfig::DEFAULT,
+///                          &last_good)?;
+/// // Held-back loss ½(0.5 − 1)² before; after one step w = 0.75, b = 0.25 and y = 1.
+/// assert_eq!((r.before.mean_loss.to_f64(), r.after.mean_loss.to_f64()), (0.125, 0.0));
+/// assert_eq!((r.verdict, r.trained), (Verdict::Accept, 1));
+/// assert_eq!(t.params(0).unwrap().weight.get(0), Some(3072));
+/// # Ok::<(), hone_core::Error>(())
+/// ```
+///
 /// # Errors
 /// Sample errors from training or evaluation (after rolling back), and the errors of
 /// [`Trainer::restore`](crate::train::Trainer::restore).

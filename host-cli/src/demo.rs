@@ -26,7 +26,7 @@ use crate::report::{Block, Report, Section};
 use crate::sim::{run_side_by_side, Prepared, RunOptions};
 
 /// The demo's config (the soil-moisture example).
-pub const CONFIG: &str = include_str!("../../examples/soil-moisture.toml");
+pub const CONFIG: &str = include_str!("../../configs/soil-moisture.toml");
 /// Factory data of many simulated probes.
 pub const FACTORY: &str = include_str!("../../demo-data/soil_factory.csv");
 /// Ten reference samples of the new probe.

@@ -449,7 +449,7 @@ fn role_name(r: TensorRole) -> &'static str {
 }
 
 /// Raw values of a tensor, little-endian per its word.
-fn raw_values(t: &TensorBlob<'_>) -> Vec<i32> {
+pub fn raw_values(t: &TensorBlob<'_>) -> Vec<i32> {
     match t.format.word {
         Word::I8 => t.data.iter().map(|&b| b as i8 as i32).collect(),
         Word::I16 => t

@@ -13,6 +13,7 @@ pub mod fsutil;
 pub mod inspect;
 pub mod memplan;
 pub mod model;
+pub mod onnx;
 pub mod pipeline;
 pub mod plot;
 pub mod quant;

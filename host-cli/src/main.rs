@@ -17,6 +17,8 @@ use hone_host::pipeline::Base;
 use hone_host::sim::{run_side_by_side, RunOptions};
 use indicatif::{ProgressBar, ProgressStyle};
 
+mod onnx_cmd;
+
 #[derive(Parser)]
 #[command(name = "hone", version, about = "Fine-tune sensor models in fixed point: train, quantize, measure drift, plan memory", long_about = None)]
 struct Cli {
@@ -104,6 +106,9 @@ enum Command {
     /// Run a board's calibration session under QEMU and compare it bit for bit with the host.
     #[command(subcommand)]
     Device(DeviceCmd),
+    /// Import a model from an ONNX file, or export one to ONNX.
+    #[command(subcommand)]
+    Onnx(onnx_cmd::OnnxCmd),
     /// Write the invented demo data again from its seeded generator.
     DemoData {
         /// Folder to write the CSV files into.
@@ -632,6 +637,10 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
         }
         Command::Checkpoint(c) => checkpoint(c),
         Command::Device(d) => device(d),
+        Command::Onnx(c) => {
+            outln!("{}", onnx_cmd::run(c)?);
+            Ok(None)
+        }
         Command::DemoData { out, seed } => {
             let files = hone_host::scenario::write_all(&out, seed)
                 .with_context(|| out.display().to_string())?;

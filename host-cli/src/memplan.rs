@@ -1804,7 +1804,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
     MeasuredOverhead {
         board: "lm3s6965evb",
         target: "thumbv7m-none-eabi",
-        config: "examples/soil-moisture.toml",
+        config: "configs/soil-moisture.toml",
         trainer_bytes: 76,
         engine_stack_bytes: 8704,
         engine_code_bytes: 96256,
@@ -1815,7 +1815,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
     MeasuredOverhead {
         board: "microbit",
         target: "thumbv6m-none-eabi",
-        config: "examples/soil-moisture.toml",
+        config: "configs/soil-moisture.toml",
         trainer_bytes: 76,
         engine_stack_bytes: 8960,
         engine_code_bytes: 98304,
@@ -1826,7 +1826,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
     MeasuredOverhead {
         board: "mps2-an386",
         target: "thumbv7em-none-eabihf",
-        config: "examples/soil-moisture.toml",
+        config: "configs/soil-moisture.toml",
         trainer_bytes: 76,
         engine_stack_bytes: 8960,
         engine_code_bytes: 96256,
@@ -1837,7 +1837,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
     MeasuredOverhead {
         board: "sifive-e",
         target: "riscv32imc-unknown-none-elf",
-        config: "examples/soil-moisture-8bit.toml",
+        config: "configs/soil-moisture-8bit.toml",
         trainer_bytes: 76,
         engine_stack_bytes: 8704,
         engine_code_bytes: 106496,

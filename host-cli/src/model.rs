@@ -225,6 +225,25 @@ impl FloatModel {
         })
     }
 
+    /// The shapes of every layer, from the architecture alone (formats play no part).
+    ///
+    /// # Errors
+    /// The core's message for an architecture it rejects.
+    pub fn shapes(&self) -> Result<hone_core::model::Shapes, String> {
+        let probe: Vec<hone_core::model::LayerDesc> = self
+            .layers
+            .iter()
+            .map(|l| {
+                hone_core::model::LayerDesc::simple(
+                    l.kind,
+                    hone_core::num::QFormat::Q0_7,
+                    hone_core::num::QFormat::Q0_7,
+                )
+            })
+            .collect();
+        hone_core::model::shapes(self.input, &probe, self.loss).map_err(|e| e.to_string())
+    }
+
     /// Checks format name, version, shapes against the architecture, and finiteness.
     ///
     /// # Errors
@@ -242,19 +261,7 @@ impl FloatModel {
                 self.version
             ));
         }
-        let probe: Vec<hone_core::model::LayerDesc> = self
-            .layers
-            .iter()
-            .map(|l| {
-                hone_core::model::LayerDesc::simple(
-                    l.kind,
-                    hone_core::num::QFormat::Q0_7,
-                    hone_core::num::QFormat::Q0_7,
-                )
-            })
-            .collect();
-        let shapes = hone_core::model::shapes(self.input, &probe, self.loss)
-            .map_err(|e| format!("architecture: {e}"))?;
+        let shapes = self.shapes().map_err(|e| format!("architecture: {e}"))?;
         for (k, l) in self.layers.iter().enumerate() {
             let g = shapes.layers[k];
             if l.weights.len() != g.weights as usize || l.bias.len() != g.biases as usize {
@@ -375,6 +382,28 @@ mod tests {
         let p = dir.path().join("m.json");
         small().save(&p).unwrap();
         assert_eq!(FloatModel::load(&p).unwrap(), small());
+    }
+
+    /// Every f64 reads back as itself, also those that a fast, not correctly rounded number
+    /// parser gets one unit in the last place wrong (this one was, before serde_json's
+    /// `float_roundtrip` feature was turned on).
+    #[test]
+    fn weights_read_back_to_the_bit() {
+        let mut m = small();
+        m.layers[0].weights = vec![0.42008569836616516, -0.44885167479515076];
+        m.layers[0].bias = vec![-0.44025424122810364];
+        let dir = tempfile::tempdir().unwrap();
+        let p = dir.path().join("m.json");
+        m.save(&p).unwrap();
+        let back = FloatModel::load(&p).unwrap();
+        for (a, b) in back.layers[0]
+            .weights
+            .iter()
+            .chain(&back.layers[0].bias)
+            .zip(m.layers[0].weights.iter().chain(&m.layers[0].bias))
+        {
+            assert_eq!(a.to_bits(), b.to_bits());
+        }
     }
 
     #[test]

@@ -1,5 +1,5 @@
 //! The `hone` command as a user runs it: the real binary, in a fresh temporary directory per
-//! test, on the bundled examples and demo data.
+//! test, on the bundled configs and demo data.
 //!
 //! The good paths check exit statuses, the files written and a few stable fields of the JSON
 //! outputs. The malformed inputs are one table ([`malformed_cases`]): every case must end with
@@ -26,9 +26,18 @@ fn repo() -> PathBuf {
         .to_path_buf()
 }
 
-/// A file of `examples/`, as an argument.
+/// A file of `configs/`, as an argument.
 fn example(name: &str) -> String {
-    repo().join("examples").join(name).display().to_string()
+    repo().join("configs").join(name).display().to_string()
+}
+
+/// An ONNX fixture of `host-cli/tests/onnx/`, as an argument.
+fn onnx_fixture(name: &str) -> String {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/onnx")
+        .join(format!("{name}.onnx"))
+        .display()
+        .to_string()
 }
 
 /// A file of `demo-data/`, as an argument.
@@ -406,6 +415,113 @@ fn soil_drift_passes_reports_and_fails_an_impossible_threshold() {
         "{said}"
     );
     assert!(said.contains("verdict: thresholds exceeded"), "{said}");
+}
+
+/// The ONNX file of the demo's soil model shape (made by `tests/onnx/make_fixtures.py`)
+/// imports, quantizes and drifts through the usual commands; its export imports back as the
+/// same model; the blob exports dequantized.
+#[test]
+fn onnx_import_quantize_drift_export() {
+    let tmp = tempfile::tempdir().unwrap();
+    let dir = tmp.path();
+    let said = run_ok(
+        dir,
+        &[
+            "onnx",
+            "import",
+            &onnx_fixture("soil"),
+            "--out",
+            "soil.json",
+        ],
+    );
+    assert!(
+        said.contains("layers dense → tanh → dense, loss SquaredError, 2 scaled channels"),
+        "{said}"
+    );
+    let m = read_json(&dir.join("soil.json"));
+    assert_eq!(m["features"], serde_json::json!(["raw_counts", "temp_c"]));
+    let q = json(&run_ok(
+        dir,
+        &[
+            "quantize",
+            "--config",
+            &example("soil-moisture.toml"),
+            "--model",
+            "soil.json",
+            "--data",
+            &demo_data("soil_factory.csv"),
+            "--blob",
+            "soil.honb",
+            "--json",
+        ],
+    ));
+    assert!(q.is_object(), "{q}");
+    assert_blob_frame(&fs::read(dir.join("soil.honb")).unwrap());
+    let d = json(&run_ok(dir, &soil_drift_args("soil.json", &["--json"])));
+    assert_eq!(d["verdict"]["pass"], true, "{}", d["verdict"]);
+
+    // Export and import again: the same float model, byte for byte.
+    let said = run_ok(
+        dir,
+        &[
+            "onnx",
+            "export",
+            "--model",
+            "soil.json",
+            "--out",
+            "back.onnx",
+        ],
+    );
+    assert!(
+        said.contains("wrote back.onnx (ONNX opset 17, double tensors)"),
+        "{said}"
+    );
+    run_ok(dir, &["onnx", "import", "back.onnx", "--out", "back.json"]);
+    assert_eq!(
+        fs::read(dir.join("back.json")).unwrap(),
+        fs::read(dir.join("soil.json")).unwrap()
+    );
+
+    // The blob, dequantized, in float32: every weight within a 16-bit step of the float one.
+    run_ok(
+        dir,
+        &[
+            "onnx",
+            "export",
+            "--blob",
+            "soil.honb",
+            "--features",
+            "raw_counts,temp_c",
+            "--outputs",
+            "vwc",
+            "--float32",
+            "--out",
+            "unit.onnx",
+        ],
+    );
+    run_ok(dir, &["onnx", "import", "unit.onnx", "--out", "unit.json"]);
+    let u = read_json(&dir.join("unit.json"));
+    let mut worst = 0f64;
+    for (a, b) in u["layers"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .zip(m["layers"].as_array().unwrap())
+    {
+        for key in ["weights", "bias"] {
+            for (x, y) in a[key]
+                .as_array()
+                .unwrap()
+                .iter()
+                .zip(b[key].as_array().unwrap())
+            {
+                worst = worst.max((x.as_f64().unwrap() - y.as_f64().unwrap()).abs());
+            }
+        }
+    }
+    // The quantize report above puts every tensor in a 16-bit format with at least 14
+    // fraction bits: rounding moves a value by at most 2^-15.
+    assert!(worst > 0.0 && worst <= (-15f64).exp2(), "{worst}");
 }
 
 #[test]
@@ -1655,7 +1771,58 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
             .args(&["checkpoint", "read", "in/blank.img", "--out", "out/b.honb"])
             .stderr(&["in/blank.img: no valid checkpoint"])
             .absent(&["b.honb"]),
+        case("onnx-not-a-model")
+            .file("m.onnx", b"\xff\xff\xff not protobuf".to_vec())
+            .args(&["onnx", "import", "in/m.onnx", "--out", "out/m.json"])
+            .stderr(&["in/m.onnx: not an ONNX model"])
+            .absent(&["m.json"]),
+        case("onnx-unsupported-operator")
+            .file("m.onnx", onnx_fixture_with("soil", "Tanh", "Tanx"))
+            .args(&["onnx", "import", "in/m.onnx", "--out", "out/m.json"])
+            .stderr(&[
+                "in/m.onnx: node 3 \"squash\" (Tanx): operator not supported",
+            ])
+            .absent(&["m.json"]),
+        case("onnx-leaky-slope-not-a-shift")
+            .file(
+                "m.onnx",
+                onnx_fixture_with("vibration", 0.125f32.to_le_bytes(), 0.1f32.to_le_bytes()),
+            )
+            .args(&["onnx", "import", "in/m.onnx", "--out", "out/m.json"])
+            .stderr(&[
+                "in/m.onnx: node 6 \"leaky\" (LeakyRelu): alpha = 0.1",
+                "power of two",
+            ])
+            .absent(&["m.json"]),
+        case("onnx-export-checkpoint-as-model")
+            .file("m.honb", fx.soil_blob.clone())
+            .args(&[
+                "onnx",
+                "export",
+                "--blob",
+                "in/m.honb",
+                "--checkpoint",
+                "in/m.honb",
+                "--out",
+                "out/m.onnx",
+            ])
+            .stderr(&["in/m.honb: a model blob, not a checkpoint"])
+            .absent(&["m.onnx"]),
     ]
+}
+
+/// A committed ONNX fixture (`host-cli/tests/onnx/`) with the one occurrence of `from` in
+/// its bytes replaced by `to` (of the same length).
+fn onnx_fixture_with(name: &str, from: impl AsRef<[u8]>, to: impl AsRef<[u8]>) -> Vec<u8> {
+    let (from, to) = (from.as_ref(), to.as_ref());
+    assert_eq!(from.len(), to.len());
+    let mut bytes = fs::read(onnx_fixture(name)).unwrap();
+    let at: Vec<usize> = (0..bytes.len() - from.len())
+        .filter(|&i| &bytes[i..i + from.len()] == from)
+        .collect();
+    assert_eq!(at.len(), 1, "{name}: {from:?} once");
+    bytes[at[0]..at[0] + to.len()].copy_from_slice(to);
+    bytes
 }
 
 /// Runs one case in `root/<name>`; returns what went wrong, if anything.

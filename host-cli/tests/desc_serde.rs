@@ -9,14 +9,14 @@ use hone_core::plan::Plan;
 use hone_host::config::Config;
 
 fn examples() -> Vec<std::path::PathBuf> {
-    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../examples");
+    let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("../configs");
     let mut v: Vec<_> = std::fs::read_dir(&dir)
-        .expect("examples folder")
+        .expect("configs folder")
         .map(|e| e.expect("entry").path())
         .filter(|p| p.extension().is_some_and(|e| e == "toml"))
         .collect();
     v.sort();
-    assert!(v.len() >= 3, "the examples folder has {} configs", v.len());
+    assert!(v.len() >= 3, "the configs folder has {} configs", v.len());
     v
 }
 

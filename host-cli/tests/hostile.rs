@@ -21,7 +21,7 @@ fn repo() -> PathBuf {
 }
 
 fn example(name: &str) -> String {
-    repo().join("examples").join(name).display().to_string()
+    repo().join("configs").join(name).display().to_string()
 }
 
 fn demo_data(name: &str) -> String {

@@ -2,7 +2,7 @@
 //!
 //! The malformed cases are one table: each writes a file into a fresh temporary directory,
 //! loads it, and checks that the error names the file, the place (line, column or field) and
-//! what is wrong. The examples in `examples/` must parse and build a model description that
+//! what is wrong. The configs in `configs/` must parse and build a model description that
 //! fits their demo data.
 
 use std::path::{Path, PathBuf};
@@ -548,7 +548,7 @@ fn demo_data_of(example: &Path) -> (PathBuf, PathBuf) {
 
 #[test]
 fn every_example_parses_and_fits_its_demo_data() {
-    let mut examples: Vec<PathBuf> = std::fs::read_dir(repo().join("examples"))
+    let mut examples: Vec<PathBuf> = std::fs::read_dir(repo().join("configs"))
         .unwrap()
         .map(|e| e.unwrap().path())
         .filter(|p| p.extension().is_some_and(|e| e == "toml"))
@@ -556,7 +556,7 @@ fn every_example_parses_and_fits_its_demo_data() {
     examples.sort();
     assert!(
         examples.len() >= 3,
-        "examples/ should hold the soil and vibration configs: {examples:?}"
+        "configs/ should hold the soil and vibration configs: {examples:?}"
     );
     for path in &examples {
         let config = Config::load(path).unwrap_or_else(|e| panic!("{e}"));

@@ -81,6 +81,7 @@ impl Real for f32 {
 }
 
 #[cfg(any(test, feature = "std"))]
+#[cfg_attr(docsrs, doc(cfg(feature = "std")))]
 impl Real for f64 {
     const ZERO: f64 = 0.0;
     const ONE: f64 = 1.0;

@@ -596,6 +596,37 @@ impl<F: NorFlash> Store<F> {
 
     /// Commits `payload` in one call: [`Store::begin`], [`Store::write`], [`Store::finish`].
     ///
+    /// # Example
+    /// On a simulated flash of four 1 KB sectors written in 4-byte units, the two slots take
+    /// turns, and a power cut in the middle of a commit leaves the last one in place:
+    /// ```
+    /// use hone_core::store::sim::{Cut, SimFlash};
+    /// use hone_core::store::{Slot, Store};
+    ///
+    /// let mut store = Store::open(SimFlash::<4096, 1024, 4>::new(), 0, 4096)?;
+    /// assert_eq!(store.latest(), None);
+    /// let c = store.commit(b"factory model")?;
+    /// assert_eq!((c.seq, c.len, c.slot), (1, 13, Slot::A));
+    /// let c = store.commit(b"unit weights")?;
+    /// assert_eq!((c.seq, c.len, c.slot), (2, 12, Slot::B));
+    /// let mut back = [0u8; 12];
+    /// store.read(0, &mut back)?;
+    /// assert_eq!(&back, b"unit weights");
+    ///
+    /// // The power fails halfway through the third commit's fourth flash operation.
+    /// let mut flash = store.release();
+    /// flash.cut_power_at(flash.steps() + 3, Cut::Midway);
+    /// let mut store = Store::open(flash, 0, 4096)?;
+    /// assert!(store.commit(b"newer weights").is_err());
+    /// let mut flash = store.release();
+    /// flash.power_on();
+    /// let mut store = Store::open(flash, 0, 4096)?;
+    /// assert_eq!(store.latest().map(|c| (c.seq, c.slot)), Some((2, Slot::B)));
+    /// store.read(0, &mut back)?;
+    /// assert_eq!(&back, b"unit weights");
+    /// # Ok::<(), hone_core::store::StoreError>(())
+    /// ```
+    ///
     /// # Errors
     ///
     /// As for the three steps; [`StoreError::PayloadTooLarge`] also if the length does not fit

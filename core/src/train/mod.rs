@@ -438,6 +438,37 @@ impl<'a> Trainer<'a> {
     /// One training step on one sample: forward, loss, backward, accumulate; applies the
     /// update when the batch is complete.
     ///
+    /// # Example
+    /// ```
+    /// # use hone_core::layer::{loss::Target, Tensor};
+    /// # use hone_core::model::{LayerDesc, LayerKind, Loss, ModelDesc, ParamFormats, Shape};
+    /// # use hone_core::model::{TrainDesc, TrainMode};
+    /// # use hone_core::num::{QFormat, QScalar, Raw, Word};
+    /// # use hone_core::plan::Plan;
+    /// # use hone_core::train::{LayerParams, Trainer};
+    /// // y = w·x + b in Q3.12 (step 2^-12), w = 0.5, b = 0, learning rate 0.5.
+    /// let q = QFormat::new_unchecked(Word::I16, 12);
+    /// let p = ParamFormats::plain(q, 20);
+    /// let dense = LayerDesc { kind: LayerKind::Dense { units: 1 }, mode: TrainMode::Full,
+    ///                         weight: p, bias: p, out: q, grad: q };
+    /// let train = TrainDesc::sgd(QScalar { raw: 1, frac: 1 });
+    /// let desc = ModelDesc::new(Shape::vector(1), q, &[dense], Loss::SquaredError, train)?;
+    /// let plan = Plan::of(&desc)?;
+    /// let mut arena = vec![0u32; plan.ram_words()];
+    /// let init = [LayerParams { weight: Raw::I16(&[2048]), bias: Raw::I16(&[0]) }];
+    /// let mut t = Trainer::new(&desc, &plan, &mut arena, &init)?;
+    /// // x = 1, target 1.
+    /// let x = Tensor { raw: Raw::I16(&[4096]), fmt: q };
+    /// let target = Target::Values(Tensor { raw: Raw::I16(&[4096]), fmt: q });
+    /// let out = t.step(x, target)?;
+    /// // y = 0.5: loss ½(0.5 − 1)² = 0.125; the gradient −0.5 moves w and b by +0.25.
+    /// assert_eq!(out.loss.to_f64(), 0.125);
+    /// assert!(out.updated);
+    /// let after = t.params(0).unwrap();
+    /// assert_eq!((after.weight.get(0), after.bias.get(0)), (Some(3072), Some(1024)));
+    /// # Ok::<(), hone_core::Error>(())
+    /// ```
+    ///
     /// # Errors
     /// [`Error::InputLength`], [`Error::TargetLength`], [`Error::TargetKind`] or
     /// [`Error::LabelOutOfRange`] for a sample that does not fit the model;
@@ -526,6 +557,37 @@ impl<'a> Trainer<'a> {
 
     /// Loss of one sample under the current weights, without training. Uses a copy of the
     /// generator, so evaluating does not change the training's random stream.
+    ///
+    /// # Example
+    /// ```
+    /// # use hone_core::layer::{loss::Target, Tensor};
+    /// # use hone_core::model::{LayerDesc, LayerKind, Loss, ModelDesc, ParamFormats, Shape};
+    /// # use hone_core::model::{TrainDesc, TrainMode};
+    /// # use hone_core::num::{QFormat, QScalar, Raw, Word};
+    /// # use hone_core::plan::Plan;
+    /// # use hone_core::train::{LayerParams, Trainer};
+    /// // y = w·x + b in Q3.12 (step 2^-12), w = 0.5, b = 0, learning rate 0.5.
+    /// let q = QFormat::new_unchecked(Word::I16, 12);
+    /// let p = ParamFormats::plain(q, 20);
+    /// let dense = LayerDesc { kind: LayerKind::Dense { units: 1 }, mode: TrainMode::Full,
+    ///                         weight: p, bias: p, out: q, grad: q };
+    /// let train = TrainDesc::sgd(QScalar { raw: 1, frac: 1 });
+    /// let desc = ModelDesc::new(Shape::vector(1), q, &[dense], Loss::SquaredError, train)?;
+    /// let plan = Plan::of(&desc)?;
+    /// let mut arena = vec![0u32; plan.ram_words()];
+    /// let init = [LayerParams { weight: Raw::I16(&[2048]), bias: Raw::I16(&[0]) }];
+    /// let mut t = Trainer::new(&desc, &plan, &mut arena, &init)?;
+    /// // x = 1, target 1.
+    /// let x = Tensor { raw: Raw::I16(&[4096]), fmt: q };
+    /// let target = Target::Values(Tensor { raw: Raw::I16(&[4096]), fmt: q });
+    /// assert_eq!(t.evaluate(x, target)?.loss.to_f64(), 0.125); // ½(0.5 − 1)²
+    /// t.step(x, target)?; // w = 0.75, b = 0.25
+    /// let out = t.evaluate(x, target)?;
+    /// assert_eq!(out.loss.to_f64(), 0.0);
+    /// assert!(!out.updated);
+    /// assert_eq!(t.updates(), 1);
+    /// # Ok::<(), hone_core::Error>(())
+    /// ```
     ///
     /// # Errors
     /// As [`Trainer::step`].

@@ -66,27 +66,27 @@ pub const BOARD_SESSIONS: [BoardSession; 5] = [
     BoardSession {
         board: "lm3s6965evb",
         chip: "lm3s6965",
-        config: "examples/soil-moisture.toml",
+        config: "configs/soil-moisture.toml",
     },
     BoardSession {
         board: "microbit",
         chip: "nrf51822",
-        config: "examples/soil-moisture.toml",
+        config: "configs/soil-moisture.toml",
     },
     BoardSession {
         board: "mps2-an386",
         chip: "mps2-an386",
-        config: "examples/soil-moisture.toml",
+        config: "configs/soil-moisture.toml",
     },
     BoardSession {
         board: "sifive-e",
         chip: "fe310",
-        config: "examples/soil-moisture-8bit.toml",
+        config: "configs/soil-moisture-8bit.toml",
     },
     BoardSession {
         board: "pico",
         chip: "rp2040",
-        config: "examples/soil-moisture.toml",
+        config: "configs/soil-moisture.toml",
     },
 ];
 
