@@ -281,7 +281,7 @@ fn saturated_i32(add: i32) -> i32 {
     }
 }
 
-/// [`outer_row`] in exact 64-bit arithmetic for any operands and shifts: the reference the
+/// The row kernel in exact 64-bit arithmetic for any operands and shifts: the reference the
 /// fast loop is tested against, and the path for wide words or rescales that add bits.
 #[allow(clippy::too_many_arguments)]
 #[cold]
@@ -311,23 +311,6 @@ pub fn outer_row_exact(
     tally.values = tally.values.saturating_add(acc.len().min(x.len()) as u32);
     tally.saturations = tally.saturations.saturating_add(sats);
     tally.high = tally.high.saturating_add(high);
-}
-
-/// Exposes the row kernel for the property tests that compare it with
-/// [`outer_row_exact`]: one call of the dispatching [`outer_row`].
-#[doc(hidden)]
-#[allow(clippy::too_many_arguments)]
-pub fn outer_row_i32<X: Sample>(
-    acc: &mut [i32],
-    x: &[X],
-    g: i64,
-    from_frac: u32,
-    to_frac: u32,
-    mode: Rounding,
-    rng: &mut Rng,
-    tally: &mut Tally,
-) {
-    outer_row(acc, x, g, from_frac, to_frac, mode, rng, tally)
 }
 
 /// The parameters of a layer as read by forward and backward.
