@@ -646,7 +646,7 @@ fn plan_counts_the_engine_on_cores_without_measurements() {
     };
 
     // An RV32EC part with 2 KiB of RAM: no board with its core was measured, and the largest
-    // measured trainer object alone is more than its RAM.
+    // measured engine stack alone is more than its RAM.
     let args = ["plan", "--config", &soil, "--chip", "ch32v003f4"];
     let said = run_expect(dir, &args, CHECK_FAILED);
     assert!(said.contains("Engine (estimate"), "{said}");
@@ -666,7 +666,7 @@ fn plan_counts_the_engine_on_cores_without_measurements() {
         assert!(source.contains(m.board), "{source}");
     }
     totals_add_up(&p);
-    assert!(p["ram"]["budget_bytes"].as_u64().is_some_and(|b| b < state));
+    assert!(p["ram"]["budget_bytes"].as_u64().is_some_and(|b| b < stack));
 
     // A custom budget without a core counts the same estimate: 64 KiB of flash cannot hold
     // the largest measured engine code.
