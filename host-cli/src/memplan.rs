@@ -474,6 +474,9 @@ pub enum BufferRole {
     BackwardScratchEven,
     /// Backward scratch for the loss gradients of odd-numbered layers.
     BackwardScratchOdd,
+    /// The trainer's own state: per layer its live fraction bits, statistics and the marks of
+    /// the dynamic-fixed-point interval (`Plan::state`).
+    TrainerState,
     /// Factory weights in flash.
     FactoryWeights,
     /// Factory bias in flash.
@@ -497,6 +500,7 @@ impl BufferRole {
             BufferRole::ForwardScratchOdd => "fwd scratch, odd",
             BufferRole::BackwardScratchEven => "bwd scratch, even",
             BufferRole::BackwardScratchOdd => "bwd scratch, odd",
+            BufferRole::TrainerState => "trainer state",
             BufferRole::FactoryWeights => "factory weights",
             BufferRole::FactoryBias => "factory bias",
         }
@@ -854,6 +858,11 @@ pub fn buffers(desc: &ModelDesc, plan: &Plan) -> Vec<Buffer> {
                 }
             })
             .collect();
+        out.push(b);
+    }
+    if plan.state.is_some() {
+        let mut b = ram_buffer(None, BufferRole::TrainerState, plan.state, None);
+        b.serves_layers = (0..n).collect();
         out.push(b);
     }
     for (k, (l, s)) in desc.layers.iter().zip(plan.layers.iter()).enumerate() {
