@@ -650,8 +650,18 @@ pub fn split_disjoint<T, const N: usize>(
 /// [`split_disjoint`]: the ranges in address order, each clipped to the arena and to what the
 /// ranges before it left, cut off one after the other with `split_at_mut`.
 fn split_checked<T, const N: usize>(arena: &mut [T], ranges: [(usize, usize); N]) -> [&mut [T]; N] {
+    // An insertion sort: the callers pass at most eight ranges, mostly in address order
+    // already, where it does a comparison or two per range (a general sort costs hundreds of
+    // instructions per call on a small core).
     let mut order: [usize; N] = core::array::from_fn(|i| i);
-    order.sort_unstable_by_key(|&i| ranges.get(i).map_or(0, |r| r.0));
+    let start = |i: usize| ranges.get(i).map_or(0, |r| r.0);
+    for k in 1..N {
+        let mut j = k;
+        while j > 0 && start(order[j - 1]) > start(order[j]) {
+            order.swap(j - 1, j);
+            j -= 1;
+        }
+    }
     let mut out: [&mut [T]; N] = core::array::from_fn(|_| <&mut [T]>::default());
     let mut rest: &mut [T] = arena;
     let mut pos = 0usize;

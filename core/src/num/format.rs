@@ -78,6 +78,28 @@ impl Word {
         }
     }
 
+    /// [`Word::saturate`] for a value that usually fits in 32 bits: one test of the high word,
+    /// then a 32-bit clamp (what a small core does in a few instructions), and the same result
+    /// for every `v`.
+    #[inline(always)]
+    pub const fn saturate_narrow(self, v: i64) -> (i32, bool) {
+        let n = v as i32;
+        if n as i64 != v {
+            return if v < 0 {
+                (self.min_raw(), true)
+            } else {
+                (self.max_raw(), true)
+            };
+        }
+        if n < self.min_raw() {
+            (self.min_raw(), true)
+        } else if n > self.max_raw() {
+            (self.max_raw(), true)
+        } else {
+            (n, false)
+        }
+    }
+
     /// The word for a bit count of 8, 16 or 32.
     pub const fn from_bits(bits: u32) -> Option<Word> {
         match bits {
@@ -296,6 +318,33 @@ impl QScalar {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn narrow_saturation_equals_wide() {
+        let edges = [
+            0i64, 1, -1, 127, 128, -128, -129, 32767, 32768, -32768, -32769,
+        ];
+        let big = [
+            i32::MAX as i64,
+            i32::MIN as i64,
+            1 << 31,
+            -(1 << 31) - 1,
+            i64::MAX,
+            i64::MIN,
+        ];
+        let mut x = 0x9E37_79B9_7F4A_7C15u64;
+        let random = (0..5000).map(|_| {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            (x as i64) >> (x % 64)
+        });
+        for v in edges.into_iter().chain(big).chain(random) {
+            for w in [Word::I8, Word::I16, Word::I32] {
+                assert_eq!(w.saturate_narrow(v), w.saturate(v), "{v} {w:?}");
+            }
+        }
+    }
 
     #[test]
     fn ranges_and_steps() {

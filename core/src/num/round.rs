@@ -180,6 +180,32 @@ pub fn requantize(
     mode: Rounding,
     rng: &mut Rng,
 ) -> (i32, bool) {
+    // The usual store (a value of at most 30 bits losing 1 to 30 fraction bits) rounds in
+    // one word, with the same result and draws as the general path below.
+    const BOUND: i64 = 1 << 30;
+    if (-BOUND..=BOUND).contains(&v) {
+        if let Some(s) = from_frac.checked_sub(to.frac as u32).and_then(Shr32::new) {
+            let v = v as i32;
+            let r = match mode {
+                Rounding::NearestEven => NearestEven::shr32(v, s, rng),
+                Rounding::TowardZero => TowardZero::shr32(v, s, rng),
+                Rounding::Stochastic => Stochastic::shr32(v, s, rng),
+            };
+            return to.word.saturate(r as i64);
+        }
+    }
+    // A wider value (a long dot product) losing 1 to 62 bits: the shift split by words.
+    const BOUND64: i64 = 1 << 62;
+    if (-BOUND64..=BOUND64).contains(&v) {
+        if let Some(s) = from_frac.checked_sub(to.frac as u32).and_then(Shr64::new) {
+            let r = match mode {
+                Rounding::NearestEven => NearestEven::shr64(v, s, rng),
+                Rounding::TowardZero => TowardZero::shr64(v, s, rng),
+                Rounding::Stochastic => Stochastic::shr64(v, s, rng),
+            };
+            return to.word.saturate_narrow(r);
+        }
+    }
     let (r, sat_shift) = rescale(v, from_frac, to.frac as u32, mode, rng);
     let (out, sat_word) = to.word.saturate(r);
     (out, sat_shift || sat_word)
@@ -332,6 +358,18 @@ impl Shr64 {
     }
 }
 
+/// `v >> shift` for `1 ≤ shift ≤ 62`, written so that a 32-bit core shifts one word: the high
+/// word alone for shifts of 32 or more, a word pair for shorter ones (the general 64-bit
+/// shift by a run-time amount costs both cases and a select).
+#[inline(always)]
+fn sar(v: i64, shift: u32) -> i64 {
+    if shift >= 32 {
+        (((v >> 32) as i32) >> ((shift - 32) & 31)) as i64
+    } else {
+        v >> (shift & 31)
+    }
+}
+
 /// A rounding mode as a type, so a kernel is compiled once per mode and decides nothing per
 /// value. [`Rounding`] picks one at the edge of a kernel call.
 pub trait RoundMode {
@@ -340,6 +378,13 @@ pub trait RoundMode {
     /// `v / 2^shift` rounded by this mode, for `|v| ≤ 2^30`; the same value and the same
     /// random draws as [`shift_right`].
     fn shr32(v: i32, s: Shr32, rng: &mut Rng) -> i32;
+    /// [`RoundMode::shr32`] for every `i32`, not only `|v| ≤ 2^30`; the same value and draws
+    /// as [`shift_right`]. Toward zero and stochastic rounding cannot overflow and use
+    /// [`RoundMode::shr32`] itself.
+    #[inline(always)]
+    fn shr32_any(v: i32, s: Shr32, rng: &mut Rng) -> i32 {
+        Self::shr32(v, s, rng)
+    }
     /// `v / 2^shift` rounded by this mode, for `|v| ≤ 2^62`; the same value and the same
     /// random draws as [`shift_right`].
     fn shr64(v: i64, s: Shr64, rng: &mut Rng) -> i64;
@@ -364,8 +409,16 @@ impl RoundMode for NearestEven {
         (v + s.half_less_one + ((v >> s.shift) & 1)) >> s.shift
     }
     #[inline(always)]
+    fn shr32_any(v: i32, s: Shr32, _: &mut Rng) -> i32 {
+        // The floor, plus one when the dropped part, with the kept part's odd bit added, is
+        // more than half a step (a tie rounds up only from an odd floor). Nothing overflows:
+        // the dropped part is below 2^30.
+        let q = v >> s.shift;
+        q + (((v & s.mask) + (q & 1)) > s.half_less_one + 1) as i32
+    }
+    #[inline(always)]
     fn shr64(v: i64, s: Shr64, _: &mut Rng) -> i64 {
-        (v + s.half_less_one + ((v >> s.shift) & 1)) >> s.shift
+        sar(v + s.half_less_one + (sar(v, s.shift) & 1), s.shift)
     }
 }
 
@@ -378,7 +431,7 @@ impl RoundMode for TowardZero {
     }
     #[inline(always)]
     fn shr64(v: i64, s: Shr64, _: &mut Rng) -> i64 {
-        (v + ((v >> 63) & s.mask)) >> s.shift
+        sar(v + ((v >> 63) & s.mask), s.shift)
     }
 }
 
@@ -394,7 +447,7 @@ impl RoundMode for Stochastic {
     fn shr64(v: i64, s: Shr64, rng: &mut Rng) -> i64 {
         let r = (v & s.mask) as u64;
         let u = rng.bits(s.shift);
-        (v >> s.shift) + (u < r) as i64
+        sar(v, s.shift) + (u < r) as i64
     }
 }
 
@@ -607,6 +660,79 @@ mod tests {
         check64::<NearestEven>();
         check64::<TowardZero>();
         check64::<Stochastic>();
+        // Random values over the whole range, every shift and mode.
+        let mut g = Rng::new(9);
+        for _ in 0..20_000 {
+            let v = (g.next_u32() as i64) << 32 | g.next_u32() as i64;
+            let v = v >> (g.next_u32() % 40 + 1);
+            let s = g.next_u32() % 62 + 1;
+            let sh = Shr64::new(s).unwrap();
+            for mode in [
+                Rounding::NearestEven,
+                Rounding::TowardZero,
+                Rounding::Stochastic,
+            ] {
+                let seed = g.next_u32() as u64;
+                let (mut a, mut b) = (Rng::new(seed), Rng::new(seed));
+                let want = shift_right(v, s, mode, &mut a);
+                let got = match mode {
+                    Rounding::NearestEven => NearestEven::shr64(v, sh, &mut b),
+                    Rounding::TowardZero => TowardZero::shr64(v, sh, &mut b),
+                    Rounding::Stochastic => Stochastic::shr64(v, sh, &mut b),
+                };
+                assert_eq!((got, a), (want, b), "{v} >> {s} {mode:?}");
+            }
+        }
+        // The full-range 32-bit shift.
+        for k in 0..20_000 {
+            let v = match k {
+                0 => i32::MAX,
+                1 => i32::MIN,
+                2 => i32::MAX - 1,
+                3 => i32::MIN + 1,
+                _ => g.next_u32() as i32 >> (g.next_u32() % 31),
+            };
+            let s = g.next_u32() % 30 + 1;
+            let sh = Shr32::new(s).unwrap();
+            for mode in [
+                Rounding::NearestEven,
+                Rounding::TowardZero,
+                Rounding::Stochastic,
+            ] {
+                let seed = g.next_u32() as u64;
+                let (mut a, mut b) = (Rng::new(seed), Rng::new(seed));
+                let want = shift_right(v as i64, s, mode, &mut a);
+                let got = match mode {
+                    Rounding::NearestEven => NearestEven::shr32_any(v, sh, &mut b),
+                    Rounding::TowardZero => TowardZero::shr32_any(v, sh, &mut b),
+                    Rounding::Stochastic => Stochastic::shr32_any(v, sh, &mut b),
+                };
+                assert_eq!((got as i64, a), (want, b), "{v} >> {s} {mode:?}");
+            }
+        }
+        // `requantize`'s one-word path against the general rescale and saturate.
+        for _ in 0..20_000 {
+            let v = ((g.next_u32() as i64) << 32 | g.next_u32() as i64) >> (g.next_u32() % 63);
+            let from = g.next_u32() % 40;
+            let word = [Word::I8, Word::I16, Word::I32][g.next_u32() as usize % 3];
+            let to = QFormat::new_unchecked(word, (g.next_u32() % word.bits()) as u8);
+            for mode in [
+                Rounding::NearestEven,
+                Rounding::TowardZero,
+                Rounding::Stochastic,
+            ] {
+                let seed = g.next_u32() as u64;
+                let (mut a, mut b) = (Rng::new(seed), Rng::new(seed));
+                let (r, sat) = rescale(v, from, to.frac as u32, mode, &mut a);
+                let (q, sat_w) = to.word.saturate(r);
+                let got = requantize(v, from, to, mode, &mut b);
+                assert_eq!(
+                    (got, a),
+                    ((q, sat || sat_w), b),
+                    "{v} {from} {to:?} {mode:?}"
+                );
+            }
+        }
         assert_eq!(Shr64::new(63), None);
         assert_eq!(Shr32::new(0), None);
         assert_eq!(Shr32::new(31), None);

@@ -24,7 +24,7 @@
 use crate::kernel::{add_sat, outer_half, Tally};
 use crate::layer::TensorMut;
 use crate::num::round::{
-    div_round, requantize, rescale, shift_left_saturating, NearestEven, RoundMode, Shr64,
+    div_round, requantize, rescale, shift_left_saturating, NearestEven, RoundMode, Shr32, Shr64,
     Stochastic, TowardZero,
 };
 use crate::num::{QFormat, QScalar, RawMut, Rng, Rounding, Sample, Word};
@@ -118,6 +118,53 @@ pub fn update(
     let RawMut::I32(accum) = &mut t.accum.raw else {
         return;
     };
+    // The usual case (nearest-even rounding; no master, decay or clip; a batch of one or a
+    // power of two; both rescales right shifts) takes the lean loop, compiled per value word.
+    // The other modes take the typed loop: a lean copy per mode measured 4.3 KB more code on
+    // the M3 for setups that are rarer (stochastic rounding usually comes with a master copy,
+    // which the lean loop does not serve anyway).
+    let n = t.value.raw.len();
+    let lean_mu = match (&momentum, mu_scale) {
+        (None, _) => Some(None),
+        (Some(m), Scale::Right(s)) if m.len() == n => Some(Some(s)),
+        _ => None,
+    };
+    if let (
+        Rounding::NearestEven,
+        None,
+        None,
+        true,
+        Some(mu_shift),
+        Scale::Right(lr_shift),
+        false,
+        true,
+    ) = (
+        cfg.mode,
+        &master,
+        clip,
+        cfg.decay.is_zero(),
+        lean_mu,
+        lr_scale,
+        matches!(batch, Batch::Div(_)),
+        accum.len() == n,
+    ) {
+        let lean = Lean {
+            accum,
+            momentum: momentum
+                .zip(mu_shift)
+                .map(|(m, s)| (m, cfg.momentum.raw, s)),
+            batch: Shr32::new(cfg.samples.trailing_zeros()),
+            lr: cfg.lr.raw,
+            lr_shift,
+            lr_zero: cfg.lr.is_zero(),
+        };
+        match &mut t.value.raw {
+            RawMut::I8(v) => lean.run::<_, NearestEven>(v, rng, tally, accum_tally),
+            RawMut::I16(v) => lean.run::<_, NearestEven>(v, rng, tally, accum_tally),
+            RawMut::I32(v) => lean.run::<_, NearestEven>(v, rng, tally, accum_tally),
+        }
+        return;
+    }
     let typed = Typed {
         master,
         accum,
@@ -313,6 +360,88 @@ impl Typed<'_> {
         tally.high = tally.high.saturating_add(sats);
         tally.lost_updates = tally.lost_updates.saturating_add(lost);
         accum_tally.values = accum_tally.values.saturating_add(acc_writes);
+        accum_tally.saturations = accum_tally.saturations.saturating_add(acc_sats);
+        accum_tally.high = accum_tally.high.saturating_add(acc_high);
+    }
+}
+
+/// The update of the usual configuration: no master copy, weight decay or clipping, a batch
+/// of one or of a power of two samples, and the learning-rate and momentum rescales both
+/// right shifts. The steps of [`update_exact`] with what is off left out: the same values,
+/// counts and random draws.
+struct Lean<'s> {
+    /// The gradient accumulator, as long as the values.
+    accum: &'s mut [i32],
+    /// The momentum buffer (as long as the values), its raw factor and the rescale of `μ·v`.
+    momentum: Option<(&'s mut [i32], i32, Shr64)>,
+    /// The batch division as a shift (`None`: one sample).
+    batch: Option<Shr32>,
+    /// The learning rate's raw value.
+    lr: i32,
+    /// The rescale of `lr·g` to the value's format.
+    lr_shift: Shr64,
+    lr_zero: bool,
+}
+
+impl Lean<'_> {
+    /// The loop for values stored as `V`, rounding with `M`.
+    #[inline(never)]
+    fn run<V: Sample, M: RoundMode>(
+        self,
+        value: &mut [V],
+        rng: &mut Rng,
+        tally: &mut Tally,
+        accum_tally: &mut Tally,
+    ) {
+        let Lean {
+            accum,
+            mut momentum,
+            batch,
+            lr,
+            lr_shift,
+            lr_zero,
+        } = self;
+        let (mut sats, mut lost) = (0u32, 0u32);
+        let (mut acc_sats, mut acc_high) = (0u32, 0u32);
+        for (i, (v, a)) in value.iter_mut().zip(accum.iter_mut()).enumerate() {
+            let sum = *a;
+            // The shifted sum is smaller than the accumulator's own value, so neither
+            // saturates the 32-bit accumulator word.
+            let mut g = match batch {
+                Some(s) => M::shr32_any(sum, s, rng),
+                None => sum,
+            };
+            if let Some((m, mu, s)) = momentum.as_mut() {
+                if let Some(slot) = m.get_mut(i) {
+                    let decayed = M::shr64(*mu as i64 * *slot as i64, *s, rng);
+                    let (nv, sat) = Word::I32.saturate_narrow(decayed + g as i64);
+                    *slot = nv;
+                    acc_sats += sat as u32;
+                    acc_high += (sat || outer_half(nv, Word::I32)) as u32;
+                    g = nv;
+                }
+            }
+            *a = 0;
+            // Both factors are 32-bit words: the exact product (one long multiply) fits in 63
+            // bits, and after a right shift of at least one bit, `w − Δ` cannot leave the i64
+            // range.
+            let exact = lr as i64 * g as i64;
+            let delta = M::shr64(exact, lr_shift, rng);
+            lost += ((sum != 0 || exact != 0) && delta == 0 && !lr_zero) as u32;
+            let (nw, sat) = V::WORD.saturate_narrow(v.to_i32() as i64 - delta);
+            *v = V::from_i32_in_range(nw);
+            sats += sat as u32;
+        }
+        let writes = if momentum.is_some() {
+            value.len() as u32
+        } else {
+            0
+        };
+        tally.values = tally.values.saturating_add(value.len() as u32);
+        tally.saturations = tally.saturations.saturating_add(sats);
+        tally.high = tally.high.saturating_add(sats);
+        tally.lost_updates = tally.lost_updates.saturating_add(lost);
+        accum_tally.values = accum_tally.values.saturating_add(writes);
         accum_tally.saturations = accum_tally.saturations.saturating_add(acc_sats);
         accum_tally.high = accum_tally.high.saturating_add(acc_high);
     }
@@ -607,6 +736,41 @@ mod tests {
                 let momentum = momentum.as_ref().map(|m| &m[..n]);
                 let a = run(update, word, &vals, fv, master, &accum[..n], fa, momentum, &cfg, seed);
                 let b = run(update_exact, word, &vals, fv, master, &accum[..n], fa, momentum, &cfg, seed);
+                assert_eq!(a, b);
+            }
+
+            /// The lean loop (no master, decay or clip; a power-of-two batch) against the
+            /// reference: the same comparison over the configurations that pick it.
+            #[test]
+            fn lean_update_equals_exact_update(
+                word in prop_oneof![Just(Word::I8), Just(Word::I16), Just(Word::I32)],
+                vals in proptest::collection::vec(any::<i32>(), 0..10),
+                fv in 0u8..=20,
+                accum in proptest::collection::vec(prop_oneof![any::<i32>(), -4096i32..4096], 10),
+                fa in 12u8..=31,
+                momentum in proptest::option::of(proptest::collection::vec(any::<i32>(), 10)),
+                lr in (1i32..1 << 20, 10u8..=24).prop_map(|(raw, frac)| QScalar { raw, frac }),
+                mu in (any::<i32>(), 1u8..=31).prop_map(|(raw, frac)| QScalar { raw, frac }),
+                log_samples in 0u32..5,
+                mode in mode(),
+                seed in any::<u64>(),
+            ) {
+                let n = vals.len();
+                let vals: Vec<i32> = vals
+                    .iter()
+                    .map(|&v| word.saturate(v as i64 >> (32 - word.bits())).0)
+                    .collect();
+                let cfg = UpdateConfig {
+                    lr,
+                    momentum: if momentum.is_some() { mu } else { QScalar::ZERO },
+                    decay: QScalar::ZERO,
+                    clip: QScalar::ZERO,
+                    samples: 1 << log_samples,
+                    mode,
+                };
+                let momentum = momentum.as_ref().map(|m| &m[..n]);
+                let a = run(update, word, &vals, fv, None, &accum[..n], fa, momentum, &cfg, seed);
+                let b = run(update_exact, word, &vals, fv, None, &accum[..n], fa, momentum, &cfg, seed);
                 assert_eq!(a, b);
             }
         }
