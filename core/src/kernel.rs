@@ -198,21 +198,31 @@ pub fn dot(
     b_step: usize,
     n: usize,
 ) -> (i64, bool) {
+    // Words whose kernels are not built give an empty sum: a checked description never
+    // stores values in them (see `Word::is_built_for_values`), and their copies of the loop
+    // are not linked.
     macro_rules! inner {
         ($x:expr) => {
             match b {
-                Raw::I8(t) => dot_typed($x, a_off, a_step, t, b_off, b_step, n),
+                Raw::I8(t) if WORD_I8 => dot_typed($x, a_off, a_step, t, b_off, b_step, n),
                 Raw::I16(t) => dot_typed($x, a_off, a_step, t, b_off, b_step, n),
-                Raw::I32(t) => dot_typed($x, a_off, a_step, t, b_off, b_step, n),
+                Raw::I32(t) if WORD_I32 => dot_typed($x, a_off, a_step, t, b_off, b_step, n),
+                _ => (0, false),
             }
         };
     }
     match a {
-        Raw::I8(s) => inner!(s),
+        Raw::I8(s) if WORD_I8 => inner!(s),
         Raw::I16(s) => inner!(s),
-        Raw::I32(s) => inner!(s),
+        Raw::I32(s) if WORD_I32 => inner!(s),
+        _ => (0, false),
     }
 }
+
+/// Whether the kernels are built for `i8` values (see `Word::is_built_for_values`).
+pub const WORD_I8: bool = Word::I8.is_built_for_values();
+/// Whether the kernels are built for `i32` values (see `Word::is_built_for_values`).
+pub const WORD_I32: bool = Word::I32.is_built_for_values();
 
 /// Saturating addition of two wide sums; returns the sum and whether it saturated.
 #[inline]

@@ -382,7 +382,7 @@ impl ModelDesc {
     /// # Errors
     /// The first problem found, as an [`Error`].
     pub fn check(&self) -> Result<(), Error> {
-        if !self.input_format.is_valid() {
+        if !self.input_format.is_valid() || !self.input_format.word.is_built_for_values() {
             return Err(Error::InvalidFormat);
         }
         self.train.check()?;
@@ -464,7 +464,13 @@ pub const fn layer_geometry(
     if !layer.weight.is_valid() || !layer.bias.is_valid() {
         return Err(lf(index, LayerFault::Format));
     }
-    if !layer.kind.is_built() {
+    if !layer.kind.is_built()
+        || !layer.out.word.is_built_for_values()
+        || !layer.grad.word.is_built_for_values()
+        || (layer.kind.has_params()
+            && !(layer.weight.value.word.is_built_for_values()
+                && layer.bias.value.word.is_built_for_values()))
+    {
         return Err(lf(index, LayerFault::NotBuilt));
     }
     if !layer.kind.has_params() && !matches!(layer.mode, TrainMode::Frozen) {
@@ -701,6 +707,45 @@ mod tests {
                     fault: LayerFault::NotBuilt
                 })
             );
+        }
+    }
+
+    /// A value word is accepted exactly when its kernels are built (`word-i8`, `word-i32`;
+    /// `i16` always), in every role of a layer: output, gradient, weight and bias values.
+    /// Accumulators are 32-bit in every build.
+    #[test]
+    fn built_words_follow_features() {
+        let input = Shape::vector(4);
+        for (word, built) in [
+            (Word::I8, cfg!(feature = "word-i8")),
+            (Word::I16, true),
+            (Word::I32, cfg!(feature = "word-i32")),
+        ] {
+            assert_eq!(word.is_built_for_values(), built, "{word:?}");
+            let f = q(word, 6);
+            let roles: [fn(&mut LayerDesc, QFormat); 4] = [
+                |l, f| l.out = f,
+                |l, f| l.grad = f,
+                |l, f| l.weight.value = f,
+                |l, f| l.bias.value = f,
+            ];
+            for (k, set) in roles.iter().enumerate() {
+                let mut l = dense(3);
+                set(&mut l, f);
+                let r = shapes(input, &[l, dense(1)], Loss::SquaredError);
+                if built {
+                    assert!(r.is_ok(), "{word:?} role {k}: {r:?}");
+                } else {
+                    assert_eq!(
+                        r.err(),
+                        Some(Error::Layer {
+                            layer: 0,
+                            fault: LayerFault::NotBuilt
+                        }),
+                        "{word:?} role {k}"
+                    );
+                }
+            }
         }
     }
 

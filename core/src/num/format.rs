@@ -31,6 +31,19 @@ pub enum Word {
 }
 
 impl Word {
+    /// Whether the kernels are built for values (weights, biases, activations, gradients,
+    /// inputs) stored in this word: `i16` always, `i8` and `i32` with the `word-i8` and
+    /// `word-i32` features. Accumulators, master copies and momentum buffers are 32-bit in
+    /// every build. A description with a value word that is not built is rejected with
+    /// [`crate::error::LayerFault::NotBuilt`], and the kernels' copies for it are not linked.
+    pub const fn is_built_for_values(self) -> bool {
+        match self {
+            Word::I8 => cfg!(feature = "word-i8"),
+            Word::I16 => true,
+            Word::I32 => cfg!(feature = "word-i32"),
+        }
+    }
+
     /// Bits in the word, sign bit included.
     pub const fn bits(self) -> u32 {
         match self {

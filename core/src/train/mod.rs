@@ -624,7 +624,7 @@ impl<'a> Trainer<'a> {
 
     fn check_input(&self, x: Tensor<'_>) -> Result<(), Error> {
         // A sample's format comes from outside: its fraction bits bound every shift below.
-        if !x.fmt.is_valid() || x.raw.word() != x.fmt.word {
+        if !x.fmt.is_valid() || x.raw.word() != x.fmt.word || !x.fmt.word.is_built_for_values() {
             return Err(Error::InvalidFormat);
         }
         let expected = self.desc.input.size();

@@ -21,7 +21,7 @@
 //! With a learning rate of zero nothing is meant to move, and nothing is counted.
 //! Products that vanish while they are summed into `acc` are not updates and are not counted.
 
-use crate::kernel::{add_sat, outer_half, Tally};
+use crate::kernel::{add_sat, outer_half, Tally, WORD_I32, WORD_I8};
 use crate::layer::TensorMut;
 use crate::num::round::{
     div_round, requantize, rescale, NearestEven, RoundMode, Shr32, Shr64, Stochastic,
@@ -61,7 +61,7 @@ pub struct UpdateTensors<'a, 'b> {
 /// updates of the update target in `tally`, and saturations of the momentum buffer in
 /// `accum_tally`.
 ///
-/// Decides once per tensor: the usual setups ([`Lean`]) run a loop compiled for the value's
+/// Decides once per tensor: the usual setups (see `Lean` in the source) run a loop compiled for the value's
 /// word and the rounding mode over typed slices; anything else takes [`update_exact`]. Both
 /// compute the same values, counts and random draws.
 pub fn update(
@@ -167,16 +167,19 @@ impl Lean {
         if let (Some(m), Some(s)) = (master, self.master) {
             by_mode!(&mut *m);
             match &mut t.value.raw {
-                RawMut::I8(v) => follow(m, v, s, tally),
+                RawMut::I8(v) if WORD_I8 => follow(m, v, s, tally),
                 RawMut::I16(v) => follow(m, v, s, tally),
-                RawMut::I32(v) => follow(m, v, s, tally),
+                RawMut::I32(v) if WORD_I32 => follow(m, v, s, tally),
+                // Not built: a checked description has no such values.
+                _ => {}
             }
             return;
         }
         match &mut t.value.raw {
-            RawMut::I8(v) => by_mode!(v),
+            RawMut::I8(v) if WORD_I8 => by_mode!(v),
             RawMut::I16(v) => by_mode!(v),
-            RawMut::I32(v) => by_mode!(v),
+            RawMut::I32(v) if WORD_I32 => by_mode!(v),
+            _ => {}
         }
     }
 
