@@ -61,9 +61,9 @@ pub struct UpdateTensors<'a, 'b> {
 /// updates of the update target in `tally`, and saturations of the momentum buffer in
 /// `accum_tally`.
 ///
-/// Decides once per tensor: the usual setups (see `Lean` in the source) run a loop compiled for the value's
-/// word and the rounding mode over typed slices; anything else takes [`update_exact`]. Both
-/// compute the same values, counts and random draws.
+/// Decides once per tensor: the usual setups (see `Lean` in the source) run a loop compiled
+/// for the value's word and the rounding mode over typed slices; anything else takes
+/// [`update_exact`]. Both compute the same values, counts and random draws.
 pub fn update(
     t: UpdateTensors<'_, '_>,
     cfg: &UpdateConfig,
