@@ -6,9 +6,12 @@
 //! `∂L/∂b_j += g_j`, each rounded into the accumulator format.
 
 use super::{BackOut, BackTally, Params, Rounder, Tensor, TensorMut};
-use crate::kernel::{dot, Tally};
+use crate::kernel::{dot, outer_half, Tally, WORD_I32, WORD_I8};
 use crate::model::LayerGeometry;
-use crate::num::round::shift_left_saturating;
+use crate::num::round::{
+    requantize, requantize_wide, shift_left_saturating, NearestEven, RoundMode, Shr64,
+};
+use crate::num::{QFormat, RawMut, Rng, Rounding, Sample};
 
 /// Adds a bias with `fb` fraction bits to an exact sum with `fs` fraction bits, exactly, at
 /// the wider scale, and stores the result rounded once into `y[j]`. The sum is formed in 64
@@ -27,14 +30,30 @@ pub(crate) fn store_with_bias(
     sat_before: bool,
     tally: &mut Tally,
 ) {
+    let (q, sat) = with_bias(sum, fs, bias, fb, y.fmt, r.mode, r.rng);
+    y.raw.put(j, q);
+    tally.note_value(q, y.fmt.word, sat || sat_before);
+}
+
+/// The value [`store_with_bias`] stores, and whether it saturated.
+#[inline(never)]
+fn with_bias(
+    sum: i64,
+    fs: u32,
+    bias: i32,
+    fb: u32,
+    out: QFormat,
+    mode: Rounding,
+    rng: &mut Rng,
+) -> (i32, bool) {
     let f = fs.max(fb);
     let (s, o1) = shift_left_saturating(sum, f - fs);
     let (b, o2) = shift_left_saturating(bias as i64, f - fb);
     match (o1 || o2, s.checked_add(b)) {
-        (false, Some(v)) => r.store(y, j, v, f, sat_before, tally),
+        (false, Some(v)) => requantize(v, f, out, mode, rng),
         _ => {
             let v = ((sum as i128) << (f - fs)) + ((bias as i128) << (f - fb));
-            r.store_wide(y, j, v, f, sat_before, tally);
+            requantize_wide(v, f, out, mode, rng)
         }
     }
 }
@@ -51,9 +70,91 @@ pub fn forward(
     let n_in = g.input.size() as usize;
     let n_out = g.output.size() as usize;
     let fs = p.w.frac() + x.frac();
+    if let Some(rows) = Rows::new(fs, p.b.frac(), y.fmt, r.mode, n_out, y.raw.len()) {
+        let fmt = y.fmt;
+        match &mut y.raw {
+            RawMut::I8(out) if WORD_I8 => rows.run(out, fmt, p, x, n_in, r.rng, tally),
+            RawMut::I16(out) => rows.run(out, fmt, p, x, n_in, r.rng, tally),
+            RawMut::I32(out) if WORD_I32 => rows.run(out, fmt, p, x, n_in, r.rng, tally),
+            // Not built: a checked description has no such values.
+            _ => {}
+        }
+        return;
+    }
     for j in 0..n_out {
         let (d, sat_dot) = dot(p.w.raw, j * n_in, 1, x.raw, 0, 1, n_in);
         store_with_bias(r, y, j, d, fs, p.b.at(j), p.b.frac(), sat_dot, tally);
+    }
+}
+
+/// The usual forward pass, with the output's rounding worked out once per call: nearest-even
+/// rounding, a bias no finer than the products (aligned by a left shift of at most 31 bits,
+/// exact in 64 bits) and an output 1 to 62 bits coarser than the products.
+#[derive(Clone, Copy, Debug)]
+struct Rows {
+    /// Fraction bits of the products.
+    fs: u32,
+    /// Fraction bits of the bias, and its alignment to the products.
+    fb: u32,
+    align: u32,
+    /// The rounding of a sum to the output.
+    shift: Shr64,
+}
+
+impl Rows {
+    fn new(
+        fs: u32,
+        fb: u32,
+        out: QFormat,
+        mode: Rounding,
+        n_out: usize,
+        len: usize,
+    ) -> Option<Rows> {
+        let align = fs.checked_sub(fb).filter(|&a| a <= 31)?;
+        let shift = Shr64::new(fs.checked_sub(out.frac as u32)?)?;
+        (mode == Rounding::NearestEven && n_out == len).then_some(Rows {
+            fs,
+            fb,
+            align,
+            shift,
+        })
+    }
+
+    /// Every output of the layer: the same values, counts and draws as [`store_with_bias`]
+    /// after each row's dot product.
+    #[inline(never)]
+    #[allow(clippy::too_many_arguments)]
+    fn run<O: Sample>(
+        self,
+        out: &mut [O],
+        fmt: QFormat,
+        p: Params<'_>,
+        x: Tensor<'_>,
+        n_in: usize,
+        rng: &mut Rng,
+        tally: &mut Tally,
+    ) {
+        const BOUND: i64 = 1 << 62;
+        let (mut sats, mut high) = (0u32, 0u32);
+        for (j, o) in out.iter_mut().enumerate() {
+            let (d, sat_dot) = dot(p.w.raw, j * n_in, 1, x.raw, 0, 1, n_in);
+            let bias = p.b.at(j);
+            // |bias · 2^align| < 2^62: the sum overflows only for a dot product beyond 2^62,
+            // which (with a sum beyond 2^62) takes the general path.
+            let (q, sat) = match d.checked_add((bias as i64) << self.align) {
+                Some(v) if (-BOUND..=BOUND).contains(&v) => {
+                    O::WORD.saturate_narrow(NearestEven::shr64(v, self.shift, rng))
+                }
+                _ => with_bias(d, self.fs, bias, self.fb, fmt, Rounding::NearestEven, rng),
+            };
+            *o = O::from_i32_in_range(q);
+            let sat = sat || sat_dot;
+            sats += sat as u32;
+            high += (sat || outer_half(q, O::WORD)) as u32;
+        }
+        tally.values = tally.values.saturating_add(out.len() as u32);
+        tally.saturations = tally.saturations.saturating_add(sats);
+        tally.high = tally.high.saturating_add(high);
     }
 }
 
@@ -90,6 +191,92 @@ pub fn backward(
             let gj = gy.at(j) as i64;
             let tally = if gj == 0 { &mut dropped } else { &mut t.acc_b };
             r.accumulate(acc, j, gj, gy.frac(), false, tally);
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::model::Shape;
+    use crate::num::{Raw, Word};
+    use proptest::prelude::{any, prop_oneof, proptest, Just, ProptestConfig, Strategy};
+
+    fn word() -> impl Strategy<Value = Word> {
+        prop_oneof![Just(Word::I8), Just(Word::I16), Just(Word::I32)]
+    }
+
+    fn raw(word: Word, v: &[i32]) -> (Vec<i8>, Vec<i16>, Vec<i32>) {
+        let cut = |x: i32| word.saturate(x as i64 >> (32 - word.bits())).0;
+        (
+            v.iter().map(|&x| cut(x) as i8).collect(),
+            v.iter().map(|&x| cut(x) as i16).collect(),
+            v.iter().map(|&x| cut(x)).collect(),
+        )
+    }
+
+    fn view<'a>(word: Word, r: &'a (Vec<i8>, Vec<i16>, Vec<i32>)) -> Raw<'a> {
+        match word {
+            Word::I8 => Raw::I8(&r.0),
+            Word::I16 => Raw::I16(&r.1),
+            Word::I32 => Raw::I32(&r.2),
+        }
+    }
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(1500))]
+
+        /// The forward pass (its per-call row loop where it applies) against the value-by-value
+        /// store it replaces: same outputs, counts and generator state, over random words,
+        /// formats, modes and operands.
+        #[test]
+        fn forward_equals_value_by_value_store(
+            (ww, xw, bw, yw) in (word(), word(), word(), word()),
+            (fw, fx, fb, fy) in (0u8..=31, 0u8..=31, 0u8..=31, 0u8..=31),
+            n_in in 1usize..6,
+            n_out in 1usize..5,
+            vals in proptest::collection::vec(any::<i32>(), 40),
+            mode in prop_oneof![Just(Rounding::NearestEven), Just(Rounding::Stochastic)],
+            seed in any::<u64>(),
+        ) {
+            let fmt = |w: Word, f: u8| QFormat::new_unchecked(w, f.min(w.bits() as u8 - 1));
+            let (wf, xf, bf, yf) = (fmt(ww, fw), fmt(xw, fx), fmt(bw, fb), fmt(yw, fy));
+            let w = raw(ww, &vals[..n_in * n_out]);
+            let x = raw(xw, &vals[20..20 + n_in]);
+            let b = raw(bw, &vals[30..30 + n_out]);
+            let p = Params {
+                w: Tensor { raw: view(ww, &w), fmt: wf },
+                b: Tensor { raw: view(bw, &b), fmt: bf },
+            };
+            let x = Tensor { raw: view(xw, &x), fmt: xf };
+            let g = LayerGeometry {
+                input: Shape::vector(n_in as u16),
+                output: Shape::vector(n_out as u16),
+                weights: (n_in * n_out) as u32,
+                biases: n_out as u32,
+                macs: (n_in * n_out) as u32,
+            };
+            let run = |fast: bool| {
+                let mut words = [0u32; 8];
+                let mut y = TensorMut {
+                    raw: RawMut::from_words(&mut words, yw, n_out).unwrap(),
+                    fmt: yf,
+                };
+                let (mut tally, mut rng) = (Tally::default(), Rng::new(seed));
+                let mut r = Rounder { mode, rng: &mut rng };
+                if fast {
+                    forward(&g, p, x, &mut y, &mut r, &mut tally);
+                } else {
+                    let fs = p.w.frac() + x.frac();
+                    for j in 0..n_out {
+                        let (d, sat) = dot(p.w.raw, j * n_in, 1, x.raw, 0, 1, n_in);
+                        store_with_bias(&mut r, &mut y, j, d, fs, p.b.at(j), p.b.frac(), sat, &mut tally);
+                    }
+                }
+                let out: Vec<i32> = (0..n_out).map(|j| y.raw.at(j)).collect();
+                (out, tally, rng)
+            };
+            assert_eq!(run(true), run(false));
         }
     }
 }
