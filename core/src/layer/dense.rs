@@ -11,7 +11,7 @@ use crate::model::LayerGeometry;
 use crate::num::round::{
     requantize, requantize_wide, shift_left_saturating, NearestEven, RoundMode, Shr64,
 };
-use crate::num::{QFormat, RawMut, Rng, Rounding, Sample};
+use crate::num::{QFormat, Raw, RawMut, Rng, Rounding, Sample, Word};
 
 /// Adds a bias with `fb` fraction bits to an exact sum with `fs` fraction bits, exactly, at
 /// the wider scale, and stores the result rounded once into `y[j]`. The sum is formed in 64
@@ -85,6 +85,29 @@ pub fn forward(
         let (d, sat_dot) = dot(p.w.raw, j * n_in, 1, x.raw, 0, 1, n_in);
         store_with_bias(r, y, j, d, fs, p.b.at(j), p.b.frac(), sat_dot, tally);
     }
+}
+
+/// `acc[j] += g[j] · 2^k` for every `j`, saturated to the 32-bit word: the bias gradients'
+/// accumulation when the accumulator is `k ≤ 31` bits finer than the gradient (the shift is
+/// exact, so no rounding and no draws). As in [`Rounder::accumulate`], a zero gradient adds
+/// nothing and is not counted.
+fn bias_row<G: Sample>(acc: &mut [i32], g: &[G], k: u32, tally: &mut Tally) {
+    let (mut values, mut sats, mut high) = (0u32, 0u32, 0u32);
+    for (a, &g) in acc.iter_mut().zip(g) {
+        let g = g.to_i32();
+        if g == 0 {
+            continue;
+        }
+        // |g · 2^k| < 2^62 and |a| ≤ 2^31: the sum is exact in 64 bits.
+        let (q, sat) = Word::I32.saturate_narrow(*a as i64 + ((g as i64) << k));
+        *a = q;
+        values += 1;
+        sats += sat as u32;
+        high += (sat || outer_half(q, Word::I32)) as u32;
+    }
+    tally.values = tally.values.saturating_add(values);
+    tally.saturations = tally.saturations.saturating_add(sats);
+    tally.high = tally.high.saturating_add(high);
 }
 
 /// The usual forward pass, with the output's rounding worked out once per call: nearest-even
@@ -185,6 +208,22 @@ pub fn backward(
         }
     }
     if let Some(acc) = out.acc_b {
+        let (fg, fa) = (gy.frac(), acc.frac());
+        // The usual case: a 32-bit accumulator at least as fine as the gradient, so each
+        // gradient enters it exactly, by a left shift of at most 31 bits.
+        let shift = fa.checked_sub(fg).filter(|&k| k <= 31);
+        if let (Some(k), RawMut::I32(a)) = (shift, &mut acc.raw) {
+            if let Some(a) = a.get_mut(..n_out) {
+                match gy.raw {
+                    Raw::I8(g) if WORD_I8 => bias_row(a, g, k, &mut t.acc_b),
+                    Raw::I16(g) => bias_row(a, g, k, &mut t.acc_b),
+                    Raw::I32(g) if WORD_I32 => bias_row(a, g, k, &mut t.acc_b),
+                    // Not built: a checked description has no such values.
+                    _ => {}
+                }
+                return;
+            }
+        }
         // As for the weight rows: a zero gradient adds nothing and is not counted.
         let mut dropped = Tally::default();
         for j in 0..n_out {
@@ -277,6 +316,42 @@ mod tests {
                 (out, tally, rng)
             };
             assert_eq!(run(true), run(false));
+        }
+
+        /// The bias row against `Rounder::accumulate` value by value (zero gradients not
+        /// counted), over random gradients, accumulators and shifts up to 31 bits.
+        #[test]
+        fn bias_row_equals_accumulate(
+            gw in word(),
+            vals in proptest::collection::vec(prop_oneof![any::<i32>(), Just(0)], 8),
+            acc in proptest::collection::vec(prop_oneof![any::<i32>(), -1000i32..1000], 8),
+            fg in 0u8..=31,
+            k in 0u32..=31,
+        ) {
+            let g = raw(gw, &vals);
+            let g = Tensor { raw: view(gw, &g), fmt: QFormat::new_unchecked(gw, fg.min(gw.bits() as u8 - 1)) };
+            let fa = (g.frac() + k).min(31);
+            let k = fa - g.frac();
+            let mut fast = acc.clone();
+            let mut t_fast = Tally::default();
+            match g.raw {
+                Raw::I8(s) => bias_row(&mut fast, s, k, &mut t_fast),
+                Raw::I16(s) => bias_row(&mut fast, s, k, &mut t_fast),
+                Raw::I32(s) => bias_row(&mut fast, s, k, &mut t_fast),
+            }
+            let mut slow = acc.clone();
+            let mut t_slow = Tally::default();
+            let mut rng = Rng::new(1);
+            let mut r = Rounder { mode: Rounding::Stochastic, rng: &mut rng };
+            let mut a = TensorMut { raw: RawMut::I32(&mut slow), fmt: QFormat::new_unchecked(Word::I32, fa as u8) };
+            for j in 0..8 {
+                let gj = g.at(j) as i64;
+                let mut dropped = Tally::default();
+                let tally = if gj == 0 { &mut dropped } else { &mut t_slow };
+                r.accumulate(&mut a, j, gj, g.frac(), false, tally);
+            }
+            assert_eq!((fast, t_fast), (slow, t_slow));
+            assert_eq!(rng, Rng::new(1));
         }
     }
 }
