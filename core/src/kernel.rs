@@ -219,6 +219,35 @@ pub fn dot(
     }
 }
 
+/// `a · b`, exact in 64 bits. Where a 64-bit product is a library call (the M0's
+/// `__aeabi_lmul` multiplies two 64-bit numbers), it is formed from 16-bit halves with four
+/// 32-bit multiplies instead; elsewhere it is one long multiply.
+#[inline(always)]
+pub fn mul_wide(a: i32, b: i32) -> i64 {
+    if LONG_MULTIPLY {
+        a as i64 * b as i64
+    } else {
+        mul_wide_halves(a, b)
+    }
+}
+
+/// [`mul_wide`] from 16-bit halves of the magnitudes: `|a|·|b| = h·2^32 + m·2^16 + l`, where
+/// no partial product or sum leaves 32 bits (the high halves are at most 2^15).
+#[inline(always)]
+fn mul_wide_halves(a: i32, b: i32) -> i64 {
+    let (ua, ub) = (a.unsigned_abs(), b.unsigned_abs());
+    let (a1, a0) = (ua >> 16, ua & 0xFFFF);
+    let (b1, b0) = (ub >> 16, ub & 0xFFFF);
+    let m = a1 * b0 + a0 * b1;
+    let r = ((a1 * b1) as u64) << 32;
+    let r = r + ((m as u64) << 16) + (a0 * b0) as u64;
+    if (a < 0) != (b < 0) {
+        (r as i64).wrapping_neg()
+    } else {
+        r as i64
+    }
+}
+
 /// Whether the kernels are built for `i8` values (see `Word::is_built_for_values`).
 pub const WORD_I8: bool = Word::I8.is_built_for_values();
 /// Whether the kernels are built for `i32` values (see `Word::is_built_for_values`).
@@ -236,6 +265,42 @@ pub const fn add_sat(a: i64, b: i64) -> (i64, bool) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn wide_products_from_halves() {
+        let edges = [
+            0,
+            1,
+            -1,
+            2,
+            -2,
+            0xFFFF,
+            -0xFFFF,
+            0x1_0000,
+            -0x1_0000,
+            i32::MAX,
+            i32::MIN,
+            i32::MIN + 1,
+        ];
+        let mut x = 0x2545_F491_4F6C_DD1Du64;
+        let random = (0..20_000).map(|_| {
+            x ^= x << 13;
+            x ^= x >> 7;
+            x ^= x << 17;
+            (x as i32) >> (x >> 59)
+        });
+        let vals: Vec<i32> = edges.into_iter().chain(random).collect();
+        for w in vals.windows(2) {
+            let (a, b) = (w[0], w[1]);
+            assert_eq!(mul_wide_halves(a, b), a as i64 * b as i64, "{a} * {b}");
+            assert_eq!(mul_wide(a, b), a as i64 * b as i64, "{a} * {b}");
+        }
+        for &a in &edges {
+            for &b in &edges {
+                assert_eq!(mul_wide_halves(a, b), a as i64 * b as i64, "{a} * {b}");
+            }
+        }
+    }
 
     #[test]
     fn accumulator_choice() {

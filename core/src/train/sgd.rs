@@ -21,7 +21,7 @@
 //! With a learning rate of zero nothing is meant to move, and nothing is counted.
 //! Products that vanish while they are summed into `acc` are not updates and are not counted.
 
-use crate::kernel::{add_sat, outer_half, Tally, WORD_I32, WORD_I8};
+use crate::kernel::{add_sat, mul_wide, outer_half, Tally, WORD_I32, WORD_I8};
 use crate::layer::TensorMut;
 use crate::num::round::{
     div_round, requantize, rescale, NearestEven, RoundMode, Shr32, Shr64, Stochastic,
@@ -212,7 +212,7 @@ impl Lean {
             };
             if let (Some((mu, s)), Some(m)) = (self.momentum, momentum.as_deref_mut()) {
                 if let Some(slot) = m.get_mut(i) {
-                    let decayed = M::shr64(mu as i64 * *slot as i64, s, rng);
+                    let decayed = M::shr64(mul_wide(mu, *slot), s, rng);
                     let (nv, sat) = Word::I32.saturate_narrow(decayed + g as i64);
                     *slot = nv;
                     acc_sats += sat as u32;
@@ -223,7 +223,7 @@ impl Lean {
             // Both factors are 32-bit words: the exact product (one long multiply) fits in 63
             // bits, and after a right shift of at least one bit, `w − Δ` cannot leave the i64
             // range.
-            let exact = self.lr as i64 * g as i64;
+            let exact = mul_wide(self.lr, g);
             let delta = M::shr64(exact, self.lr_shift, rng);
             lost += ((sum != 0 || exact != 0) && delta == 0 && !self.lr_zero) as u32;
             let (nw, sat) = T::WORD.saturate_narrow(w.to_i32() as i64 - delta);
