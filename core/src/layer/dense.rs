@@ -202,10 +202,7 @@ pub fn backward(
     }
     if let Some(acc) = out.acc_w {
         let f = gy.frac() + x.frac();
-        for j in 0..n_out {
-            let gj = gy.at(j) as i64;
-            r.accumulate_outer(acc, j * n_in, gj, x.raw, n_in, f, &mut t.acc_w);
-        }
+        r.accumulate_outer_rows(acc, gy, x.raw, n_out, n_in, f, &mut t.acc_w);
     }
     if let Some(acc) = out.acc_b {
         let (fg, fa) = (gy.frac(), acc.frac());
@@ -314,6 +311,42 @@ mod tests {
                 }
                 let out: Vec<i32> = (0..n_out).map(|j| y.raw.at(j)).collect();
                 (out, tally, rng)
+            };
+            assert_eq!(run(true), run(false));
+        }
+
+        /// The rows of a weight-gradient outer product in one call against one call per row,
+        /// over random words, formats, modes and operands (zero gradients included).
+        #[test]
+        fn outer_rows_equal_row_by_row(
+            (gw, xw) in (word(), word()),
+            (fg, fx, fa) in (0u8..=31, 0u8..=31, 0u8..=31),
+            n_in in 0usize..6,
+            n_out in 1usize..5,
+            vals in proptest::collection::vec(prop_oneof![any::<i32>(), Just(0), -50i32..50], 16),
+            acc in proptest::collection::vec(any::<i32>(), 30),
+            mode in prop_oneof![Just(Rounding::NearestEven), Just(Rounding::TowardZero), Just(Rounding::Stochastic)],
+            seed in any::<u64>(),
+        ) {
+            let fmt = |w: Word, f: u8| QFormat::new_unchecked(w, f.min(w.bits() as u8 - 1));
+            let g = raw(gw, &vals[..n_out]);
+            let g = Tensor { raw: view(gw, &g), fmt: fmt(gw, fg) };
+            let x = raw(xw, &vals[8..8 + n_in]);
+            let x = Tensor { raw: view(xw, &x), fmt: fmt(xw, fx) };
+            let f = g.frac() + x.frac();
+            let run = |whole: bool| {
+                let mut a = acc.clone();
+                let mut t = TensorMut { raw: RawMut::I32(&mut a), fmt: fmt(Word::I32, fa) };
+                let (mut tally, mut rng) = (Tally::default(), Rng::new(seed));
+                let mut r = Rounder { mode, rng: &mut rng };
+                if whole {
+                    r.accumulate_outer_rows(&mut t, g, x.raw, n_out, n_in, f, &mut tally);
+                } else {
+                    for j in 0..n_out {
+                        r.accumulate_outer(&mut t, j * n_in, g.at(j) as i64, x.raw, n_in, f, &mut tally);
+                    }
+                }
+                (a, tally, rng)
             };
             assert_eq!(run(true), run(false));
         }

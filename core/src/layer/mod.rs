@@ -150,6 +150,46 @@ impl Rounder<'_> {
         }
     }
 
+    /// [`Rounder::accumulate_outer`] for every row of an outer product: row `j` of `acc`
+    /// (`n_in` values from `j · n_in`) gets `gy[j] · x`, for `j < n_out`. The same values,
+    /// counts and draws, with the word of `x` matched once per call.
+    #[allow(clippy::too_many_arguments)]
+    pub fn accumulate_outer_rows(
+        &mut self,
+        acc: &mut TensorMut<'_>,
+        gy: Tensor<'_>,
+        x: Raw<'_>,
+        n_out: usize,
+        n_in: usize,
+        from_frac: u32,
+        tally: &mut Tally,
+    ) {
+        let to = acc.frac();
+        let (mode, rng) = (self.mode, &mut *self.rng);
+        if let (RawMut::I32(a), true) = (&mut acc.raw, n_in > 0) {
+            if let Some(a) = a.get_mut(..n_out * n_in) {
+                let rows = Rows {
+                    gy,
+                    n_in,
+                    from_frac,
+                    to,
+                    mode,
+                };
+                match x {
+                    Raw::I8(xs) if WORD_I8 => rows.run(a, xs, rng, tally),
+                    Raw::I16(xs) => rows.run(a, xs, rng, tally),
+                    Raw::I32(xs) if WORD_I32 => rows.run(a, xs, rng, tally),
+                    // Not built: a checked description has no such values.
+                    _ => {}
+                }
+                return;
+            }
+        }
+        for j in 0..n_out {
+            self.accumulate_outer(acc, j * n_in, gy.at(j) as i64, x, n_in, from_frac, tally);
+        }
+    }
+
     /// Like [`Rounder::store`] for a 128-bit value (the rare case of a bias aligned to a very
     /// fine scale).
     #[inline(never)]
@@ -207,6 +247,32 @@ impl Rounder<'_> {
             acc.fmt.word,
             sat_before || sat_shift || sat_add || sat_word,
         );
+    }
+}
+
+/// The rows of [`Rounder::accumulate_outer_rows`] into a 32-bit accumulator.
+struct Rows<'g> {
+    gy: Tensor<'g>,
+    n_in: usize,
+    from_frac: u32,
+    to: u32,
+    mode: Rounding,
+}
+
+impl Rows<'_> {
+    /// Each row as [`Rounder::accumulate_outer`] adds it: rows with a zero gradient skipped
+    /// unless the rounding is stochastic, and then counted in a tally that is dropped.
+    fn run<X: Sample>(self, acc: &mut [i32], x: &[X], rng: &mut Rng, tally: &mut Tally) {
+        let stochastic = self.mode == Rounding::Stochastic;
+        for (j, row) in acc.chunks_exact_mut(self.n_in).enumerate() {
+            let g = self.gy.at(j) as i64;
+            if g == 0 && !stochastic {
+                continue;
+            }
+            let mut dropped = Tally::default();
+            let tally = if g == 0 { &mut dropped } else { &mut *tally };
+            outer_row(row, x, g, self.from_frac, self.to, self.mode, rng, tally);
+        }
     }
 }
 
