@@ -10,10 +10,10 @@
 
 use super::{Rounder, Tensor, TensorMut};
 use crate::approx;
-use crate::kernel::Tally;
+use crate::kernel::{outer_half, Tally, WORD_I32, WORD_I8};
 use crate::model::LayerKind;
-use crate::num::round::shift_right;
-use crate::num::Rounding;
+use crate::num::round::{requantize, shift_right, NearestEven, RoundMode, Shr64};
+use crate::num::{QFormat, RawMut, Rng, Rounding, Sample};
 
 /// Fraction bits of the sigmoid and tanh derivatives in backward.
 pub const DERIV_FRAC: u32 = 30;
@@ -34,7 +34,7 @@ pub fn forward(
     t: &mut Tally,
 ) {
     let fx = x.frac();
-    for i in 0..n {
+    let value = |i: usize, _: &mut Rng| -> (i64, u32) {
         let v = x.at(i) as i64;
         let (out, f) = match kind {
             LayerKind::Relu => (v.max(0), fx),
@@ -58,8 +58,9 @@ pub fn forward(
             // Not element-wise, or not built; never dispatched here.
             _ => (v, fx),
         };
-        r.store(y, i, out, f, false, t);
-    }
+        (out, f)
+    };
+    store_all(y, n, value, r, t);
 }
 
 /// Backward pass over `n` values: `gx = f'(x) · gy`.
@@ -75,7 +76,7 @@ pub fn backward(
     t: &mut Tally,
 ) {
     let (fx, fy, fg) = (x.frac(), y.frac(), gy.frac());
-    for i in 0..n {
+    let value = |i: usize, rng: &mut Rng| -> (i64, u32) {
         let g = gy.at(i) as i64;
         let (v, f) = match kind {
             LayerKind::Relu => (if x.at(i) > 0 { g } else { 0 }, fg),
@@ -103,25 +104,127 @@ pub fn backward(
             }
             LayerKind::Sigmoid if cfg!(feature = "table-activations") => {
                 let yv = y.at(i) as i64;
-                (deriv(yv * (one(fy) - yv), 2 * fy, r) * g, DERIV_FRAC + fg)
+                (deriv(yv * (one(fy) - yv), 2 * fy, rng) * g, DERIV_FRAC + fg)
             }
             LayerKind::Tanh if cfg!(feature = "table-activations") => {
                 let yv = y.at(i) as i64;
-                (deriv(one(2 * fy) - yv * yv, 2 * fy, r) * g, DERIV_FRAC + fg)
+                (
+                    deriv(one(2 * fy) - yv * yv, 2 * fy, rng) * g,
+                    DERIV_FRAC + fg,
+                )
             }
             _ => (g, fg),
         };
-        r.store(gx, i, v, f, false, t);
-    }
+        (v, f)
+    };
+    store_all(gx, n, value, r, t);
 }
 
 /// A derivative with `f` fraction bits brought to [`DERIV_FRAC`] (nearest, ties to even; no
 /// random draw). Derivatives of sigmoid and tanh lie in [0, 1], so the result fits 31 bits.
+/// Stores `value(i)` (a wide value and its fraction bits) into `out[i]` for `i < n`, as
+/// [`Rounder::store`] does value by value. With nearest-even rounding the output's word is
+/// matched once per call and the rounding stays inline.
+fn store_all<F: FnMut(usize, &mut Rng) -> (i64, u32)>(
+    out: &mut TensorMut<'_>,
+    n: usize,
+    mut value: F,
+    r: &mut Rounder<'_>,
+    t: &mut Tally,
+) {
+    if r.mode == Rounding::NearestEven && out.raw.len() >= n {
+        let fmt = out.fmt;
+        match &mut out.raw {
+            RawMut::I8(o) if WORD_I8 => store_typed(&mut o[..n], fmt, value, r.rng, t),
+            RawMut::I16(o) => store_typed(&mut o[..n], fmt, value, r.rng, t),
+            RawMut::I32(o) if WORD_I32 => store_typed(&mut o[..n], fmt, value, r.rng, t),
+            // Not built: a checked description has no such values.
+            _ => {}
+        }
+        return;
+    }
+    for i in 0..n {
+        let (v, f) = value(i, r.rng);
+        r.store(out, i, v, f, false, t);
+    }
+}
+
+/// [`store_all`]'s loop for an output stored as `O`, rounding to nearest, ties to even.
+#[inline(never)]
+fn store_typed<O: Sample, F: FnMut(usize, &mut Rng) -> (i64, u32)>(
+    out: &mut [O],
+    fmt: QFormat,
+    mut value: F,
+    rng: &mut Rng,
+    t: &mut Tally,
+) {
+    const BOUND: i64 = 1 << 62;
+    let to = fmt.frac as u32;
+    let (mut sats, mut high) = (0u32, 0u32);
+    for (i, o) in out.iter_mut().enumerate() {
+        let (v, f) = value(i, rng);
+        let shift = f.checked_sub(to).and_then(Shr64::new);
+        let (q, sat) = match shift {
+            Some(s) if (-BOUND..=BOUND).contains(&v) => {
+                O::WORD.saturate_narrow(NearestEven::shr64(v, s, rng))
+            }
+            _ if f == to => O::WORD.saturate_narrow(v),
+            _ => requantize(v, f, fmt, Rounding::NearestEven, rng),
+        };
+        *o = O::from_i32_in_range(q);
+        sats += sat as u32;
+        high += (sat || outer_half(q, O::WORD)) as u32;
+    }
+    t.values = t.values.saturating_add(out.len() as u32);
+    t.saturations = t.saturations.saturating_add(sats);
+    t.high = t.high.saturating_add(high);
+}
+
 #[inline]
-fn deriv(d: i64, f: u32, r: &mut Rounder<'_>) -> i64 {
+fn deriv(d: i64, f: u32, rng: &mut Rng) -> i64 {
     if f >= DERIV_FRAC {
-        shift_right(d, f - DERIV_FRAC, Rounding::NearestEven, r.rng)
+        shift_right(d, f - DERIV_FRAC, Rounding::NearestEven, rng)
     } else {
         d << (DERIV_FRAC - f)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::num::Word;
+    use proptest::prelude::{any, prop_oneof, proptest, Just, ProptestConfig};
+
+    proptest! {
+        #![proptest_config(ProptestConfig::with_cases(2000))]
+
+        /// The per-call store against `Rounder::store` value by value, for wide values of any
+        /// magnitude and fraction bits on both sides of the output's.
+        #[test]
+        fn typed_store_equals_value_by_value(
+            word in prop_oneof![Just(Word::I8), Just(Word::I16), Just(Word::I32)],
+            to in 0u8..=31,
+            vals in proptest::collection::vec((any::<i64>(), 0u32..64, 0u32..=62), 1..8),
+        ) {
+            let fmt = QFormat::new_unchecked(word, to.min(word.bits() as u8 - 1));
+            let vals: Vec<(i64, u32)> = vals.iter().map(|&(v, s, f)| (v >> s, f)).collect();
+            let n = vals.len();
+            let run = |typed: bool| {
+                let mut words = [0u32; 8];
+                let mut out = TensorMut { raw: RawMut::from_words(&mut words, word, n).unwrap(), fmt };
+                let (mut t, mut rng) = (Tally::default(), Rng::new(5));
+                let mut r = Rounder { mode: Rounding::NearestEven, rng: &mut rng };
+                if typed {
+                    store_all(&mut out, n, |i, _| vals[i], &mut r, &mut t);
+                } else {
+                    for (i, &(v, f)) in vals.iter().enumerate() {
+                        r.store(&mut out, i, v, f, false, &mut t);
+                    }
+                }
+                let q: Vec<i32> = (0..n).map(|i| out.raw.at(i)).collect();
+                (q, t, rng)
+            };
+            assert_eq!(run(true), run(false));
+        }
     }
 }
