@@ -12,7 +12,7 @@ use super::{Rounder, Tensor, TensorMut};
 use crate::approx;
 use crate::kernel::{outer_half, Tally, WORD_I32, WORD_I8};
 use crate::model::LayerKind;
-use crate::num::round::{requantize, shift_right, NearestEven, RoundMode, Shr64};
+use crate::num::round::{requantize, shift_right, NearestEven, RoundMode, Shr32, Shr64};
 use crate::num::{QFormat, RawMut, Rng, Rounding, Sample};
 
 /// Fraction bits of the sigmoid and tanh derivatives in backward.
@@ -158,14 +158,26 @@ fn store_typed<O: Sample, F: FnMut(usize, &mut Rng) -> (i64, u32)>(
     rng: &mut Rng,
     t: &mut Tally,
 ) {
-    const BOUND: i64 = 1 << 62;
+    const BOUND32: i64 = 1 << 30;
+    const BOUND64: i64 = 1 << 62;
     let to = fmt.frac as u32;
     let (mut sats, mut high) = (0u32, 0u32);
+    // The shifts for the last fraction bits seen (they change only for leaky ReLU).
+    let shifts = |f: u32| {
+        let s = f.checked_sub(to);
+        (f, s.and_then(Shr32::new), s.and_then(Shr64::new))
+    };
+    let mut last = shifts(to);
     for (i, o) in out.iter_mut().enumerate() {
         let (v, f) = value(i, rng);
-        let shift = f.checked_sub(to).and_then(Shr64::new);
-        let (q, sat) = match shift {
-            Some(s) if (-BOUND..=BOUND).contains(&v) => {
+        if f != last.0 {
+            last = shifts(f);
+        }
+        let (q, sat) = match last {
+            (_, Some(s), _) if (-BOUND32..=BOUND32).contains(&v) => {
+                O::WORD.saturate_narrow(NearestEven::shr32(v as i32, s, rng) as i64)
+            }
+            (_, _, Some(s)) if (-BOUND64..=BOUND64).contains(&v) => {
                 O::WORD.saturate_narrow(NearestEven::shr64(v, s, rng))
             }
             _ if f == to => O::WORD.saturate_narrow(v),
