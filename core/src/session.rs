@@ -334,6 +334,23 @@ mod tests {
             .expect("encodes")
     }
 
+    /// `x.len()` one-input samples with the targets `y`, in Q3.12.
+    fn values<'a>(x: &'a [i16], y: &'a [i16]) -> SampleSet<'a> {
+        SampleSet {
+            count: x.len() as u16,
+            x: Raw::I16(x),
+            y: Targets::Values(Tensor {
+                raw: Raw::I16(y),
+                fmt: Q,
+            }),
+        }
+    }
+
+    const INIT: [LayerParams<'static>; 1] = [LayerParams {
+        weight: Raw::I16(&[2048]),
+        bias: Raw::I16(&[0]),
+    }];
+
     #[derive(Default)]
     struct Log {
         events: [(u8, u32); 6],
@@ -356,28 +373,11 @@ mod tests {
         let (desc, plan) = model();
         let mut buf = [0u8; 256];
         let n = factory(&desc, &mut buf);
-        let init = [LayerParams {
-            weight: Raw::I16(&[2048]),
-            bias: Raw::I16(&[0]),
-        }];
+        let init = INIT;
         // Two calibration samples x = 1 → 1 and x = 0.5 → 0.5, one held back: x = 1 → 1.
         let xs = [4096i16, 2048];
-        let set = SampleSet {
-            count: 2,
-            x: Raw::I16(&xs),
-            y: Targets::Values(Tensor {
-                raw: Raw::I16(&xs),
-                fmt: Q,
-            }),
-        };
-        let held = SampleSet {
-            count: 1,
-            x: Raw::I16(&xs[..1]),
-            y: Targets::Values(Tensor {
-                raw: Raw::I16(&xs[..1]),
-                fmt: Q,
-            }),
-        };
+        let set = values(&xs, &xs);
+        let held = values(&xs[..1], &xs[..1]);
         assert!(set.fits(1, 1) && held.fits(1, 1) && !set.fits(2, 1));
 
         let mut arena = vec![0u32; plan.ram_words()];
@@ -423,29 +423,12 @@ mod tests {
         let (desc, plan) = model();
         let mut buf = [0u8; 256];
         let n = factory(&desc, &mut buf);
-        let init = [LayerParams {
-            weight: Raw::I16(&[2048]),
-            bias: Raw::I16(&[0]),
-        }];
+        let init = INIT;
         // Trained towards y = −x, judged on y = x: the loss rises and the guard rejects.
         let x = [4096i16];
         let neg = [-4096i16];
-        let wrong = SampleSet {
-            count: 1,
-            x: Raw::I16(&x),
-            y: Targets::Values(Tensor {
-                raw: Raw::I16(&neg),
-                fmt: Q,
-            }),
-        };
-        let held = SampleSet {
-            count: 1,
-            x: Raw::I16(&x),
-            y: Targets::Values(Tensor {
-                raw: Raw::I16(&x),
-                fmt: Q,
-            }),
-        };
+        let wrong = values(&x, &neg);
+        let held = values(&x, &x);
         let mut arena = vec![0u32; plan.ram_words()];
         let mut t = Trainer::new(&desc, &plan, &mut arena, &init).expect("trainer");
         let state = t.train_state();
