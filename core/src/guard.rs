@@ -17,9 +17,10 @@
 //!
 //! Everything is integer: losses are [`LossValue`]s, rates are parts per million.
 
+use crate::blob::{self, BlobKind, CheckedBlob, TrainState};
 use crate::layer::loss::{LossValue, Target};
 use crate::layer::Tensor;
-use crate::train::Trainer;
+use crate::train::{LayerParams, Trainer};
 use crate::Error;
 
 /// Thresholds of the guard.
@@ -174,7 +175,8 @@ pub struct SessionReport {
 /// sample turns out not to fit the model, it restores the trainer from `last_good` (the blob
 /// of the weights before the session: the factory model or the last committed checkpoint);
 /// with a factory model it also puts back the training state the trainer had before the
-/// session, so the trainer is exactly as it was.
+/// session, so the trainer is exactly as it was. This is [`calibrate_with`] with no
+/// observer: the firmware and the host run the same procedure.
 ///
 /// # Example
 /// ```
@@ -224,48 +226,133 @@ pub fn calibrate<'s, T, H>(
     train: T,
     holdout: H,
     cfg: &GuardConfig,
-    last_good: &crate::blob::CheckedBlob<'_>,
+    last_good: &CheckedBlob<'_>,
 ) -> Result<SessionReport, Error>
 where
     T: IntoIterator<Item = (Tensor<'s>, Target<'s>)>,
     H: IntoIterator<Item = (Tensor<'s>, Target<'s>)> + Clone,
 {
+    calibrate_with(
+        trainer,
+        train,
+        holdout,
+        cfg,
+        LastGood::Checked(last_good),
+        &mut (),
+    )
+}
+
+/// A part of a guarded session that an [`Observer`] hears about.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[cfg_attr(feature = "defmt", derive(defmt::Format))]
+pub enum Phase {
+    /// The held-back samples under the weights of before.
+    EvalBefore,
+    /// Training on the calibration samples, the flush of the partial batch included.
+    Train,
+    /// The held-back samples under the trained weights.
+    EvalAfter,
+}
+
+impl Phase {
+    /// The three phases, in the order they run.
+    pub const ALL: [Phase; 3] = [Phase::EvalBefore, Phase::Train, Phase::EvalAfter];
+
+    /// Index of the phase in [`Phase::ALL`].
+    pub const fn index(self) -> usize {
+        match self {
+            Phase::EvalBefore => 0,
+            Phase::Train => 1,
+            Phase::EvalAfter => 2,
+        }
+    }
+
+    /// Whether the phase trains (forward and backward) rather than only evaluates.
+    pub const fn trains(self) -> bool {
+        matches!(self, Phase::Train)
+    }
+}
+
+/// Hears what a guarded session does, for timing and records. Every method does nothing by
+/// default; `()` is the observer that listens to nothing.
+pub trait Observer {
+    /// `phase` starts now.
+    fn enter(&mut self, phase: Phase) {
+        let _ = phase;
+    }
+
+    /// `phase` ended after `samples` samples (evaluated, or trained).
+    fn leave(&mut self, phase: Phase, samples: u32) {
+        let _ = (phase, samples);
+    }
+}
+
+impl Observer for () {}
+
+/// The weights a rejected session goes back to.
+#[derive(Clone, Copy, Debug)]
+pub enum LastGood<'a> {
+    /// A blob already decoded.
+    Checked(&'a CheckedBlob<'a>),
+    /// The bytes of a blob, decoded only if a rollback needs them (and then checked).
+    Encoded(&'a [u8]),
+    /// Factory parameters, one entry per layer (as [`Trainer::new`] and [`Trainer::load`]
+    /// take them): the same rollback as the factory model's blob, without decoding one. A
+    /// device whose trainer starts from parameters in flash goes back to them this way and
+    /// spends no stack on a decoded blob.
+    Params(&'a [LayerParams<'a>]),
+}
+
+/// [`calibrate`] with the last good model given either way ([`LastGood`]) and `obs` told of
+/// each phase: the procedure the firmware and the host both run
+/// ([`crate::session::calibrate_set`]).
+///
+/// # Errors
+/// Sample errors from training or evaluation (after rolling back), and the errors of
+/// [`Trainer::restore`] and of decoding [`LastGood::Encoded`] bytes.
+pub fn calibrate_with<'s, T, H, O>(
+    trainer: &mut Trainer<'_>,
+    train: T,
+    holdout: H,
+    cfg: &GuardConfig,
+    last_good: LastGood<'_>,
+    obs: &mut O,
+) -> Result<SessionReport, Error>
+where
+    T: IntoIterator<Item = (Tensor<'s>, Target<'s>)>,
+    H: IntoIterator<Item = (Tensor<'s>, Target<'s>)> + Clone,
+    O: Observer + ?Sized,
+{
     // Everything a rejection must give back: the weights come from `last_good`, the rest
     // (generator, counters, fraction bits, the dynamic interval) from this snapshot.
     let saved = trainer.train_state();
-    let rollback = |trainer: &mut Trainer<'_>| -> Result<(), Error> {
-        trainer.restore(last_good)?;
-        if last_good.kind() == crate::blob::BlobKind::Model {
-            trainer.set_train_state(&saved)?;
-        }
-        Ok(())
-    };
-    let before = evaluate(trainer, holdout.clone())?;
-    let mut trained = 0u32;
-    let mut failed = None;
-    for (x, t) in train {
-        if let Err(e) = trainer.step(x, t) {
-            failed = Some(e);
-            break;
-        }
-        trained += 1;
-    }
+    obs.enter(Phase::EvalBefore);
+    let before = evaluate(trainer, holdout.clone());
+    obs.leave(Phase::EvalBefore, before.map_or(0, |e| e.samples));
+    let before = before?;
+
+    obs.enter(Phase::Train);
+    let (trained, failed) = train_phase(trainer, train);
+    obs.leave(Phase::Train, trained);
     // A sample that does not fit ends the session: the weights go back before the error does.
     if let Some(e) = failed {
-        rollback(trainer)?;
+        rollback(trainer, last_good, &saved)?;
         return Err(e);
     }
-    trainer.flush();
-    let after = match evaluate(trainer, holdout) {
+
+    obs.enter(Phase::EvalAfter);
+    let after = evaluate(trainer, holdout);
+    obs.leave(Phase::EvalAfter, after.map_or(0, |e| e.samples));
+    let after = match after {
         Ok(a) => a,
         Err(e) => {
-            rollback(trainer)?;
+            rollback(trainer, last_good, &saved)?;
             return Err(e);
         }
     };
     let verdict = judge(&before, &after, cfg);
     if verdict != Verdict::Accept {
-        rollback(trainer)?;
+        rollback(trainer, last_good, &saved)?;
     }
     Ok(SessionReport {
         before,
@@ -273,6 +360,73 @@ where
         verdict,
         trained,
     })
+}
+
+/// Trains on `samples` in order, then applies the partial batch; at the first sample error it
+/// stops, without the flush. Returns the samples trained and that error. Out of line, so that
+/// a training phase is one call (a per-function profile of the firmware takes its extent).
+#[inline(never)]
+pub(crate) fn train_phase<'s, T>(trainer: &mut Trainer<'_>, samples: T) -> (u32, Option<Error>)
+where
+    T: IntoIterator<Item = (Tensor<'s>, Target<'s>)>,
+{
+    let mut trained = 0u32;
+    for (x, t) in samples {
+        if let Err(e) = step(trainer, x, t) {
+            return (trained, Some(e));
+        }
+        trained += 1;
+    }
+    trainer.flush();
+    (trained, None)
+}
+
+/// One training step, out of line: the step's frames stay apart from the phase's loop, and its
+/// code is not copied into every loop that trains.
+#[inline(never)]
+fn step(trainer: &mut Trainer<'_>, x: Tensor<'_>, t: Target<'_>) -> Result<(), Error> {
+    trainer.step(x, t).map(|_| ())
+}
+
+/// Puts back the last good weights and, after a factory model, the training state of before
+/// the session.
+fn rollback(
+    trainer: &mut Trainer<'_>,
+    last_good: LastGood<'_>,
+    saved: &TrainState,
+) -> Result<(), Error> {
+    match last_good {
+        LastGood::Checked(b) => restore(trainer, b, saved),
+        LastGood::Encoded(bytes) => rollback_encoded(trainer, bytes, saved),
+        LastGood::Params(params) => {
+            trainer.load(params)?;
+            trainer.set_train_state(saved)
+        }
+    }
+}
+
+/// Decodes the last good blob and restores it. Kept out of line so the decoded blob takes
+/// stack only here, during such a rollback.
+#[inline(never)]
+fn rollback_encoded(
+    trainer: &mut Trainer<'_>,
+    bytes: &[u8],
+    saved: &TrainState,
+) -> Result<(), Error> {
+    restore(trainer, &blob::decode(bytes)?, saved)
+}
+
+fn restore(
+    trainer: &mut Trainer<'_>,
+    b: &CheckedBlob<'_>,
+    saved: &TrainState,
+) -> Result<(), Error> {
+    trainer.restore(b)?;
+    // A factory blob carries weights only: the rest comes back from the snapshot.
+    if b.kind() == BlobKind::Model {
+        trainer.set_train_state(saved)?;
+    }
+    Ok(())
 }
 
 #[cfg(test)]

@@ -411,9 +411,9 @@ fn lean_build_trains_bit_exact_and_links_less_engine() {
 ///
 /// The firmware counts with SysTick, which under `-icount shift=0` advances in exact
 /// proportion to instructions (80 per tick on this board, stated in its boot record); it reads
-/// the counter before and after the call of `engine::train` (the `calib_train` span), so its
-/// count is quantised to one tick at each end and includes the two counter reads and the
-/// closure around the call. The profile counts the call itself. They must agree within two
+/// the counter before and after the call of the core's training phase (the `calib_train`
+/// span), so its count is quantised to one tick at each end and includes the two counter
+/// reads and the observer's calls around the call. The profile counts the call itself. They must agree within two
 /// ticks plus 100 instructions.
 #[test]
 fn profile_of_the_calibration_step_agrees_with_the_firmware_count() {

@@ -22,13 +22,14 @@
 //! decoder in `host-cli` parses them by field name.
 #![no_std]
 #![deny(missing_docs)]
-#![deny(unsafe_op_in_unsafe_fn)]
 
 #[cfg(all(feature = "cortex-m", feature = "riscv"))]
 compile_error!("enable exactly one of the features `cortex-m` and `riscv`");
 
 pub mod blob;
 pub mod measure;
+// Paints and scans the stack in assembly.
+#[allow(unsafe_code)]
 pub mod memory;
 pub mod platform;
 pub mod record;
@@ -37,9 +38,13 @@ pub mod throughput;
 pub mod train;
 pub mod workload;
 
+// Counter and stack-pointer assembly, and the fault handlers.
 #[cfg(feature = "cortex-m")]
+#[allow(unsafe_code)]
 pub mod cortex_m;
+// Counter and stack-pointer assembly, the stack painting before `main`, the trap handler.
 #[cfg(feature = "riscv")]
+#[allow(unsafe_code)]
 pub mod riscv;
 
 mod panic;

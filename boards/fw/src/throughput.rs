@@ -299,7 +299,7 @@ fn train_fixed<P: Platform, const ARENA: usize, const VALUES: usize>(
             };
         }
     });
-    let (inputs, outputs) = sample_values(t.plan);
+    let (inputs, _) = sample_values(t.plan);
     let (x, y) = pool.split_at(pool.len().min(usize::from(t.pool) * inputs));
     let set = SampleSet {
         count: t.pool,
@@ -317,10 +317,7 @@ fn train_fixed<P: Platform, const ARENA: usize, const VALUES: usize>(
         Ok(tr) => tr,
         Err(e) => return Err(SessionError::Engine(*e)),
     };
-    let io = (inputs, outputs);
-    let (trained, span) = ctx.time(work(t, t.plan), || {
-        engine::train(trainer, &set, t.passes, t.input_format, io)
-    });
+    let (trained, span) = ctx.time(work(t, t.plan), || engine::train(trainer, &set, t.passes));
     trained.map_err(SessionError::Engine)?;
     let stack = memory::stack_usage_since_repaint();
     record::span("tput_train", &span);
@@ -350,7 +347,7 @@ fn train_f32<P: Platform, const FLOAT_ARENA: usize, const VALUES: usize>(
             *p = FloatParams { weight: w, bias: b };
         }
     });
-    let (inputs, outputs) = sample_values(t.plan);
+    let (inputs, _) = sample_values(t.plan);
     let (x, y) = pool.split_at(pool.len().min(usize::from(t.pool) * inputs));
     let set = FloatSet {
         count: t.pool,
@@ -361,9 +358,8 @@ fn train_f32<P: Platform, const FLOAT_ARENA: usize, const VALUES: usize>(
     let params = params.get(..t.layers.len()).unwrap_or(&[]);
     let mut twin =
         engine::new_twin(&desc, t.float_plan, &mut arena, params).map_err(SessionError::Engine)?;
-    let io = (inputs, outputs);
     let (trained, span) = ctx.time(work(t, t.float_plan), || {
-        engine::train_twin(&mut twin, &set, t.passes, io)
+        engine::train_twin(&mut twin, t.float_plan, &set, t.passes)
     });
     trained.map_err(SessionError::Engine)?;
     let stack = memory::stack_usage_since_repaint();

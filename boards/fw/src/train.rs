@@ -9,9 +9,10 @@
 //! 1. an `engine` record: arena and object sizes, multiply-accumulates per sample;
 //! 2. the **calibration** set: evaluate the hold-out samples under the factory weights, train
 //!    on the calibration samples (`passes` passes in stored order, then a flush of the partial
-//!    batch), evaluate the hold-out samples again, judge with the core's
-//!    [`hone_core::guard::judge`], and restore the factory blob on rejection. This is the body of
-//!    [`hone_core::guard::calibrate`], split so each part is timed on its own. A `guard` record gives the
+//!    batch), evaluate the hold-out samples again, judge, and go back to the factory
+//!    parameters on rejection. This is the core's session
+//!    ([`hone_core::session::calibrate_set`], the procedure of [`hone_core::guard::calibrate`]),
+//!    the same code the host runs; an observer times each part. A `guard` record gives the
 //!    verdict and both losses; the trained tensors and the checkpoint blob go to the host as
 //!    payloads;
 //! 3. the **faulty** set: the same inputs with mislabelled targets, which the guard is expected
@@ -33,13 +34,12 @@
 use core::mem::size_of;
 
 use hone_core::blob::{ChannelScale, CheckedBlob};
-use hone_core::float::{FloatParams, FloatTarget, Twin};
+use hone_core::float::{FloatParams, Twin};
 use hone_core::guard::{Evaluation, GuardConfig, Rejection, Verdict};
-use hone_core::layer::loss::Target;
-use hone_core::layer::Tensor;
 use hone_core::model::{LayerDesc, Loss, ModelDesc, Shape, TrainDesc};
 use hone_core::num::{QFormat, Raw};
 use hone_core::plan::Plan;
+use hone_core::session::{self, LastGood, Observer, Phase};
 use hone_core::train::{LayerParams, Trainer};
 
 use crate::blob::{BlobWriter, CHUNK};
@@ -48,46 +48,7 @@ use crate::platform::Platform;
 use crate::record;
 use crate::session::{Ctx, SessionError};
 
-/// Targets of a [`SampleSet`].
-#[derive(Clone, Copy, Debug)]
-pub enum Targets<'a> {
-    /// Regression targets: one value per model output and sample, flattened, in one format.
-    Values(Tensor<'a>),
-    /// Class labels, one per sample.
-    Classes(&'a [u16]),
-}
-
-/// Samples for the fixed-point trainer, flattened: sample `i` is `x[i·n .. (i+1)·n]` for a
-/// model input of `n` values.
-#[derive(Clone, Copy, Debug)]
-pub struct SampleSet<'a> {
-    /// Number of samples.
-    pub count: u16,
-    /// Inputs, in the model's input format.
-    pub x: Raw<'a>,
-    /// Targets.
-    pub y: Targets<'a>,
-}
-
-/// Targets of a [`FloatSet`].
-#[derive(Clone, Copy, Debug)]
-pub enum FloatTargets<'a> {
-    /// Regression targets, flattened.
-    Values(&'a [f32]),
-    /// Class labels.
-    Classes(&'a [u16]),
-}
-
-/// Samples for the float twin, flattened like [`SampleSet`].
-#[derive(Clone, Copy, Debug)]
-pub struct FloatSet<'a> {
-    /// Number of samples.
-    pub count: u16,
-    /// Inputs.
-    pub x: &'a [f32],
-    /// Targets.
-    pub y: FloatTargets<'a>,
-}
+pub use hone_core::session::{FloatSet, FloatTargets, SampleSet, Targets};
 
 /// Everything one calibration session needs, as the host generated it for the board.
 #[derive(Clone, Copy)]
@@ -106,7 +67,8 @@ pub struct Session<'a> {
     pub plan: &'a Plan,
     /// Factory parameters, one entry per layer.
     pub params: &'a [LayerParams<'a>],
-    /// The factory model as a blob: the last good weights the guard restores.
+    /// The factory model as a blob, checked once to describe this model; its tensors are
+    /// [`Session::params`], the last good weights a rejected set goes back to.
     pub model_blob: &'a [u8],
     /// Input scaling, carried into checkpoints.
     pub scaling: &'a [ChannelScale],
@@ -125,7 +87,7 @@ pub struct Session<'a> {
     /// The float twin's start: the factory parameters in `f32`.
     pub float_params: &'a [FloatParams<'a, f32>],
     /// The calibration samples in `f32`, for the twin.
-    pub float_calibration: FloatSet<'a>,
+    pub float_calibration: FloatSet<'a, f32>,
 }
 
 /// Includes the session files the board's build script copied into `OUT_DIR` (`model.rs` and
@@ -198,25 +160,11 @@ const FAULTY: SetNames = SetNames {
     checkpoint: "faulty_checkpoint",
 };
 
-/// Multiply-accumulates of one training sample: the forward pass, plus for every layer with
-/// parameters from the first trained one on, its weight gradient (if its weights train) and
-/// its input gradient (if a trained layer lies below it).
+/// Multiply-accumulates of one training sample, `(forward, backward)`, as the record gives
+/// them: [`hone_core::session::training_macs`], saturated to 32 bits.
 #[must_use]
-pub fn training_macs(plan: &Plan, layers: &[LayerDesc]) -> (u32, u32) {
-    let forward = plan.forward_macs();
-    let mut backward = 0u64;
-    for (k, l) in layers.iter().enumerate().skip(plan.first_trainable) {
-        if !l.kind.has_params() {
-            continue;
-        }
-        let macs = u64::from(plan.shapes.layers.get(k).map_or(0, |g| g.macs));
-        if l.mode.trains_weight() {
-            backward += macs;
-        }
-        if k > plan.first_trainable {
-            backward += macs;
-        }
-    }
+pub fn training_macs(plan: &Plan) -> (u32, u32) {
+    let (forward, backward) = hone_core::session::training_macs(plan);
     (sat_u32(forward), sat_u32(backward))
 }
 
@@ -259,80 +207,22 @@ impl Session<'_> {
     }
 }
 
-impl<'a> SampleSet<'a> {
-    /// Checks that inputs and targets hold `count` samples for a model of `inputs` inputs and
-    /// `outputs` outputs.
-    fn check(&self, inputs: usize, outputs: usize) -> Result<(), SessionError> {
-        let n = usize::from(self.count);
-        let targets_ok = match self.y {
-            Targets::Values(t) => t.raw.len() == n * outputs,
-            Targets::Classes(c) => c.len() == n,
-        };
-        if self.x.len() == n * inputs && targets_ok {
-            Ok(())
-        } else {
-            Err(SessionError::Check("sample-set-shape"))
-        }
-    }
-
-    /// Sample `i`. Past the end (never, after [`SampleSet::check`]) the tensors are empty and
-    /// the core reports a length error.
-    fn sample(
-        &self,
-        i: usize,
-        fmt: QFormat,
-        inputs: usize,
-        outputs: usize,
-    ) -> (Tensor<'a>, Target<'a>) {
-        let x = Tensor {
-            raw: self.x.slice(i * inputs, inputs).unwrap_or(Raw::EMPTY),
-            fmt,
-        };
-        let t = match self.y {
-            Targets::Values(t) => Target::Values(Tensor {
-                raw: t.raw.slice(i * outputs, outputs).unwrap_or(Raw::EMPTY),
-                fmt: t.fmt,
-            }),
-            Targets::Classes(c) => Target::Class(c.get(i).copied().unwrap_or(u16::MAX)),
-        };
-        (x, t)
-    }
-}
-
-impl<'a> FloatSet<'a> {
-    fn check(&self, inputs: usize, outputs: usize) -> Result<(), SessionError> {
-        let n = usize::from(self.count);
-        let targets_ok = match self.y {
-            FloatTargets::Values(t) => t.len() == n * outputs,
-            FloatTargets::Classes(c) => c.len() == n,
-        };
-        if self.x.len() == n * inputs && targets_ok {
-            Ok(())
-        } else {
-            Err(SessionError::Check("float-set-shape"))
-        }
-    }
-
-    fn sample(&self, i: usize, inputs: usize, outputs: usize) -> (&'a [f32], FloatTarget<'a, f32>) {
-        let x = self.x.get(i * inputs..(i + 1) * inputs).unwrap_or(&[]);
-        let t = match self.y {
-            FloatTargets::Values(t) => {
-                FloatTarget::Values(t.get(i * outputs..(i + 1) * outputs).unwrap_or(&[]))
-            }
-            FloatTargets::Classes(c) => FloatTarget::Class(c.get(i).copied().unwrap_or(u16::MAX)),
-        };
-        (x, t)
+/// A sample set's shape against the model, as a self-check of the session files.
+fn check_fits(fits: bool, what: &'static str) -> Result<(), SessionError> {
+    if fits {
+        Ok(())
+    } else {
+        Err(SessionError::Check(what))
     }
 }
 
 /// The calls into the core, each in a symbol of its own (see the [module docs](self)).
 pub(crate) mod engine {
-    use hone_core::blob::{self, ChannelScale, TrainState};
+    use hone_core::blob::{self, ChannelScale};
     use hone_core::float::{FloatParams, Twin};
-    use hone_core::guard::{self, Evaluation, GuardConfig, Verdict};
     use hone_core::model::ModelDesc;
-    use hone_core::num::QFormat;
     use hone_core::plan::Plan;
+    use hone_core::session;
     use hone_core::train::{LayerParams, Trainer};
     use hone_core::Error;
 
@@ -359,64 +249,10 @@ pub(crate) mod engine {
         Trainer::new(desc, plan, arena, params)
     }
 
+    /// Training without a guard: [`session::train`].
     #[inline(never)]
-    pub fn evaluate(
-        t: &mut Trainer<'_>,
-        set: &SampleSet<'_>,
-        fmt: QFormat,
-        io: (usize, usize),
-    ) -> Result<Evaluation, Error> {
-        let n = usize::from(set.count);
-        guard::evaluate(t, (0..n).map(|i| set.sample(i, fmt, io.0, io.1)))
-    }
-
-    /// The training part of `guard::calibrate`: every sample of every pass, then the flush.
-    #[inline(never)]
-    pub fn train(
-        t: &mut Trainer<'_>,
-        set: &SampleSet<'_>,
-        passes: u16,
-        fmt: QFormat,
-        io: (usize, usize),
-    ) -> Result<u32, Error> {
-        let mut trained = 0u32;
-        for _ in 0..passes {
-            for i in 0..usize::from(set.count) {
-                let (x, y) = set.sample(i, fmt, io.0, io.1);
-                t.step(x, y)?;
-                trained += 1;
-            }
-        }
-        t.flush();
-        Ok(trained)
-    }
-
-    #[inline(never)]
-    pub fn judge(before: &Evaluation, after: &Evaluation, cfg: &GuardConfig) -> Verdict {
-        guard::judge(before, after, cfg)
-    }
-
-    /// Restores the last good model from its blob, decoded here (so the decoded form takes
-    /// stack only during a rollback, and only once: it is borrowed from the result).
-    #[inline(never)]
-    pub fn rollback(
-        t: &mut Trainer<'_>,
-        last_good: &[u8],
-        before: &TrainState,
-    ) -> Result<(), Error> {
-        let decoded = blob::decode(last_good);
-        match &decoded {
-            Ok(b) => {
-                t.restore(b)?;
-                // The factory blob carries weights only: the training state of before the
-                // session comes back from the snapshot, as `guard::calibrate` does.
-                if b.kind() == blob::BlobKind::Model {
-                    t.set_train_state(before)?;
-                }
-                Ok(())
-            }
-            Err(e) => Err(*e),
-        }
+    pub fn train(t: &mut Trainer<'_>, set: &SampleSet<'_>, passes: u16) -> Result<u32, Error> {
+        session::train(t, set, passes)
     }
 
     #[inline(never)]
@@ -425,7 +261,7 @@ pub(crate) mod engine {
         scaling: &[ChannelScale],
         out: &mut [u8],
     ) -> Result<usize, Error> {
-        t.write_checkpoint(scaling, out)
+        session::checkpoint(t, scaling, out)
     }
 
     #[inline(never)]
@@ -438,24 +274,46 @@ pub(crate) mod engine {
         Twin::new(desc, plan, arena, params)
     }
 
-    /// The twin's training: every sample of every pass, then the flush.
+    /// The twin's training: [`session::train_twin`].
     #[inline(never)]
     pub fn train_twin(
         t: &mut Twin<'_, f32>,
-        set: &FloatSet<'_>,
+        plan: &Plan,
+        set: &FloatSet<'_, f32>,
         passes: u16,
-        io: (usize, usize),
     ) -> Result<u32, Error> {
-        let mut trained = 0u32;
-        for _ in 0..passes {
-            for i in 0..usize::from(set.count) {
-                let (x, y) = set.sample(i, io.0, io.1);
-                t.step(x, y)?;
-                trained += 1;
-            }
+        session::train_twin(t, plan, set, passes)
+    }
+}
+
+/// Times the phases of the core's guarded session with the board's counter.
+struct PhaseTimer<'p, P: Platform> {
+    platform: &'p P,
+    /// Multiply-accumulates of one sample: evaluated (forward), trained (both ways).
+    macs: (u32, u32),
+    start: u64,
+    spans: [crate::measure::Span; 3],
+}
+
+impl<P: Platform> Observer for PhaseTimer<'_, P> {
+    fn enter(&mut self, _: Phase) {
+        self.start = self.platform.ticks();
+    }
+
+    fn leave(&mut self, phase: Phase, samples: u32) {
+        let ticks = self.platform.ticks().saturating_sub(self.start);
+        let per_sample = if phase.trains() {
+            self.macs.0.saturating_add(self.macs.1)
+        } else {
+            self.macs.0
+        };
+        if let Some(span) = self.spans.get_mut(phase.index()) {
+            *span = crate::measure::Span {
+                work: per_sample.saturating_mul(samples),
+                ticks,
+                units: self.platform.tick_unit().to_units(ticks),
+            };
         }
-        t.flush();
-        Ok(trained)
     }
 }
 
@@ -474,11 +332,11 @@ pub fn run<P: Platform, const ARENA: usize, const FLOAT_ARENA: usize, const CHEC
     s: &Session<'_>,
 ) -> Result<(), SessionError> {
     let io = (s.inputs(), s.outputs());
-    s.calibration.check(io.0, io.1)?;
-    s.faulty.check(io.0, io.1)?;
-    s.holdout.check(io.0, io.1)?;
-    s.float_calibration.check(io.0, io.1)?;
-    let (forward, backward) = training_macs(s.plan, s.layers);
+    check_fits(s.calibration.fits(io.0, io.1), "sample-set-shape")?;
+    check_fits(s.faulty.fits(io.0, io.1), "sample-set-shape")?;
+    check_fits(s.holdout.fits(io.0, io.1), "sample-set-shape")?;
+    check_fits(s.float_calibration.fits(io.0, io.1), "float-set-shape")?;
+    let (forward, backward) = training_macs(s.plan);
     record::engine(&record::EngineSizes {
         arena: s.plan.ram_bytes,
         trainer: size_of::<Trainer<'_>>() as u32,
@@ -489,6 +347,7 @@ pub fn run<P: Platform, const ARENA: usize, const FLOAT_ARENA: usize, const CHEC
         backward_macs: backward,
     });
 
+    check_model_blob(s)?;
     for (names, set) in [(&CALIBRATION, &s.calibration), (&FAULTY, &s.faulty)] {
         let entry = memory::stack_depth();
         memory::repaint_free_stack();
@@ -498,6 +357,19 @@ pub fn run<P: Platform, const ARENA: usize, const FLOAT_ARENA: usize, const CHEC
     let entry = memory::stack_depth();
     memory::repaint_free_stack();
     float_twin::<P, FLOAT_ARENA>(ctx, s, entry)
+}
+
+/// Checks that the factory blob describes this model: a self-check of the session files,
+/// done once and outside the measured sets (a rollback goes back to the factory parameters,
+/// which are that blob's tensors). Out of line, so the description and the decoded blob take
+/// stack only here.
+#[inline(never)]
+fn check_model_blob(s: &Session<'_>) -> Result<(), SessionError> {
+    if engine::blob_matches(s.model_blob, &s.desc()?).map_err(SessionError::Engine)? {
+        Ok(())
+    } else {
+        Err(SessionError::Check("model-blob-describes-another-model"))
+    }
 }
 
 /// What a guarded set measured, logged after the stack scan.
@@ -510,9 +382,9 @@ struct GuardedRun {
     stack: memory::StackUsage,
 }
 
-/// One guarded set: the body of `guard::calibrate`, timed part by part. Its locals are the
-/// engine's whole working memory: description, arena and trainer; the factory blob stays in
-/// flash and is decoded where it is read.
+/// One guarded set: the core's session ([`hone_core::session::calibrate_set`]), its phases
+/// timed by a [`PhaseTimer`]. Its locals are the engine's whole working memory: description,
+/// arena and trainer; a rollback goes back to the factory parameters in flash.
 #[inline(never)]
 fn guarded<P: Platform, const ARENA: usize, const CHECKPOINT: usize>(
     ctx: &mut Ctx<'_, P>,
@@ -521,12 +393,7 @@ fn guarded<P: Platform, const ARENA: usize, const CHECKPOINT: usize>(
     names: &SetNames,
     entry: u32,
 ) -> Result<(), SessionError> {
-    let io = (s.inputs(), s.outputs());
-    let fmt = s.input_format;
     let desc = s.desc()?;
-    if !engine::blob_matches(s.model_blob, &desc).map_err(SessionError::Engine)? {
-        return Err(SessionError::Check("model-blob-describes-another-model"));
-    }
     let mut arena = [0u32; ARENA];
     // The trainer is used where the core's result put it, never moved out of it, so this frame
     // holds it once.
@@ -535,31 +402,33 @@ fn guarded<P: Platform, const ARENA: usize, const CHECKPOINT: usize>(
         Ok(t) => t,
         Err(e) => return Err(SessionError::Engine(*e)),
     };
-    let (forward, backward) = training_macs(s.plan, s.layers);
-    let eval_work = forward.saturating_mul(u32::from(s.holdout.count));
-    let steps = u32::from(s.passes) * u32::from(set.count);
-    let train_work = forward.saturating_add(backward).saturating_mul(steps);
-
-    let saved = trainer.train_state();
-    let (before, t_before) = ctx.time(eval_work, || engine::evaluate(trainer, &s.holdout, fmt, io));
-    let before = before.map_err(SessionError::Engine)?;
-    let (trained, t_train) = ctx.time(train_work, || {
-        engine::train(trainer, set, s.passes, fmt, io)
-    });
-    let trained = trained.map_err(SessionError::Engine)?;
-    let (after, t_after) = ctx.time(eval_work, || engine::evaluate(trainer, &s.holdout, fmt, io));
-    let after = after.map_err(SessionError::Engine)?;
-    let verdict = engine::judge(&before, &after, &s.guard);
-    if verdict != Verdict::Accept {
-        engine::rollback(trainer, s.model_blob, &saved).map_err(SessionError::Engine)?;
-    }
+    let mut timer = PhaseTimer {
+        platform: ctx.platform(),
+        macs: training_macs(s.plan),
+        start: 0,
+        spans: [crate::measure::Span {
+            work: 0,
+            ticks: 0,
+            units: 0,
+        }; 3],
+    };
+    let report = session::calibrate_set(
+        trainer,
+        set,
+        s.passes,
+        &s.holdout,
+        &s.guard,
+        LastGood::Params(s.params),
+        &mut timer,
+    )
+    .map_err(SessionError::Engine)?;
     let stack = memory::stack_usage_since_repaint();
     let run = GuardedRun {
-        before,
-        after,
-        verdict,
-        trained,
-        spans: [t_before, t_train, t_after],
+        before: report.before,
+        after: report.after,
+        verdict: report.verdict,
+        trained: report.trained,
+        spans: timer.spans,
         stack,
     };
     report_guarded::<P, CHECKPOINT>(ctx, s, trainer, names, &run, entry)
@@ -613,16 +482,16 @@ pub(crate) fn send_trained<P: Platform>(
     name: &str,
     trainer: &Trainer<'_>,
 ) -> Result<(), SessionError> {
-    let (plan, layers) = (trainer.plan(), trainer.desc().layers.len());
+    let layers = trainer.desc().layers.len();
     let mut total = 0u32;
     for k in 0..layers {
-        for raw in trained_tensors(plan, trainer.params(k), k) {
+        for raw in session::trained_tensors(trainer, k) {
             total += (raw.len() * raw.word().bytes()) as u32;
         }
     }
     let mut out = Staged::new(ctx.blob(name, total)?);
     for k in 0..layers {
-        for raw in trained_tensors(plan, trainer.params(k), k) {
+        for raw in session::trained_tensors(trainer, k) {
             for i in 0..raw.len() {
                 let v = raw.at(i);
                 match raw {
@@ -634,25 +503,6 @@ pub(crate) fn send_trained<P: Platform>(
         }
     }
     out.finish()
-}
-
-/// The tensors of layer `k` that train (weight, then bias), from `params`.
-fn trained_tensors<'t>(plan: &Plan, params: Option<LayerParams<'t>>, k: usize) -> [Raw<'t>; 2] {
-    let (Some(p), Some(slots)) = (params, plan.layers.get(k)) else {
-        return [Raw::EMPTY, Raw::EMPTY];
-    };
-    [
-        if slots.weight.is_some() {
-            p.weight
-        } else {
-            Raw::EMPTY
-        },
-        if slots.bias.is_some() {
-            p.bias
-        } else {
-            Raw::EMPTY
-        },
-    ]
 }
 
 #[inline(never)]
@@ -674,16 +524,17 @@ fn float_twin<P: Platform, const FLOAT_ARENA: usize>(
     s: &Session<'_>,
     entry: u32,
 ) -> Result<(), SessionError> {
-    let io = (s.inputs(), s.outputs());
     let desc = s.desc()?;
     let mut arena = [0f32; FLOAT_ARENA];
     let mut twin = engine::new_twin(&desc, s.float_plan, &mut arena, s.float_params)
         .map_err(SessionError::Engine)?;
-    let (forward, backward) = training_macs(s.float_plan, s.layers);
+    let (forward, backward) = training_macs(s.float_plan);
     let set = &s.float_calibration;
     let steps = u32::from(s.passes) * u32::from(set.count);
     let work = forward.saturating_add(backward).saturating_mul(steps);
-    let (trained, span) = ctx.time(work, || engine::train_twin(&mut twin, set, s.passes, io));
+    let (trained, span) = ctx.time(work, || {
+        engine::train_twin(&mut twin, s.float_plan, set, s.passes)
+    });
     trained.map_err(SessionError::Engine)?;
     let stack = memory::stack_usage_since_repaint();
     report_twin(ctx, s, &twin, &span, entry, stack.peak)
@@ -712,19 +563,7 @@ pub(crate) fn send_twin<P: Platform>(
     layers: usize,
     twin: &Twin<'_, f32>,
 ) -> Result<(), SessionError> {
-    let trained = |k: usize| -> [&[f32]; 2] {
-        match (twin.params(k), plan.layers.get(k)) {
-            (Some(p), Some(slots)) => [
-                if slots.weight.is_some() {
-                    p.weight
-                } else {
-                    &[]
-                },
-                if slots.bias.is_some() { p.bias } else { &[] },
-            ],
-            _ => [&[], &[]],
-        }
-    };
+    let trained = |k: usize| session::twin_trained(twin, plan, k);
     let mut total = 0u32;
     for k in 0..layers {
         for t in trained(k) {

@@ -1,6 +1,7 @@
 //! The smallest training build of hone: the core with every optional layer kind turned off
 //! (`default-features = false`), so only the dense layer, the shift/clamp activations, squared
-//! error and SGD are linked. It trains the model of [`session`] on the micro:bit (Cortex-M0)
+//! error and SGD are linked. It trains the model of [`hone_lean_session`] (shared with the
+//! host) on the micro:bit (Cortex-M0)
 //! under QEMU and prints the trained weights over semihosting as plain text:
 //!
 //! ```text
@@ -19,7 +20,7 @@
 
 use semihosting::{print, println};
 
-mod session;
+use hone_lean_session as session;
 
 #[cortex_m_rt::entry]
 fn main() -> ! {

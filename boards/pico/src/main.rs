@@ -22,6 +22,9 @@ use rp2040_hal::clocks::{init_clocks_and_plls, Clock};
 use rp2040_hal::{entry, gpio, pac, Sio, Watchdog};
 
 /// Second-stage boot loader for the Pico's W25Q080 flash, placed at the start of flash.
+// Placing a static in a named section under a fixed symbol counts as `unsafe_code`: the boot
+// ROM looks for exactly this section, and nothing else defines the symbol.
+#[allow(unsafe_code)]
 #[link_section = ".boot2"]
 #[used]
 #[no_mangle]

@@ -154,7 +154,8 @@ mod tests {
         assert!(err.contains("pdp11") && err.contains("microbit"), "{err}");
     }
 
-    /// The host runs QEMU exactly as `cargo run` in the board folder does.
+    /// The host runs QEMU exactly as `cargo run` in the board folder does: the runner there is
+    /// `boards/qemu-run.sh` with the machine's name, and the script prints the command it runs.
     #[test]
     fn qemu_command_matches_board_cargo_runner() {
         let boards = Path::new(env!("CARGO_MANIFEST_DIR")).join("../boards");
@@ -163,16 +164,35 @@ mod tests {
             let config = std::fs::read_to_string(&path)
                 .unwrap_or_else(|e| panic!("read {}: {e}", path.display()));
             let runner = runner_of(&config);
-            let timeout_at = runner.iter().position(|a| a == "timeout").expect("timeout");
-            // After `timeout <secs>` comes the QEMU program and its options, ending in -kernel.
-            assert_eq!(runner[timeout_at + 2], b.qemu_program(), "{b}");
-            let from_config = &runner[timeout_at + 3..];
-            let ours = b.qemu_args(&PathBuf::from("fw.elf"));
-            let ours: Vec<String> = ours[..ours.len() - 1]
+            assert_eq!(
+                runner.first().map(String::as_str),
+                Some("../qemu-run.sh"),
+                "{b}"
+            );
+            let machine = runner.last().expect("the runner names the machine");
+            let out = std::process::Command::new("sh")
+                .arg(boards.join("qemu-run.sh"))
+                .args(["--print", machine, "fw.elf"])
+                .output()
+                .expect("sh runs");
+            assert!(
+                out.status.success(),
+                "{b}: {}",
+                String::from_utf8_lossy(&out.stderr)
+            );
+            let printed: Vec<String> = String::from_utf8_lossy(&out.stdout)
+                .lines()
+                .map(str::to_owned)
+                .collect();
+            // `timeout <secs>`, then the QEMU program and its options, ending in -kernel <elf>.
+            assert_eq!(printed.first().map(String::as_str), Some("timeout"), "{b}");
+            assert_eq!(printed[2], b.qemu_program(), "{b}");
+            let ours: Vec<String> = b
+                .qemu_args(&PathBuf::from("fw.elf"))
                 .iter()
                 .map(|a| a.to_string_lossy().into_owned())
                 .collect();
-            assert_eq!(from_config, ours.as_slice(), "{b}");
+            assert_eq!(&printed[3..], ours.as_slice(), "{b}");
             assert!(
                 config.contains(&format!("target = \"{}\"", b.target())),
                 "{b}"

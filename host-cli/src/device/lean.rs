@@ -9,11 +9,10 @@ use std::time::Duration;
 use super::verify::{flash_figures, FlashFigures, VerifySummary};
 use super::{build_bin, run_qemu, DeviceError, QemuBoard};
 
-/// The lean firmware's session, compiled here with the core built for the host (all features;
-/// the arithmetic of the kinds the lean build keeps is the same code).
-#[path = "../../../boards/lean/src/session.rs"]
-#[allow(dead_code)]
-mod lean_session;
+// The lean firmware's session crate (`boards/lean-session`), compiled here with the core built
+// for the host (all features; the arithmetic of the kinds the lean build keeps is the same
+// code).
+use hone_lean_session as lean_session;
 
 /// The name the command line gives the lean build.
 pub const LEAN_BOARD: &str = "microbit-lean";

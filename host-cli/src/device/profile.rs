@@ -14,9 +14,10 @@
 //! training phase is found with a shadow call stack kept from the block addresses: a block that
 //! starts at a function's first instruction is a call, a block in the middle of a function
 //! further down the stack is a return to it. The phase is the dynamic extent of one call of
-//! the firmware's out-of-line `engine::train` wrapper (`boards/fw/src/train.rs`): the first
-//! call trains the calibration set, the second the mislabelled set, the third (on boards with
-//! one) the throughput phase's larger model. The firmware times exactly that call with its own
+//! the core's out-of-line training phase ([`TRAIN_ROOT`], which the session of
+//! `hone_core::session` calls for every set it trains): the first call trains the calibration
+//! set, the second the mislabelled set, the third (on boards with one) the throughput phase's
+//! larger model. The firmware times exactly that call with its own
 //! counter (the `calib_train`, `faulty_train` and `tput_train` spans), so the two counts can
 //! be compared; QEMU is stopped as soon as the phase is over.
 //!
@@ -41,8 +42,8 @@ use serde::Serialize;
 use super::qemu::spawn;
 use super::{DeviceError, QemuBoard};
 
-/// The firmware function whose calls are the training phases (`boards/fw/src/train.rs`).
-pub const TRAIN_ROOT: &str = "hone_fw::train::engine::train";
+/// The function whose calls are the training phases (`core/src/guard.rs`).
+pub const TRAIN_ROOT: &str = "hone_core::guard::train_phase";
 
 /// Which part of the run to profile.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Serialize)]

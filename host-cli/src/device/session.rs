@@ -20,13 +20,15 @@ use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 
 use hone_core::blob::{self, BlobBody, ChannelScale, TrainState};
-use hone_core::float::{FloatParams, FloatTarget, Twin};
-use hone_core::guard::{self, GuardConfig, SessionReport};
-use hone_core::layer::loss::Target;
+use hone_core::float::{FloatParams, Twin};
+use hone_core::guard::{GuardConfig, SessionReport};
 use hone_core::layer::Tensor;
 use hone_core::model::{ModelDesc, MAX_LAYERS};
-use hone_core::num::{QFormat, Raw, Word};
+use hone_core::num::{QFormat, Word};
 use hone_core::plan::Plan;
+use hone_core::session::{
+    self as core_session, FloatSet, FloatTargets, LastGood, SampleSet, Targets,
+};
 use hone_core::train::Trainer;
 
 use super::throughput::{self, Choice, ThroughputOutcome};
@@ -596,31 +598,6 @@ pub fn payload_layout(desc: &ModelDesc, plan: &Plan, float: bool) -> Vec<TensorS
     out
 }
 
-/// Multiply-accumulates of one training sample, `(forward, backward)`: the forward pass, plus
-/// for every layer with parameters from the first trained one on, its weight gradient (when
-/// its weights train) and its input gradient (when a trained layer lies below it).
-#[must_use]
-pub fn training_macs(desc: &ModelDesc, plan: &Plan) -> (u64, u64) {
-    let forward: u64 = plan.shapes.layers[..plan.count()]
-        .iter()
-        .map(|g| u64::from(g.macs))
-        .sum();
-    let mut backward = 0u64;
-    for (k, l) in desc.layers.iter().enumerate().skip(plan.first_trainable) {
-        if !l.kind.has_params() {
-            continue;
-        }
-        let macs = u64::from(plan.shapes.layers[k].macs);
-        if l.mode.trains_weight() {
-            backward += macs;
-        }
-        if k > plan.first_trainable {
-            backward += macs;
-        }
-    }
-    (forward, backward)
-}
-
 /// One guarded set, simulated.
 #[derive(Clone, Debug)]
 pub struct GuardedOutcome {
@@ -653,10 +630,11 @@ pub struct HostOutcome {
     pub throughput: Option<ThroughputOutcome>,
 }
 
-/// Runs the session on the host, as the firmware does: for each guarded set a fresh trainer
-/// from the factory parameters, the core's [`guard::calibrate`] with the calibration (or
-/// mislabelled) samples repeated [`PASSES`] times in stored order, the hold-out samples and
-/// the factory blob as the last good model; then the float twin in `f32` on the calibration
+/// Runs the session on the host, as the firmware does, with the same core code: for each
+/// guarded set a fresh trainer from the factory parameters and
+/// [`hone_core::session::calibrate_set`] over the calibration (or mislabelled) samples,
+/// [`PASSES`] times in stored order, judged on the hold-out samples, going back to the factory
+/// parameters on rejection; then [`hone_core::session::train_twin`] in `f32` on the calibration
 /// samples; then the throughput phase, where the board has one ([`throughput::simulate`]).
 ///
 /// # Errors
@@ -677,22 +655,17 @@ pub fn simulate(s: &Session) -> Result<HostOutcome, String> {
         .collect();
     let mut twin =
         Twin::new(desc, &float_plan, &mut arena, &views).map_err(|e| format!("twin: {e}"))?;
-    let n_in = desc.input.size() as usize;
-    let n_out = plan.shapes.output.size() as usize;
-    for _ in 0..PASSES {
-        for i in 0..s.calibration.len() {
-            let x = &s.float_x[i * n_in..(i + 1) * n_in];
-            let t = match &s.calibration.target {
-                PreparedTargets::Values { .. } => {
-                    FloatTarget::Values(&s.float_y[i * n_out..(i + 1) * n_out])
-                }
-                PreparedTargets::Classes(l) => FloatTarget::Class(l[i]),
-            };
-            twin.step(x, t)
-                .map_err(|e| format!("twin sample {}: {e}", i + 1))?;
-        }
-    }
-    twin.flush();
+    let float_y: FloatTargets<'_, f32> = match &s.calibration.target {
+        PreparedTargets::Values { .. } => FloatTargets::Values(&s.float_y),
+        PreparedTargets::Classes(l) => FloatTargets::Classes(l),
+    };
+    let set = FloatSet {
+        count: set_count(&s.calibration)?,
+        x: &s.float_x,
+        y: float_y,
+    };
+    core_session::train_twin(&mut twin, &float_plan, &set, PASSES)
+        .map_err(|e| format!("twin: {e}"))?;
     let float_weights = float_payload(desc, &float_plan, &twin);
     let throughput = match &s.throughput.spec {
         Some(spec) => Some(throughput::simulate(spec)?),
@@ -713,21 +686,21 @@ fn guarded(s: &Session, plan: &Plan, set: &Prepared) -> Result<GuardedOutcome, S
     let mut arena = vec![0u32; plan.ram_words()];
     let views = s.params.views();
     let mut t = Trainer::new(desc, plan, &mut arena, &views).map_err(|e| e.to_string())?;
-    let last_good = blob::decode(&s.blob).map_err(|e| e.to_string())?;
-    let fmt = desc.input_format;
-    let train: Vec<(Tensor<'_>, Target<'_>)> = (0..PASSES)
-        .flat_map(|_| (0..set.len()).map(|i| set.fixed(i, fmt)))
-        .collect();
-    let holdout: Vec<(Tensor<'_>, Target<'_>)> = (0..s.holdout.len())
-        .map(|i| s.holdout.fixed(i, fmt))
-        .collect();
-    let report =
-        guard::calibrate(&mut t, train, holdout, &GUARD, &last_good).map_err(|e| e.to_string())?;
-    let weights = weights_payload(desc, plan, &t);
+    let (train, holdout) = (FlatSet::of(set), FlatSet::of(&s.holdout));
+    // The firmware's session: the same core procedure, going back to the factory parameters.
+    let report = core_session::calibrate_set(
+        &mut t,
+        &train.view()?,
+        PASSES,
+        &holdout.view()?,
+        &GUARD,
+        LastGood::Params(&views),
+        &mut (),
+    )
+    .map_err(|e| e.to_string())?;
+    let weights = weights_payload(&t);
     let mut checkpoint = vec![0u8; s.checkpoint_capacity];
-    let n = t
-        .write_checkpoint(&s.scaling, &mut checkpoint)
-        .map_err(|e| e.to_string())?;
+    let n = core_session::checkpoint(&t, &s.scaling, &mut checkpoint).map_err(|e| e.to_string())?;
     checkpoint.truncate(n);
     Ok(GuardedOutcome {
         report,
@@ -738,43 +711,90 @@ fn guarded(s: &Session, plan: &Plan, set: &Prepared) -> Result<GuardedOutcome, S
     })
 }
 
-/// The trained tensors of `t` (the model `desc`, planned by `plan`) as the firmware sends them:
-/// in payload order, every value little-endian in its storage word.
-pub(crate) fn weights_payload(desc: &ModelDesc, plan: &Plan, t: &Trainer<'_>) -> Vec<u8> {
+/// Samples of a [`Prepared`] set flattened as the firmware stores them, for a [`SampleSet`].
+pub(crate) struct FlatSet {
+    count: usize,
+    x: OwnedRaw,
+    y: FlatTargets,
+}
+
+enum FlatTargets {
+    Values(OwnedRaw, QFormat),
+    Classes(Vec<u16>),
+}
+
+impl FlatSet {
+    /// Flattens `p`.
+    pub(crate) fn of(p: &Prepared) -> FlatSet {
+        let (word, x) = flat(&p.xq);
+        let y = match &p.target {
+            PreparedTargets::Values { yq, format, .. } => {
+                let (word, y) = flat(yq);
+                FlatTargets::Values(owned(word, &y), *format)
+            }
+            PreparedTargets::Classes(l) => FlatTargets::Classes(l.clone()),
+        };
+        FlatSet {
+            count: p.len(),
+            x: owned(word, &x),
+            y,
+        }
+    }
+
+    /// The core's view of the samples.
+    pub(crate) fn view(&self) -> Result<SampleSet<'_>, String> {
+        Ok(SampleSet {
+            count: u16::try_from(self.count)
+                .map_err(|_| format!("{} samples: a session holds at most 65535", self.count))?,
+            x: self.x.raw(),
+            y: match &self.y {
+                FlatTargets::Values(y, fmt) => Targets::Values(Tensor {
+                    raw: y.raw(),
+                    fmt: *fmt,
+                }),
+                FlatTargets::Classes(l) => Targets::Classes(l),
+            },
+        })
+    }
+}
+
+fn set_count(p: &Prepared) -> Result<u16, String> {
+    u16::try_from(p.len())
+        .map_err(|_| format!("{} samples: a session holds at most 65535", p.len()))
+}
+
+/// `values` in storage words of `word` (each already in range: they came from that word).
+fn owned(word: Word, values: &[i32]) -> OwnedRaw {
+    match word {
+        Word::I8 => OwnedRaw::I8(values.iter().map(|&v| v as i8).collect()),
+        Word::I16 => OwnedRaw::I16(values.iter().map(|&v| v as i16).collect()),
+        Word::I32 => OwnedRaw::I32(values.to_vec()),
+    }
+}
+
+/// The trained tensors of `t` as the firmware sends them: layer by layer, weight then bias
+/// ([`hone_core::session::trained_tensors`]), every value little-endian in its storage word.
+pub(crate) fn weights_payload(t: &Trainer<'_>) -> Vec<u8> {
     let mut weights = Vec::new();
-    for span in payload_layout(desc, plan, false) {
-        let raw = t
-            .params(span.layer)
-            .map(|p| {
-                if span.tensor == "weight" {
-                    p.weight
-                } else {
-                    p.bias
-                }
-            })
-            .unwrap_or(Raw::EMPTY);
-        let mut bytes = vec![0u8; raw.len() * raw.word().bytes()];
-        raw.write_le(&mut bytes);
-        weights.extend_from_slice(&bytes);
+    for k in 0..t.desc().layers.len() {
+        for raw in core_session::trained_tensors(t, k) {
+            let mut bytes = vec![0u8; raw.len() * raw.word().bytes()];
+            raw.write_le(&mut bytes);
+            weights.extend_from_slice(&bytes);
+        }
     }
     weights
 }
 
 /// The trained tensors of the twin `twin` (planned by `float_plan`) as the firmware sends
-/// them: in payload order, every value a little-endian `f32`.
+/// them: layer by layer, weight then bias ([`hone_core::session::twin_trained`]), every value
+/// a little-endian `f32`.
 pub(crate) fn float_payload(desc: &ModelDesc, float_plan: &Plan, twin: &Twin<'_, f32>) -> Vec<u8> {
     let mut out = Vec::new();
     for k in 0..desc.layers.len() {
-        let Some(p) = twin.params(k) else { continue };
-        let slots = float_plan.layers[k];
-        for (values, trained) in [
-            (p.weight, slots.weight.is_some()),
-            (p.bias, slots.bias.is_some()),
-        ] {
-            if trained {
-                for v in values {
-                    out.extend_from_slice(&v.to_le_bytes());
-                }
+        for values in core_session::twin_trained(twin, float_plan, k) {
+            for v in values {
+                out.extend_from_slice(&v.to_le_bytes());
             }
         }
     }

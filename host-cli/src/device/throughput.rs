@@ -12,14 +12,14 @@
 
 use std::fmt::Write as _;
 
-use hone_core::float::{FloatParams, FloatTarget, Twin};
-use hone_core::layer::loss::Target;
+use hone_core::float::{FloatParams, Twin};
 use hone_core::layer::Tensor;
 use hone_core::model::{
     LayerDesc, LayerKind, Loss, ModelDesc, ParamFormats, Shape, TrainDesc, TrainMode,
 };
 use hone_core::num::{QFormat, QScalar, Raw, Rng, RoundingPlan, Word};
 use hone_core::plan::Plan;
+use hone_core::session::{self as core_session, FloatSet, FloatTargets, SampleSet, Targets};
 use hone_core::train::{LayerParams, Trainer};
 
 use super::session::{float_payload, weights_payload};
@@ -365,7 +365,7 @@ pub fn simulate(spec: &ThroughputSpec) -> Result<ThroughputOutcome, String> {
     let desc = &spec.desc;
     let values = drawn_values(spec);
     let n_params = spec.param_values();
-    let (inputs, outputs) = spec.sample_values();
+    let (inputs, _) = spec.sample_values();
     let pool = usize::from(spec.pool);
 
     let ints: Vec<i16> = values.iter().map(|&(v, _)| v as i16).collect();
@@ -389,24 +389,18 @@ pub fn simulate(spec: &ThroughputSpec) -> Result<ThroughputOutcome, String> {
     }
     let mut arena = vec![0u32; spec.plan.ram_words()];
     let mut t = Trainer::new(desc, &spec.plan, &mut arena, &views).map_err(|e| e.to_string())?;
-    let mut trained = 0u64;
-    for _ in 0..spec.passes {
-        for i in 0..pool {
-            let x = Tensor {
-                raw: Raw::I16(&xs[i * inputs..(i + 1) * inputs]),
-                fmt: desc.input_format,
-            };
-            let y = Target::Values(Tensor {
-                raw: Raw::I16(&ys[i * outputs..(i + 1) * outputs]),
-                fmt: spec.target_format,
-            });
-            t.step(x, y)
-                .map_err(|e| format!("throughput sample {}: {e}", i + 1))?;
-            trained += 1;
-        }
-    }
-    t.flush();
-    let weights = weights_payload(desc, &spec.plan, &t);
+    let set = SampleSet {
+        count: spec.pool,
+        x: Raw::I16(xs),
+        y: Targets::Values(Tensor {
+            raw: Raw::I16(ys),
+            fmt: spec.target_format,
+        }),
+    };
+    let trained = u64::from(
+        core_session::train(&mut t, &set, spec.passes).map_err(|e| format!("throughput: {e}"))?,
+    );
+    let weights = weights_payload(&t);
 
     let reals: Vec<f32> = values.iter().map(|&(v, fmt)| fmt.to_f32(v)).collect();
     let (init, samples) = reals.split_at(n_params);
@@ -427,15 +421,13 @@ pub fn simulate(spec: &ThroughputSpec) -> Result<ThroughputOutcome, String> {
     let mut arena = vec![0f32; spec.float_plan.ram_words()];
     let mut twin = Twin::new(desc, &spec.float_plan, &mut arena, &views)
         .map_err(|e| format!("throughput twin: {e}"))?;
-    for _ in 0..spec.passes {
-        for i in 0..pool {
-            let x = &xs[i * inputs..(i + 1) * inputs];
-            let y = FloatTarget::Values(&ys[i * outputs..(i + 1) * outputs]);
-            twin.step(x, y)
-                .map_err(|e| format!("throughput twin sample {}: {e}", i + 1))?;
-        }
-    }
-    twin.flush();
+    let set = FloatSet {
+        count: spec.pool,
+        x: xs,
+        y: FloatTargets::Values(ys),
+    };
+    core_session::train_twin(&mut twin, &spec.float_plan, &set, spec.passes)
+        .map_err(|e| format!("throughput twin: {e}"))?;
     let float_weights = float_payload(desc, &spec.float_plan, &twin);
     Ok(ThroughputOutcome {
         weights,

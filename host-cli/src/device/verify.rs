@@ -26,11 +26,12 @@ use std::time::Duration;
 use object::{Object, ObjectSection, ObjectSymbol, SectionKind};
 
 use super::report::crc32;
-use super::session::{self, payload_layout, training_macs, HostOutcome, Session, TensorSpan};
+use super::session::{self, payload_layout, HostOutcome, Session, TensorSpan};
 use super::sha256::sha256_hex;
 use super::throughput::{PhaseRam, MARGIN_BYTES};
 use super::{build_firmware_with, default_boards_dir, run_elf, DeviceError, DeviceRun, QemuBoard};
 use crate::memplan::{self, MeasuredOverhead};
+use hone_core::session::training_macs;
 
 /// What [`verify_board`] works with.
 #[derive(Clone, Debug)]
@@ -759,7 +760,7 @@ fn measure(
     overhead: Option<&MeasuredOverhead>,
 ) -> Result<Measures, DeviceError> {
     let end = run.lines.len();
-    let (forward, backward) = training_macs(&session.desc, &host.plan);
+    let (forward, backward) = training_macs(&host.plan);
     if (forward, backward) != (engine.forward_macs, engine.backward_macs) {
         return Err(protocol(
             end,
@@ -879,7 +880,7 @@ fn measure_throughput(
         .as_ref()
         .ok_or_else(|| protocol(end, "no throughput phase in the session"))?;
     let (inputs, outputs) = spec.sample_values();
-    let (forward, backward) = training_macs(&spec.desc, &spec.plan);
+    let (forward, backward) = training_macs(&spec.plan);
     let macs = spec.plan.training_macs();
     let want = ThroughputRecord {
         inputs: inputs as u64,
@@ -965,12 +966,14 @@ pub fn code_part(name: &str) -> CodePart {
         || has("micromath")
         || name.contains(&format!("{fw_engine}8new_twin"))
         || name.contains(&format!("{fw_engine}10train_twin"))
+        || name.contains("9hone_core7session10train_twin")
+        || name.contains("9hone_core7session12twin_trained")
     {
         return CodePart::Float;
     }
-    // The lean build's calls into the core (boards/lean/src/session.rs), out of line as the
+    // The lean build's calls into the core (boards/lean-session), out of line as the
     // full firmware's are.
-    let lean_engine = "9hone_lean7session6engine";
+    let lean_engine = "17hone_lean_session6engine";
     if has("hone_core")
         || name.contains(fw_engine)
         || name.contains(lean_engine)
@@ -1428,11 +1431,19 @@ mod tests {
             CodePart::Float
         );
         assert_eq!(
-            code_part("_ZN9hone_lean7session6engine4step17h0123E"),
+            code_part("_ZN9hone_core7session10train_twin17h0123E"),
+            CodePart::Float
+        );
+        assert_eq!(
+            code_part("_ZN9hone_core7session13calibrate_set17h0123E"),
             CodePart::Engine
         );
         assert_eq!(
-            code_part("_ZN9hone_lean7session3run17h0123E"),
+            code_part("_ZN17hone_lean_session6engine4step17h0123E"),
+            CodePart::Engine
+        );
+        assert_eq!(
+            code_part("_ZN17hone_lean_session3run17h0123E"),
             CodePart::Other
         );
         assert_eq!(code_part("_ZN8postcard2de5take17h0E"), CodePart::Engine);

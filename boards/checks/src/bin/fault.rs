@@ -8,6 +8,8 @@ use defmt_semihosting as _;
 /// First address past the micro:bit's 16 KiB of RAM.
 const PAST_RAM: usize = 0x2000_4000;
 
+// The one `unsafe` of this firmware: the read that faults on purpose.
+#[allow(unsafe_code)]
 #[cortex_m_rt::entry]
 fn main() -> ! {
     hone_fw::run(hone_checks::platform(), |_ctx| {

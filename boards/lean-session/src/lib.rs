@@ -1,14 +1,18 @@
 //! The lean build's session: a 2-8-1 dense model with ReLU, trained with plain SGD on squared
-//! error, the smallest useful training build of the core (see the crate docs in `main.rs`).
+//! error, the smallest useful training build of the core (see the lean firmware's crate docs,
+//! `boards/lean/src/main.rs`).
 //!
-//! This file is compiled twice: into the firmware, and into the host's device test
-//! (`host-cli/tests/device_qemu.rs` includes it with `#[path]`), which runs [`run`] with the
-//! core compiled for the host and compares every printed line, so the device's weights are
-//! checked bit for bit against the host's.
+//! This crate is compiled twice: into the firmware, and into the host (`hone device verify
+//! --board microbit-lean`), which runs [`run`] with the core compiled for the host and compares
+//! every printed line, so the device's weights are checked bit for bit against the host's.
 //!
 //! Everything is drawn from the core's seeded generator in one fixed order: the initial
 //! weights, then the samples. The task is a two-input linear calibration, t = 0.6·x0 − 0.3·x1
 //! + 0.1, computed in integers so that both sides get the same targets.
+
+#![no_std]
+#![forbid(unsafe_code)]
+#![deny(missing_docs)]
 
 use hone_core::layer::loss::Target;
 use hone_core::layer::Tensor;
