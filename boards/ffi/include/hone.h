@@ -65,12 +65,6 @@
 // inside the caller's memory block. Opaque to C.
 typedef struct HoneSession HoneSession;
 
-typedef struct Option_HoneFlashErase Option_HoneFlashErase;
-
-typedef struct Option_HoneFlashRead Option_HoneFlashRead;
-
-typedef struct Option_HoneFlashWrite Option_HoneFlashWrite;
-
 // A regression target (`values` not NULL) or a class label (`values` NULL).
 typedef struct {
   // `count` values of `word_bits` bits (8, 16 or 32), aligned to their size, or NULL for
@@ -145,12 +139,13 @@ typedef struct {
   uint32_t capacity;
   // Erase sector size in bytes: 1024, 2048 or 4096.
   uint32_t erase_size;
-  // Read callback.
-  Option_HoneFlashRead read;
-  // Write callback.
-  Option_HoneFlashWrite write;
-  // Erase callback.
-  Option_HoneFlashErase erase;
+  // Reads `len` bytes at `offset` into `buf`; returns 0 on success.
+  int32_t (*read)(void *ctx, uint32_t offset, uint8_t *buf, uint32_t len);
+  // Writes `len` bytes from `data` at `offset` (both multiples of [`HONE_FLASH_WRITE_SIZE`],
+  // into erased flash); returns 0 on success.
+  int32_t (*write)(void *ctx, uint32_t offset, const uint8_t *data, uint32_t len);
+  // Erases `[from, to)` (both multiples of the erase size) to `0xFF`; returns 0 on success.
+  int32_t (*erase)(void *ctx, uint32_t from, uint32_t to);
 } HoneFlash;
 
 #ifdef __cplusplus

@@ -177,16 +177,6 @@ pub struct HoneReport {
     pub rejection: u8,
 }
 
-/// Reads `len` bytes at `offset` into `buf`; returns 0 on success.
-pub type HoneFlashRead =
-    unsafe extern "C" fn(ctx: *mut c_void, offset: u32, buf: *mut u8, len: u32) -> i32;
-/// Writes `len` bytes from `data` at `offset` (both multiples of [`HONE_FLASH_WRITE_SIZE`],
-/// into erased flash); returns 0 on success.
-pub type HoneFlashWrite =
-    unsafe extern "C" fn(ctx: *mut c_void, offset: u32, data: *const u8, len: u32) -> i32;
-/// Erases `[from, to)` (both multiples of the erase size) to `0xFF`; returns 0 on success.
-pub type HoneFlashErase = unsafe extern "C" fn(ctx: *mut c_void, from: u32, to: u32) -> i32;
-
 /// The caller's flash, through callbacks. Offsets are from the start of the flash device the
 /// callbacks address.
 #[repr(C)]
@@ -198,12 +188,16 @@ pub struct HoneFlash {
     pub capacity: u32,
     /// Erase sector size in bytes: 1024, 2048 or 4096.
     pub erase_size: u32,
-    /// Read callback.
-    pub read: Option<HoneFlashRead>,
-    /// Write callback.
-    pub write: Option<HoneFlashWrite>,
-    /// Erase callback.
-    pub erase: Option<HoneFlashErase>,
+    /// Reads `len` bytes at `offset` into `buf`; returns 0 on success.
+    pub read:
+        Option<unsafe extern "C" fn(ctx: *mut c_void, offset: u32, buf: *mut u8, len: u32) -> i32>,
+    /// Writes `len` bytes from `data` at `offset` (both multiples of [`HONE_FLASH_WRITE_SIZE`],
+    /// into erased flash); returns 0 on success.
+    pub write: Option<
+        unsafe extern "C" fn(ctx: *mut c_void, offset: u32, data: *const u8, len: u32) -> i32,
+    >,
+    /// Erases `[from, to)` (both multiples of the erase size) to `0xFF`; returns 0 on success.
+    pub erase: Option<unsafe extern "C" fn(ctx: *mut c_void, from: u32, to: u32) -> i32>,
 }
 
 /// The status code of a core error.
