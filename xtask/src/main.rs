@@ -29,8 +29,9 @@ const GCC_PACKAGES: [&str; 2] = ["gcc-arm-none-eabi", "libnewlib-arm-none-eabi"]
 /// QEMU, the M0 for its code size.
 const FFI_TARGETS: [&str; 2] = ["thumbv7m-none-eabi", "thumbv6m-none-eabi"];
 /// Board crates built in release mode (the QEMU ones also run in the tests).
-const BOARDS: [&str; 6] = [
+const BOARDS: [&str; 7] = [
     "lm3s6965evb",
+    "minimal",
     "microbit",
     "mps2-an386",
     "sifive-e",
