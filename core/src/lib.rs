@@ -14,6 +14,7 @@ pub mod layer;
 pub mod model;
 pub mod num;
 pub mod plan;
+pub mod reading;
 pub mod session;
 pub mod store;
 pub mod train;

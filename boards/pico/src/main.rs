@@ -15,7 +15,8 @@
 use defmt_rtt as _;
 use hone_fw::cortex_m::SysTickPlatform;
 use hone_fw::hone_core::num::Raw;
-use hone_fw::train::{quantize_reading, SampleSet, Session};
+use hone_fw::hone_core::reading::ReadingScale;
+use hone_fw::train::{SampleSet, Session};
 use hone_fw::{exit_code, record, semihosting_exit, Ctx, Platform, SessionError, TickUnit};
 use rp2040_hal::adc::{Adc, AdcChannel};
 use rp2040_hal::clocks::{init_clocks_and_plls, Clock};
@@ -106,6 +107,8 @@ fn calibrate<P: Platform>(
         .first()
         .copied()
         .ok_or(SessionError::Check("no-input-scaling"))?;
+    // The channel's scale in fixed point: integer arithmetic from here on (the M0+ has no FPU).
+    let scale = ReadingScale::new(scale, stored.input_format).map_err(SessionError::Engine)?;
     // The soil model's inputs are Q3.12 (`i16`); another model fails to compile here.
     let mut x: [i16; session::CALIB_X.len()] = session::CALIB_X;
     for row in x.chunks_mut(inputs) {
@@ -113,8 +116,8 @@ fn calibrate<P: Platform>(
             .read(channel)
             .map_err(|_| SessionError::Check("adc-read"))?;
         if let Some(v) = row.first_mut() {
-            // Saturated to the i16 range by `quantize_reading`, so the cast is exact.
-            *v = quantize_reading(f32::from(raw), scale, stored.input_format) as i16;
+            // Saturated to the input format's word (i16) by `quantize`, so the cast is exact.
+            *v = scale.quantize(i32::from(raw)).0 as i16;
         }
     }
     let live = Session {
