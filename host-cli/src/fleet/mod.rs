@@ -16,7 +16,10 @@
 //! evaluation samples: RMSE in the target's unit (regression) or error rate in % (classification).
 //! A second session of the same samples in the same order goes through the core's rollback
 //! guard ([`hone_core::guard::calibrate`], default thresholds) with the guard samples held
-//! back; on these clean sessions every rejection is a false alarm.
+//! back; on these clean sessions every rejection is a false alarm. That session runs as the
+//! firmware runs it (every pass, then one flush of a partial batch), where the measured
+//! calibration flushes after every pass as `hone drift` does, so with a batch that does not
+//! divide N the guard judges a session that differs from the measured one by those flushes.
 //!
 //! Every unit has its own random stream, derived from the seed and the unit's index, so the
 //! result does not depend on how many threads run or in which order units finish.
