@@ -610,6 +610,7 @@ struct RawConfig {
     layer: Vec<Spanned<RawLayer>>,
     train: Spanned<RawTrain>,
     data: Spanned<RawData>,
+    fleet: Option<Spanned<crate::fleet::spread::RawFleet>>,
 }
 
 #[derive(Deserialize)]
@@ -832,6 +833,7 @@ pub struct Config {
     epochs: u32,
     train: TrainDesc,
     data: DataConfig,
+    fleet: Option<crate::fleet::spread::FleetSpread>,
 }
 
 /// Turns byte offsets into lines and columns and builds errors for one file.
@@ -1023,6 +1025,11 @@ impl Config {
     /// The data section.
     pub fn data(&self) -> &DataConfig {
         &self.data
+    }
+
+    /// The `[fleet]` section, if the config has one (see [`crate::fleet::spread`]).
+    pub fn fleet(&self) -> Option<&crate::fleet::spread::FleetSpread> {
+        self.fleet.as_ref()
     }
 
     /// The columns and task, as [`Dataset::load`] takes them.
@@ -1490,6 +1497,14 @@ impl Checker<'_> {
             layer_at.push(self.ctx.line_col(l.span().start));
         }
         let (epochs, train) = self.train(raw.train.get_ref())?;
+        let fleet = match &raw.fleet {
+            Some(f) => Some(crate::fleet::spread::check(
+                f,
+                &data.spec.features,
+                &|span, field, message| self.ctx.err(span, field, message),
+            )?),
+            None => None,
+        };
         let config = Config {
             source: self.ctx.path.to_path_buf(),
             input,
@@ -1500,6 +1515,7 @@ impl Checker<'_> {
             epochs,
             train,
             data,
+            fleet,
         };
         // Shapes, loss and training through the core, with provisional fraction bits for the
         // auto formats (fraction bits never change shapes).

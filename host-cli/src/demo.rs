@@ -183,6 +183,9 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     ];
     let mut drift = DriftReport::from_run(&run, false, setup, Thresholds::default());
     drift.unit = base.config.data().unit.clone();
+    // A failed saturation check names the format that would have held the values, as in
+    // `hone drift`.
+    drift.advise_saturation(&q.desc, &run, &cal, &q.float_params)?;
     write(
         out,
         "drift.json",

@@ -9,6 +9,7 @@ pub mod demo;
 pub mod device;
 pub mod drift;
 pub mod export;
+pub mod fleet;
 pub mod fsutil;
 pub mod inspect;
 pub mod memplan;

@@ -17,6 +17,7 @@ use hone_host::pipeline::Base;
 use hone_host::sim::{run_side_by_side, RunOptions};
 use indicatif::{ProgressBar, ProgressStyle};
 
+mod fleet_cmd;
 mod onnx_cmd;
 
 #[derive(Parser)]
@@ -92,6 +93,9 @@ enum Command {
     /// Exit status 1 when no grid point ran (every one failed); points that failed beside
     /// others that ran are marked `error` in the table and do not change the status.
     Sweep(SweepArgs),
+    /// Simulate many units of a product: how many reference samples per unit, and what share
+    /// of units then meets the spec (the config's `[fleet]` section says how units differ).
+    Fleet(Box<fleet_cmd::FleetArgs>),
     /// Validate and describe a model blob or checkpoint.
     Inspect {
         /// The blob file.
@@ -626,6 +630,10 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             Ok(None)
         }
         Command::Sweep(a) => sweep(a),
+        Command::Fleet(a) => {
+            out!("{}", fleet_cmd::run(*a)?);
+            Ok(None)
+        }
         Command::Inspect { file, json } => {
             let r = hone_host::inspect::inspect_file(&file).map_err(|e| anyhow!("{e}"))?;
             if json {

@@ -145,6 +145,9 @@ pub struct QuantReport {
     pub target_saturations: usize,
     /// Samples evaluated.
     pub samples: usize,
+    /// Whether those are the rows `hone train` holds out of the same file (`data.holdout`,
+    /// split with the train seed) rather than every row.
+    pub held_out: bool,
     /// Unit of the regression target (`data.unit`), empty if the config names none.
     pub unit: String,
 }
@@ -334,7 +337,21 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         ));
     }
     let prepared = Prepared::new(&scaled, &desc)?;
-    let pair = evaluate_pair(&desc, &params, &float_params, &prepared)?;
+    // The figures are those of the rows `hone train` holds out of the same file (data.holdout,
+    // split with the train seed), so quantize and train report the same rows; without a
+    // hold-out, or when it would leave no row, every row counts.
+    let held = if cfg.data().holdout > 0.0 {
+        let (_, h) = crate::data::split(&scaled, cfg.data().holdout, cfg.train().seed)
+            .map_err(|e| e.to_string())?;
+        (!h.is_empty()).then_some(h)
+    } else {
+        None
+    };
+    let scored = match &held {
+        Some(h) => Prepared::new(h, &desc)?,
+        None => prepared.clone(),
+    };
+    let pair = evaluate_pair(&desc, &params, &float_params, &scored)?;
     let report = QuantReport {
         chosen,
         tensors,
@@ -351,7 +368,8 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
         fixed_mae: pair.fixed_mae,
         input_saturations: prepared.input_saturations,
         target_saturations: prepared.target_saturations,
-        samples: prepared.len(),
+        samples: scored.len(),
+        held_out: held.is_some(),
         unit: cfg.data().unit.clone(),
     };
     Ok(Quantized {
@@ -450,8 +468,13 @@ pub fn summary(r: &QuantReport) -> String {
         }
     };
     s.push_str(&format!(
-        "On {} calibration samples, against the true targets:\n  float      {}, loss {:.6}\n  quantized  {}, loss {:.6} (change {:+.6})\n",
+        "On {} {}, against the true targets:\n  float      {}, loss {:.6}\n  quantized  {}, loss {:.6} (change {:+.6})\n",
         r.samples,
+        if r.held_out {
+            "rows held out by data.holdout, as `hone train` scores them"
+        } else {
+            "calibration samples"
+        },
         figures(r.float_metric, r.float_mae),
         r.float_loss,
         figures(r.fixed_metric, r.fixed_mae),

@@ -664,35 +664,6 @@ fn grad_sqnr(
     })
 }
 
-/// Saturations of the first copy of each trained value into its master copy: a value the
-/// master's range cannot hold is clamped there before any update (the config refuses such a
-/// master, but a description from elsewhere may carry one). Per layer: weights, bias.
-fn master_copy_saturations(desc: &ModelDesc, plan: &Plan, init: &QuantParams) -> Vec<(u64, u64)> {
-    desc.layers
-        .iter()
-        .enumerate()
-        .map(|(k, l)| {
-            let Some((w, b)) = init.layers.get(k) else {
-                return (0, 0);
-            };
-            let s = plan.layers[k];
-            let count = |vals: &OwnedRaw, pf: hone_core::model::ParamFormats, on: bool| {
-                let Some(m) = pf.master.filter(|_| on) else {
-                    return 0;
-                };
-                vals.real(pf.value)
-                    .iter()
-                    .filter(|&&v| v > m.max_value() || v < m.min_value())
-                    .count() as u64
-            };
-            (
-                count(w, l.weight, s.master_weight.is_some()),
-                count(b, l.bias, s.master_bias.is_some()),
-            )
-        })
-        .collect()
-}
-
 /// Trains the fixed-point model and its float twin side by side. See the [module docs](self).
 ///
 /// # Errors
@@ -745,7 +716,6 @@ pub fn run_side_by_side(
         grad_sqnr_db: g0,
         ..Default::default()
     });
-    let first_copy = master_copy_saturations(desc, &plan, init_fixed);
     let mut prev = vec![(0u64, 0u64, 0u64, 0u64); desc.layers.len()];
     for epoch in 1..=opts.epochs {
         let order: Vec<usize> = if opts.shuffle {
@@ -807,11 +777,6 @@ pub fn run_side_by_side(
             grad_sqnr_db: g,
             ..Default::default()
         };
-        if epoch == 1 {
-            // The first copy into the master happened before the first step.
-            let extra: u64 = first_copy.iter().map(|c| c.0 + c.1).sum();
-            e.saturations += extra;
-        }
         for (k, p) in prev.iter_mut().enumerate() {
             let now = fixed.stats(k).map(stats_totals).unwrap_or_default();
             e.saturations += now.0 - p.0;
@@ -827,21 +792,22 @@ pub fn run_side_by_side(
     let mut tensors = Vec::new();
     for k in 0..desc.layers.len() {
         let Some(s) = fixed.stats(k) else { continue };
-        let copy = first_copy.get(k).copied().unwrap_or_default();
-        for (name, t, extra) in [
-            ("out", s.out, 0),
-            ("grad", s.grad, 0),
-            ("weight", s.weight, copy.0),
-            ("bias", s.bias, copy.1),
-            ("accum_weight", s.accum_weight, 0),
-            ("accum_bias", s.accum_bias, 0),
+        for (name, t) in [
+            ("out", s.out),
+            ("grad", s.grad),
+            ("weight", s.weight),
+            ("bias", s.bias),
+            ("accum_weight", s.accum_weight),
+            ("accum_bias", s.accum_bias),
         ] {
-            if t.values > 0 || extra > 0 {
+            // The core counts the first copy into a master among the tensor's saturations
+            // (before any write is counted), so a tensor may have saturations without values.
+            if t.values > 0 || t.saturations > 0 {
                 tensors.push(TensorTotals {
                     layer: k,
                     tensor: name,
                     values: t.values as u64,
-                    saturations: t.saturations as u64 + extra,
+                    saturations: t.saturations as u64,
                     lost_updates: t.lost_updates as u64,
                     divergence_pct: last
                         .relative

@@ -324,22 +324,32 @@ impl<'a> Trainer<'a> {
             );
             let w = view_mut(w, l.weight.value, s.weight.elems);
             let b = view_mut(b, l.bias.value, s.bias.elems);
-            for (m, src, f) in [(mw, &w, l.weight.master), (mb, &b, l.bias.master)] {
+            let mut copied = [0u32; 2];
+            for (j, (m, src, f)) in [(mw, &w, l.weight.master), (mb, &b, l.bias.master)]
+                .into_iter()
+                .enumerate()
+            {
                 let Some(f) = f else { continue };
                 let len = src.raw.len() as u32;
                 let mut m = view_mut(m, f, len);
                 for i in 0..len as usize {
                     // Widening into the master: exact when the master has at least the
-                    // value's fraction bits (the usual case), else rounded to nearest.
-                    let (v, _) = crate::num::round::requantize(
+                    // value's fraction bits (the usual case), else rounded to nearest; a
+                    // value beyond the master's range saturates and is counted.
+                    let (v, sat) = crate::num::round::requantize(
                         src.raw.at(i) as i64,
                         src.frac(),
                         f,
                         Rounding::NearestEven,
                         &mut self.rng,
                     );
+                    copied[j] = copied[j].saturating_add(sat as u32);
                     m.raw.put(i, v);
                 }
+            }
+            if let Some(st) = self.stats.get_mut(k) {
+                st.weight.saturations = st.weight.saturations.saturating_add(copied[0]);
+                st.bias.saturations = st.bias.saturations.saturating_add(copied[1]);
             }
             for buf in [aw, ab, vw, vb] {
                 buf.fill(0);
@@ -1104,6 +1114,39 @@ mod tests {
     use super::*;
     use crate::model::{LayerKind, ParamFormats, Shape, TrainDesc, TrainMode};
     use crate::num::{QScalar, Word};
+
+    /// The first copy of the weights into a master too narrow for them saturates, and is
+    /// counted in the weight tensor's statistics (values from the test itself: 20.0 in Q6.9
+    /// against a Q3.28 master that holds at most 8).
+    #[test]
+    fn first_copy_into_a_narrow_master_is_counted() {
+        let value = QFormat::new_unchecked(Word::I16, 9);
+        let master = QFormat::new_unchecked(Word::I32, 28);
+        let p = ParamFormats {
+            master: Some(master),
+            ..ParamFormats::plain(value, 24)
+        };
+        let dense = LayerDesc {
+            kind: LayerKind::Dense { units: 2 },
+            mode: TrainMode::Full,
+            weight: p,
+            bias: p,
+            out: value,
+            grad: value,
+        };
+        let t = TrainDesc::sgd(QScalar { raw: 1, frac: 8 });
+        let desc =
+            ModelDesc::new(Shape::vector(1), value, &[dense], Loss::SquaredError, t).unwrap();
+        let plan = Plan::of(&desc).unwrap();
+        let mut arena = std::vec![0u32; plan.ram_words()];
+        let init = [LayerParams {
+            weight: Raw::I16(&[20 * 512, 512]),
+            bias: Raw::I16(&[0, 256]),
+        }];
+        let tr = Trainer::new(&desc, &plan, &mut arena, &init).unwrap();
+        let s = tr.stats(0).unwrap();
+        assert_eq!((s.weight.saturations, s.bias.saturations), (1, 0));
+    }
 
     /// The smallest build (no optional layer kinds) trains: a 2-8-1 dense, ReLU, squared-error
     /// model fits y = x0 − x1 on four samples with SGD. `cargo xtask test` also runs this with
