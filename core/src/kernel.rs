@@ -62,6 +62,15 @@ impl Tally {
         }
     }
 
+    /// Adds the counts a kernel kept in registers: `values` written, `saturations` of them
+    /// saturated, `high` of them in the outer half.
+    #[inline]
+    pub fn add_counts(&mut self, values: u32, saturations: u32, high: u32) {
+        self.values = self.values.saturating_add(values);
+        self.saturations = self.saturations.saturating_add(saturations);
+        self.high = self.high.saturating_add(high);
+    }
+
     /// Adds another tally into this one.
     pub fn merge(&mut self, o: &Tally) {
         self.values = self.values.saturating_add(o.values);

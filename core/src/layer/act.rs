@@ -187,9 +187,7 @@ fn store_typed<O: Sample, F: FnMut(usize, &mut Rng) -> (i64, u32)>(
         sats += sat as u32;
         high += (sat || outer_half(q, O::WORD)) as u32;
     }
-    t.values = t.values.saturating_add(out.len() as u32);
-    t.saturations = t.saturations.saturating_add(sats);
-    t.high = t.high.saturating_add(high);
+    t.add_counts(out.len() as u32, sats, high);
 }
 
 #[inline]

@@ -125,9 +125,7 @@ impl Cols {
             sats += sat as u32;
             high += (sat || outer_half(q, O::WORD)) as u32;
         }
-        tally.values = tally.values.saturating_add(out.len() as u32);
-        tally.saturations = tally.saturations.saturating_add(sats);
-        tally.high = tally.high.saturating_add(high);
+        tally.add_counts(out.len() as u32, sats, high);
     }
 }
 
@@ -149,9 +147,7 @@ fn bias_row<G: Sample>(acc: &mut [i32], g: &[G], k: u32, tally: &mut Tally) {
         sats += sat as u32;
         high += (sat || outer_half(q, Word::I32)) as u32;
     }
-    tally.values = tally.values.saturating_add(values);
-    tally.saturations = tally.saturations.saturating_add(sats);
-    tally.high = tally.high.saturating_add(high);
+    tally.add_counts(values, sats, high);
 }
 
 /// The usual forward pass, with the output's rounding worked out once per call: nearest-even
@@ -219,9 +215,7 @@ impl Rows {
             sats += sat as u32;
             high += (sat || outer_half(q, O::WORD)) as u32;
         }
-        tally.values = tally.values.saturating_add(out.len() as u32);
-        tally.saturations = tally.saturations.saturating_add(sats);
-        tally.high = tally.high.saturating_add(high);
+        tally.add_counts(out.len() as u32, sats, high);
     }
 }
 
@@ -322,6 +316,17 @@ mod tests {
         }
     }
 
+    /// The geometry of a dense layer from `n_in` inputs to `n_out` units.
+    fn geometry(n_in: usize, n_out: usize) -> LayerGeometry {
+        LayerGeometry {
+            input: Shape::vector(n_in as u16),
+            output: Shape::vector(n_out as u16),
+            weights: (n_in * n_out) as u32,
+            biases: n_out as u32,
+            macs: (n_in * n_out) as u32,
+        }
+    }
+
     proptest! {
         #![proptest_config(ProptestConfig::with_cases(1500))]
 
@@ -348,13 +353,7 @@ mod tests {
                 b: Tensor { raw: view(bw, &b), fmt: bf },
             };
             let x = Tensor { raw: view(xw, &x), fmt: xf };
-            let g = LayerGeometry {
-                input: Shape::vector(n_in as u16),
-                output: Shape::vector(n_out as u16),
-                weights: (n_in * n_out) as u32,
-                biases: n_out as u32,
-                macs: (n_in * n_out) as u32,
-            };
+            let g = geometry(n_in, n_out);
             let run = |fast: bool| {
                 let mut words = [0u32; 8];
                 let mut y = TensorMut {
@@ -398,13 +397,7 @@ mod tests {
                 b: Tensor::EMPTY,
             };
             let gy = Tensor { raw: view(gw, &gy), fmt: fmt(gw, fg) };
-            let g = LayerGeometry {
-                input: Shape::vector(n_in as u16),
-                output: Shape::vector(n_out as u16),
-                weights: (n_in * n_out) as u32,
-                biases: n_out as u32,
-                macs: (n_in * n_out) as u32,
-            };
+            let g = geometry(n_in, n_out);
             let run = |whole: bool| {
                 let mut words = [0u32; 8];
                 let mut gx = TensorMut {

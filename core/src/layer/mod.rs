@@ -305,9 +305,7 @@ fn outer_row<X: Sample>(
         Rounding::TowardZero => outer_row_fast::<X, TowardZero>(acc, x, g, sh, rng),
         Rounding::Stochastic => outer_row_fast::<X, Stochastic>(acc, x, g, sh, rng),
     };
-    tally.values = tally.values.saturating_add(acc.len().min(x.len()) as u32);
-    tally.saturations = tally.saturations.saturating_add(sats);
-    tally.high = tally.high.saturating_add(high);
+    tally.add_counts(acc.len().min(x.len()) as u32, sats, high);
 }
 
 /// The hot loop of [`outer_row`]: products in `i32` (`|g · x| ≤ 2^30`, checked by the caller),
@@ -376,9 +374,7 @@ pub fn outer_row_exact(
         sats += sat as u32;
         high += (sat || crate::kernel::outer_half(q, crate::num::Word::I32)) as u32;
     }
-    tally.values = tally.values.saturating_add(acc.len().min(x.len()) as u32);
-    tally.saturations = tally.saturations.saturating_add(sats);
-    tally.high = tally.high.saturating_add(high);
+    tally.add_counts(acc.len().min(x.len()) as u32, sats, high);
 }
 
 /// The parameters of a layer as read by forward and backward.

@@ -235,13 +235,9 @@ impl Lean {
         } else {
             0
         };
-        tally.values = tally.values.saturating_add(target.len() as u32);
-        tally.saturations = tally.saturations.saturating_add(sats);
-        tally.high = tally.high.saturating_add(sats);
+        tally.add_counts(target.len() as u32, sats, sats);
         tally.lost_updates = tally.lost_updates.saturating_add(lost);
-        accum_tally.values = accum_tally.values.saturating_add(writes);
-        accum_tally.saturations = accum_tally.saturations.saturating_add(acc_sats);
-        accum_tally.high = accum_tally.high.saturating_add(acc_high);
+        accum_tally.add_counts(writes, acc_sats, acc_high);
     }
 }
 
