@@ -551,6 +551,111 @@ pub fn kind_name(kind: LayerKind) -> &'static str {
 }
 
 // ---------------------------------------------------------------------------------------------
+// Names of rounding and train modes
+
+/// A name that is not one of a table's names.
+#[derive(Clone, Debug, PartialEq, Eq, thiserror::Error)]
+#[error("`{given}` is not a {what}; use {}", one_of(expected))]
+pub struct UnknownName {
+    /// What the name was meant to be (`rounding`, `train mode`).
+    pub what: &'static str,
+    /// The name given.
+    pub given: String,
+    /// The names there are.
+    pub expected: &'static [&'static str],
+}
+
+/// `a, b or c`.
+fn one_of(names: &[&str]) -> String {
+    match names {
+        [] => String::new(),
+        [one] => (*one).to_owned(),
+        [init @ .., last] => format!("{} or {last}", init.join(", ")),
+    }
+}
+
+/// Defines a name table: a newtype over a core enumeration whose `Display` and `FromStr` (and
+/// serde's forms) write and read the one name of each variant. The config, the command line,
+/// `hone sweep` and `hone inspect` all name these values through it.
+macro_rules! name_table {
+    ($(#[$doc:meta])* $name:ident($ty:ident), $what:literal, { $($variant:ident => $text:literal),+ $(,)? }) => {
+        $(#[$doc])*
+        #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+        pub struct $name(pub $ty);
+
+        impl $name {
+            /// Every value, in the order of [`Self::NAMES`].
+            pub const ALL: &'static [$ty] = &[$($ty::$variant),+];
+            /// Every name, in the order of [`Self::ALL`].
+            pub const NAMES: &'static [&'static str] = &[$($text),+];
+
+            /// The value's name.
+            #[must_use]
+            pub const fn as_str(self) -> &'static str {
+                match self.0 {
+                    $($ty::$variant => $text),+
+                }
+            }
+        }
+
+        impl fmt::Display for $name {
+            fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+                f.write_str(self.as_str())
+            }
+        }
+
+        impl std::str::FromStr for $name {
+            type Err = UnknownName;
+
+            fn from_str(s: &str) -> Result<Self, UnknownName> {
+                Self::ALL
+                    .iter()
+                    .map(|&v| Self(v))
+                    .find(|v| v.as_str() == s)
+                    .ok_or_else(|| UnknownName {
+                        what: $what,
+                        given: s.to_owned(),
+                        expected: Self::NAMES,
+                    })
+            }
+        }
+
+        impl<'de> Deserialize<'de> for $name {
+            fn deserialize<D: Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+                let s = String::deserialize(d)?;
+                s.parse()
+                    .map_err(|_| de::Error::unknown_variant(&s, Self::NAMES))
+            }
+        }
+
+        impl serde::Serialize for $name {
+            fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+                s.serialize_str(self.as_str())
+            }
+        }
+    };
+}
+
+name_table! {
+    /// A rounding mode by name: `nearest-even`, `toward-zero`, `stochastic`.
+    RoundingName(Rounding), "rounding", {
+        NearestEven => "nearest-even",
+        TowardZero => "toward-zero",
+        Stochastic => "stochastic",
+    }
+}
+
+name_table! {
+    /// A train mode by name: `frozen`, `bias-only`, `weights-only`, `full`.
+    ModeName(TrainMode), "train mode", {
+        Frozen => "frozen",
+        BiasOnly => "bias-only",
+        WeightsOnly => "weights-only",
+        Full => "full",
+    }
+}
+
+// ---------------------------------------------------------------------------------------------
 // The file as written
 
 #[derive(Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
@@ -573,23 +678,6 @@ enum KindName {
 enum LossName {
     SquaredError,
     SoftmaxCrossEntropy,
-}
-
-#[derive(Deserialize, Clone, Copy, Debug)]
-#[serde(rename_all = "kebab-case")]
-enum ModeName {
-    Frozen,
-    BiasOnly,
-    WeightsOnly,
-    Full,
-}
-
-#[derive(Deserialize, Clone, Copy, Debug)]
-#[serde(rename_all = "kebab-case")]
-enum RoundName {
-    NearestEven,
-    TowardZero,
-    Stochastic,
 }
 
 #[derive(Deserialize, Clone, Copy, Debug, PartialEq, Eq)]
@@ -717,9 +805,9 @@ struct RawTrain {
 #[derive(Deserialize)]
 #[serde(deny_unknown_fields, rename_all = "kebab-case")]
 struct RawRounding {
-    activations: Option<RoundName>,
-    gradients: Option<RoundName>,
-    updates: Option<RoundName>,
+    activations: Option<RoundingName>,
+    gradients: Option<RoundingName>,
+    updates: Option<RoundingName>,
 }
 
 #[derive(Deserialize)]
@@ -1785,12 +1873,7 @@ impl Checker<'_> {
         let mode = match (&l.train, params) {
             (None, true) => TrainMode::Full,
             (None, false) => TrainMode::Frozen,
-            (Some(m), true) => match m.get_ref() {
-                ModeName::Frozen => TrainMode::Frozen,
-                ModeName::BiasOnly => TrainMode::BiasOnly,
-                ModeName::WeightsOnly => TrainMode::WeightsOnly,
-                ModeName::Full => TrainMode::Full,
-            },
+            (Some(m), true) => m.get_ref().0,
             (Some(m), false) => {
                 return Err(self.err(
                     m,
@@ -1963,11 +2046,7 @@ impl Checker<'_> {
         }
         let weight_decay = opt(&r.weight_decay, "train.weight-decay")?;
         let clip = opt(&r.clip, "train.clip")?;
-        let round = |r: Option<RoundName>| match r {
-            None | Some(RoundName::NearestEven) => Rounding::NearestEven,
-            Some(RoundName::TowardZero) => Rounding::TowardZero,
-            Some(RoundName::Stochastic) => Rounding::Stochastic,
-        };
+        let round = |r: Option<RoundingName>| r.map_or(Rounding::NearestEven, |r| r.0);
         let rounding = match &r.rounding {
             Some(p) => RoundingPlan {
                 activations: round(p.activations),
@@ -2452,5 +2531,30 @@ target = "y"
             Some(&["0".to_string(), "1".into(), "x".into()][..])
         );
         assert_eq!(c.data_spec().task, Task::Classification);
+    }
+
+    #[test]
+    fn names_read_back_and_unknown_names_list_the_known_ones() {
+        for &r in RoundingName::ALL {
+            assert_eq!(RoundingName(r).to_string().parse(), Ok(RoundingName(r)));
+        }
+        for &m in ModeName::ALL {
+            assert_eq!(ModeName(m).to_string().parse(), Ok(ModeName(m)));
+        }
+        assert_eq!(
+            RoundingName(Rounding::NearestEven).to_string(),
+            "nearest-even"
+        );
+        assert_eq!(ModeName(TrainMode::BiasOnly).to_string(), "bias-only");
+        let e = "nearest_even".parse::<RoundingName>().unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "`nearest_even` is not a rounding; use nearest-even, toward-zero or stochastic"
+        );
+        let e = "all".parse::<ModeName>().unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "`all` is not a train mode; use frozen, bias-only, weights-only or full"
+        );
     }
 }

@@ -11,9 +11,10 @@ use std::path::Path;
 
 use hone_core::blob::{self, BlobError, BlobKind, CheckedBlob, TensorBlob, TensorRole};
 use hone_core::model::{shapes, Loss, ParamFormats, Shape, Shapes, TrainMode};
-use hone_core::num::{QFormat, QScalar, Rounding, Word};
+use hone_core::num::{QFormat, QScalar, Word};
 use serde::Serialize;
 
+use crate::config::{ModeName, RoundingName};
 use crate::memplan::{bytes, group, kind_label, table, Align};
 
 /// Why a blob could not be inspected. Every message starts with the file's name.
@@ -420,23 +421,6 @@ pub fn master_warnings(desc: &hone_core::model::ModelDesc) -> Vec<String> {
     out
 }
 
-fn mode_name(m: TrainMode) -> &'static str {
-    match m {
-        TrainMode::Frozen => "frozen",
-        TrainMode::BiasOnly => "bias_only",
-        TrainMode::WeightsOnly => "weights_only",
-        TrainMode::Full => "full",
-    }
-}
-
-fn rounding_name(r: Rounding) -> &'static str {
-    match r {
-        Rounding::NearestEven => "nearest_even",
-        Rounding::TowardZero => "toward_zero",
-        Rounding::Stochastic => "stochastic",
-    }
-}
-
 fn role_name(r: TensorRole) -> &'static str {
     match r {
         TensorRole::Weight => "weight",
@@ -505,7 +489,7 @@ fn describe(file: &str, bytes: &[u8], b: &CheckedBlob<'_>, shapes: &Shapes) -> I
                 weights: g.weights,
                 biases: g.biases,
                 macs: g.macs,
-                train_mode: mode_name(l.mode).to_owned(),
+                train_mode: ModeName(l.mode).to_string(),
                 weight: params.then(|| ParamFormatsInfo::of(&l.weight)),
                 bias: params.then(|| ParamFormatsInfo::of(&l.bias)),
                 out: FormatInfo::of(l.out),
@@ -566,9 +550,9 @@ fn describe(file: &str, bytes: &[u8], b: &CheckedBlob<'_>, shapes: &Shapes) -> I
             weight_decay: ScalarInfo::of(t.weight_decay),
             clip: ScalarInfo::of(t.clip),
             rounding: RoundingInfo {
-                activations: rounding_name(t.rounding.activations).to_owned(),
-                gradients: rounding_name(t.rounding.gradients).to_owned(),
-                updates: rounding_name(t.rounding.updates).to_owned(),
+                activations: RoundingName(t.rounding.activations).to_string(),
+                gradients: RoundingName(t.rounding.gradients).to_string(),
+                updates: RoundingName(t.rounding.updates).to_string(),
             },
             dynamic: t.dynamic.map(|d| DynamicInfo {
                 max_rate_ppm: d.max_rate_ppm,
@@ -681,12 +665,12 @@ fn format_line(f: &FormatInfo) -> String {
 }
 
 fn mode_text(m: &str) -> &'static str {
-    match m {
-        "frozen" => "frozen",
-        "bias_only" => "trains the bias",
-        "weights_only" => "trains the weights",
-        "full" => "trains weights and bias",
-        _ => "unknown train mode",
+    match m.parse::<ModeName>().map(|m| m.0) {
+        Ok(TrainMode::Frozen) => "frozen",
+        Ok(TrainMode::BiasOnly) => "trains the bias",
+        Ok(TrainMode::WeightsOnly) => "trains the weights",
+        Ok(TrainMode::Full) => "trains weights and bias",
+        Err(_) => "unknown train mode",
     }
 }
 
@@ -782,9 +766,7 @@ pub fn render(r: &InspectReport) -> String {
     let _ = writeln!(
         o,
         "  rounding: activations {}, gradients {}, updates {}",
-        t.rounding.activations.replace('_', "-"),
-        t.rounding.gradients.replace('_', "-"),
-        t.rounding.updates.replace('_', "-")
+        t.rounding.activations, t.rounding.gradients, t.rounding.updates
     );
     match t.dynamic {
         Some(d) => {
@@ -1182,7 +1164,13 @@ pub(crate) mod tests {
         assert_eq!(r.scaling.len(), 8);
         assert_eq!(r.model.layers[0].train_mode, "full");
         assert_eq!(r.model.layers[0].weights, 128);
+        // The names the config and `hone sweep` use (`nearest-even`, not `nearest_even`).
+        assert_eq!(r.training.rounding.activations, "nearest-even");
         let text = render(&r);
+        assert!(
+            text.contains("rounding: activations nearest-even, gradients nearest-even"),
+            "{text}"
+        );
         assert!(text.contains("hone checkpoint"), "{text}");
         assert!(text.contains("9 (planned 10)"), "{text}");
         assert!(

@@ -9,8 +9,8 @@ use std::process::ExitCode;
 use anyhow::{anyhow, bail, Context, Result};
 use clap::{Args, Parser, Subcommand};
 use hone_core::model::TrainMode;
-use hone_core::num::{QScalar, Rounding, Word};
-use hone_host::config::Config;
+use hone_core::num::{QScalar, Word};
+use hone_host::config::{Config, ModeName, RoundingName};
 use hone_host::drift::{DriftReport, Thresholds};
 use hone_host::model::FloatModel;
 use hone_host::pipeline::Base;
@@ -289,13 +289,13 @@ struct SweepArgs {
     frac_delta: Vec<i8>,
     /// Roundings of gradients and updates: nearest-even, toward-zero, stochastic.
     #[arg(long, value_delimiter = ',')]
-    rounding: Vec<String>,
+    rounding: Vec<RoundingName>,
     /// Learning rates.
     #[arg(long, value_delimiter = ',')]
     lr: Vec<f64>,
     /// Train modes for the trainable layers: full, bias-only, weights-only.
     #[arg(long, value_delimiter = ',')]
-    mode: Vec<String>,
+    mode: Vec<ModeName>,
     /// Passes over the training samples (default: the config's epochs).
     #[arg(long, value_parser = clap::value_parser!(u32).range(1..))]
     epochs: Option<u32>,
@@ -821,17 +821,6 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
     Ok((!report.fits).then_some(CheckFailed))
 }
 
-fn parse_rounding(s: &str) -> Result<Rounding> {
-    match s {
-        "nearest-even" => Ok(Rounding::NearestEven),
-        "toward-zero" => Ok(Rounding::TowardZero),
-        "stochastic" => Ok(Rounding::Stochastic),
-        _ => Err(anyhow!(
-            "--rounding: `{s}` is not nearest-even, toward-zero or stochastic"
-        )),
-    }
-}
-
 /// Loads and quantizes `csv` for the model; warns on stderr about values the model's
 /// formats cannot hold.
 fn prepare(base: &Base, csv: &Path) -> Result<hone_host::sim::Prepared> {
@@ -855,15 +844,12 @@ fn prepare(base: &Base, csv: &Path) -> Result<hone_host::sim::Prepared> {
     Ok(p)
 }
 
-fn parse_mode(s: &str) -> Result<TrainMode> {
-    match s {
-        "full" => Ok(TrainMode::Full),
-        "bias-only" => Ok(TrainMode::BiasOnly),
-        "weights-only" => Ok(TrainMode::WeightsOnly),
-        _ => Err(anyhow!(
-            "--mode: `{s}` is not full, bias-only or weights-only"
-        )),
+/// A train mode for the sweep's grid: one that trains something.
+fn sweep_mode(m: ModeName) -> Result<TrainMode> {
+    if m.0 == TrainMode::Frozen {
+        bail!("--mode: {m} trains nothing; use full, bias-only or weights-only");
     }
+    Ok(m.0)
 }
 
 /// A sweep learning rate must be positive and survive the description's learning-rate
@@ -890,10 +876,10 @@ fn parse_word(bits: u32, what: &str) -> Result<Word> {
 
 /// Refuses a grid list that repeats a value: the repeated rows would be marked on the front
 /// twice.
-fn no_repeats<T: PartialEq + std::fmt::Debug>(option: &str, values: &[T]) -> Result<()> {
+fn no_repeats<T: PartialEq + std::fmt::Display>(option: &str, values: &[T]) -> Result<()> {
     for (i, v) in values.iter().enumerate() {
         if values[..i].contains(v) {
-            bail!("--{option}: {v:?} is given twice; give each value once");
+            bail!("--{option}: {v} is given twice; give each value once");
         }
     }
     Ok(())
@@ -928,11 +914,7 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
             .map(|&b| parse_word(b, "activations"))
             .collect::<Result<_>>()?,
         frac_deltas: a.frac_delta.clone(),
-        roundings: a
-            .rounding
-            .iter()
-            .map(|s| parse_rounding(s))
-            .collect::<Result<_>>()?,
+        roundings: a.rounding.iter().map(|r| r.0).collect(),
         learning_rates: a
             .lr
             .iter()
@@ -941,7 +923,7 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
         modes: a
             .mode
             .iter()
-            .map(|s| parse_mode(s))
+            .map(|&m| sweep_mode(m))
             .collect::<Result<_>>()?,
     };
     let opts = RunOptions {

@@ -15,6 +15,7 @@ use hone_core::num::{QFormat, QScalar, Rounding, Word};
 use hone_core::plan::Plan;
 use serde::Serialize;
 
+use crate::config::{ModeName, RoundingName};
 use crate::quant::{frac_for, WEIGHT_MARGIN};
 use crate::sim::{run_side_by_side, Prepared, QuantParams, RunOptions};
 
@@ -82,25 +83,6 @@ pub struct PointResult {
     pub pareto: bool,
     /// Why the point could not run, if it could not.
     pub error: Option<String>,
-}
-
-/// A rounding mode as the config writes it.
-pub fn rounding_name(r: Rounding) -> &'static str {
-    match r {
-        Rounding::NearestEven => "nearest-even",
-        Rounding::TowardZero => "toward-zero",
-        Rounding::Stochastic => "stochastic",
-    }
-}
-
-/// A train mode as the config writes it.
-pub fn mode_name(m: TrainMode) -> &'static str {
-    match m {
-        TrainMode::Frozen => "frozen",
-        TrainMode::BiasOnly => "bias-only",
-        TrainMode::WeightsOnly => "weights-only",
-        TrainMode::Full => "full",
-    }
 }
 
 fn word_name(w: Word) -> String {
@@ -253,9 +235,9 @@ pub fn run(
                     weights: w.map_or("base".into(), word_name),
                     activations: a.map_or("base".into(), word_name),
                     frac_delta: fd,
-                    rounding: r.map_or("base".into(), |r| rounding_name(r).into()),
+                    rounding: r.map_or("base".into(), |r| RoundingName(r).to_string()),
                     learning_rate: lr.unwrap_or_else(|| base.train.lr.to_f64()),
-                    mode: m.map_or("base".into(), |m| mode_name(m).into()),
+                    mode: m.map_or("base".into(), |m| ModeName(m).to_string()),
                 };
                 let result = point(base, float, (w, a, fd, r, lr, m), train, eval, opts)
                     .unwrap_or_else(|e| PointResult {
