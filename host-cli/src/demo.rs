@@ -50,9 +50,53 @@ pub struct DemoOutcome {
     pub summary: String,
 }
 
-fn write(dir: &Path, name: &str, bytes: &[u8], files: &mut Vec<PathBuf>) -> Result<(), String> {
+/// Why the demo stopped.
+#[derive(Debug, thiserror::Error)]
+pub enum DemoError {
+    /// A folder or file could not be written.
+    #[error("{}: {source}", path.display())]
+    Io {
+        /// The folder or file.
+        path: PathBuf,
+        /// Operating-system error.
+        #[source]
+        source: std::io::Error,
+    },
+    /// The chip is not in the built-in table.
+    #[error("unknown chip `{0}`; `hone chips` lists the built-in ones")]
+    UnknownChip(String),
+    /// The bundled config does not load.
+    #[error(transparent)]
+    Config(#[from] crate::config::ConfigError),
+    /// Training, quantizing or preparing samples failed.
+    #[error(transparent)]
+    Pipeline(#[from] crate::pipeline::PipelineError),
+    /// The float model could not be saved.
+    #[error(transparent)]
+    Model(#[from] crate::model::ModelError),
+    /// The model could not be exported.
+    #[error(transparent)]
+    Export(#[from] crate::export::ExportError),
+    /// The memory plan failed.
+    #[error(transparent)]
+    Plan(#[from] crate::memplan::MemplanError),
+    /// The simulated calibration failed.
+    #[error(transparent)]
+    Sim(#[from] crate::sim::SimError),
+    /// The core refused a step of the guarded session.
+    #[error(transparent)]
+    Engine(#[from] hone_core::Error),
+    /// A report could not be rendered as JSON.
+    #[error(transparent)]
+    Json(#[from] serde_json::Error),
+}
+
+fn write(dir: &Path, name: &str, bytes: &[u8], files: &mut Vec<PathBuf>) -> Result<(), DemoError> {
     let p = dir.join(name);
-    crate::fsutil::write_atomic(&p, bytes).map_err(|e| format!("{}: {e}", p.display()))?;
+    crate::fsutil::write_atomic(&p, bytes).map_err(|source| DemoError::Io {
+        path: p.to_path_buf(),
+        source,
+    })?;
     files.push(p);
     Ok(())
 }
@@ -61,12 +105,22 @@ fn write(dir: &Path, name: &str, bytes: &[u8], files: &mut Vec<PathBuf>) -> Resu
 /// `progress` receives one-line status messages.
 ///
 /// # Errors
-/// A message naming the step that failed.
-pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<DemoOutcome, String> {
-    std::fs::create_dir_all(out).map_err(|e| format!("{}: {e}", out.display()))?;
+/// [`DemoError`] naming the file or step that failed.
+pub fn run(
+    out: &Path,
+    chip: &str,
+    progress: &mut dyn FnMut(&str),
+) -> Result<DemoOutcome, DemoError> {
+    std::fs::create_dir_all(out).map_err(|source| DemoError::Io {
+        path: out.to_path_buf(),
+        source,
+    })?;
     let mut files = Vec::new();
     let inputs = out.join("inputs");
-    std::fs::create_dir_all(&inputs).map_err(|e| format!("{}: {e}", inputs.display()))?;
+    std::fs::create_dir_all(&inputs).map_err(|source| DemoError::Io {
+        path: inputs.to_path_buf(),
+        source,
+    })?;
     for (name, text) in [
         ("soil-moisture.toml", CONFIG),
         ("soil_factory.csv", FACTORY),
@@ -75,7 +129,7 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     ] {
         write(&inputs, name, text.as_bytes(), &mut files)?;
     }
-    let config = Config::load(&inputs.join("soil-moisture.toml")).map_err(|e| e.to_string())?;
+    let config = Config::load(&inputs.join("soil-moisture.toml"))?;
     let epochs = config.epochs();
 
     progress("1/5 training the float base model on the factory data");
@@ -88,9 +142,7 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
             }
         },
     )?;
-    base.float
-        .save(&out.join("base-model.json"))
-        .map_err(|e| e.to_string())?;
+    base.float.save(&out.join("base-model.json"))?;
     files.push(out.join("base-model.json"));
 
     progress("2/5 quantizing and exporting for the device");
@@ -110,12 +162,13 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     let hold = base.prepare(&inputs.join("soil_unit_holdout.csv"))?;
 
     progress(&format!("3/5 planning training memory for {chip}"));
-    let chip_info = crate::chips::find(chip)
-        .ok_or_else(|| format!("unknown chip `{chip}`; `hone chips` lists the built-in ones"))?;
+    let chip_info =
+        crate::chips::find(chip).ok_or_else(|| DemoError::UnknownChip(chip.to_owned()))?;
     // Every alternative of the advice gets its drift cost on the new probe's samples, as
     // `hone plan --model --train --eval` gives it.
     let drift_cost = |d: &hone_core::model::ModelDesc| {
         crate::pipeline::drift_cost(&base, &cal, &hold, crate::pipeline::PLAN_DRIFT_EPOCHS, d)
+            .map_err(Into::into)
     };
     let plan_report = memplan::plan_report(
         &q.desc,
@@ -124,15 +177,12 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
         Some(&memplan::engine_overhead(chip_info)),
         &AdviceOptions::default(),
         Some(&drift_cost),
-    )
-    .map_err(|e| e.to_string())?;
+    )?;
     let plan_text = memplan::render_table(&plan_report);
     write(
         out,
         "plan.json",
-        serde_json::to_string_pretty(&plan_report)
-            .map_err(|e| e.to_string())?
-            .as_bytes(),
+        serde_json::to_string_pretty(&plan_report)?.as_bytes(),
         &mut files,
     )?;
 
@@ -189,9 +239,7 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     write(
         out,
         "drift.json",
-        serde_json::to_string_pretty(&drift)
-            .map_err(|e| e.to_string())?
-            .as_bytes(),
+        serde_json::to_string_pretty(&drift)?.as_bytes(),
         &mut files,
     )?;
 
@@ -225,7 +273,10 @@ pub fn run(out: &Path, chip: &str, progress: &mut dyn FnMut(&str)) -> Result<Dem
     files.extend(
         report
             .write(out, "report")
-            .map_err(|e| format!("{}: {e}", out.display()))?,
+            .map_err(|source| DemoError::Io {
+                path: out.to_path_buf(),
+                source,
+            })?,
     );
 
     let summary = format!(
@@ -267,20 +318,19 @@ fn guard_session(
     blob: &[u8],
     cal: &Prepared,
     hold: &Prepared,
-) -> Result<Vec<(String, String)>, String> {
-    let plan = Plan::of(desc).map_err(|e| e.to_string())?;
+) -> Result<Vec<(String, String)>, hone_core::Error> {
+    let plan = Plan::of(desc)?;
     let mut arena = vec![0u32; plan.ram_words()];
     let views = params.views();
-    let mut t = Trainer::new(desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
-    let last_good = hone_core::blob::decode(blob).map_err(|e| e.to_string())?;
+    let mut t = Trainer::new(desc, &plan, &mut arena, &views)?;
+    let last_good = hone_core::blob::decode(blob)?;
     let f = desc.input_format;
     let train: Vec<_> = (0..3)
         .flat_map(|_| (0..cal.len()).map(|i| cal.fixed(i, f)))
         .collect();
     let holdout: Vec<_> = (0..hold.len()).map(|i| hold.fixed(i, f)).collect();
     let cfg = GuardConfig::DEFAULT;
-    let r =
-        guard::calibrate(&mut t, train, holdout, &cfg, &last_good).map_err(|e| e.to_string())?;
+    let r = guard::calibrate(&mut t, train, holdout, &cfg, &last_good)?;
     Ok(vec![
         (
             "held-back loss".into(),

@@ -364,14 +364,14 @@ impl DriftReport {
     /// twin's final parameters (weights and biases).
     ///
     /// # Errors
-    /// A message when the float ranges cannot be measured.
+    /// The core's error when the float ranges cannot be measured.
     pub fn advise_saturation(
         &mut self,
         desc: &hone_core::model::ModelDesc,
         run: &DriftRun,
         train: &crate::sim::Prepared,
         float_start: &[(Vec<f64>, Vec<f64>)],
-    ) -> Result<(), String> {
+    ) -> Result<(), hone_core::Error> {
         use crate::ranges::{accumulator_need, float_ranges, holding_format};
         let Some(check) = self
             .verdict

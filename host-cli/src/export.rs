@@ -34,16 +34,33 @@ fn le_bytes(raw: Raw<'_>) -> Vec<u8> {
     v
 }
 
+/// Why a model could not be exported.
+#[derive(Debug, thiserror::Error)]
+pub enum ExportError {
+    /// More parameter tensors than a blob holds.
+    #[error("too many tensors for one blob (at most {})", blob::MAX_TENSORS)]
+    TooManyTensors,
+    /// More scaled input channels than a blob holds.
+    #[error("{0} scaling entries; a blob holds at most {max}", max = blob::MAX_SCALED_CHANNELS)]
+    TooManyChannels(usize),
+    /// The blob encoder refused the model.
+    #[error("{0}")]
+    Encode(#[source] hone_core::Error),
+    /// The encoded blob does not pass the decoder's checks.
+    #[error("the encoded blob does not validate: {0}")]
+    Validate(#[source] hone_core::Error),
+}
+
 /// Encodes a factory-model blob.
 ///
 /// # Errors
-/// A message if the blob cannot be encoded (too many channels for the scaling list, or a
+/// [`ExportError`] if the blob cannot be encoded (too many channels for the scaling list, or a
 /// parameter that does not match the description).
 pub fn model_blob(
     desc: &ModelDesc,
     params: &QuantParams,
     scaling: &[ChannelScale],
-) -> Result<Vec<u8>, String> {
+) -> Result<Vec<u8>, ExportError> {
     let bytes: Vec<(usize, Vec<u8>, Vec<u8>)> = params
         .layers
         .iter()
@@ -71,27 +88,22 @@ pub fn model_blob(
                     elems: elems as u32,
                     data,
                 })
-                .map_err(|_| "too many tensors for one blob".to_string())?;
+                .map_err(|_| ExportError::TooManyTensors)?;
         }
     }
     let body = BlobBody {
         kind: BlobKind::Model,
         desc: desc.clone(),
-        scaling: heapless::Vec::from_slice(scaling).map_err(|_| {
-            format!(
-                "{} scaling entries; a blob holds at most {}",
-                scaling.len(),
-                blob::MAX_SCALED_CHANNELS
-            )
-        })?,
+        scaling: heapless::Vec::from_slice(scaling)
+            .map_err(|_| ExportError::TooManyChannels(scaling.len()))?,
         state: None,
         tensors,
     };
-    let n = blob::encoded_len(&body).map_err(|e| e.to_string())?;
+    let n = blob::encoded_len(&body).map_err(ExportError::Encode)?;
     let mut out = vec![0u8; n];
-    let len = blob::encode(&body, &mut out).map_err(|e| e.to_string())?;
+    let len = blob::encode(&body, &mut out).map_err(ExportError::Encode)?;
     out.truncate(len);
-    blob::decode(&out).map_err(|e| format!("the encoded blob does not validate: {e}"))?;
+    blob::decode(&out).map_err(ExportError::Validate)?;
     Ok(out)
 }
 
@@ -217,7 +229,7 @@ pub fn rust_source(
     params: &QuantParams,
     scaling: &[ChannelScale],
     origin: &str,
-) -> Result<String, String> {
+) -> Result<String, ExportError> {
     let blob = model_blob(desc, params, scaling)?;
     let mut s = String::new();
     let t = &desc.train;

@@ -2,7 +2,7 @@
 
 use std::path::PathBuf;
 
-use anyhow::{anyhow, Result};
+use anyhow::Result;
 use clap::Args;
 use hone_host::fleet::{self, FleetOptions};
 
@@ -71,20 +71,17 @@ pub fn run(a: FleetArgs) -> Result<String> {
         }),
     };
     // Settings and the config's section first, so a mistake costs no data loading.
-    opts.check().map_err(|e| anyhow!("{e}"))?;
+    opts.check()?;
     if base.config.fleet().is_none() {
-        return Err(anyhow!(
-            "{}",
-            fleet::FleetError::NoSection {
-                config: a.model.cfg.config.clone()
-            }
-        ));
+        return Err(fleet::FleetError::NoSection {
+            config: a.model.cfg.config.clone(),
+        }
+        .into());
     }
-    let pool = fleet::load_pool(&base, &a.data).map_err(|e| anyhow!("{e}"))?;
+    let pool = fleet::load_pool(&base, &a.data)?;
     let b = super::bar(opts.units as u64, "units");
     let started = std::time::Instant::now();
-    let report = fleet::run(&base, &pool, &opts, &|done, _| b.set_position(done as u64))
-        .map_err(|e| anyhow!("{e}"))?;
+    let report = fleet::run(&base, &pool, &opts, &|done, _| b.set_position(done as u64))?;
     b.finish_and_clear();
     let elapsed = started.elapsed().as_secs_f64();
     if let Some(dir) = &a.out {

@@ -455,10 +455,24 @@ fn main() -> ExitCode {
         Ok(None) => ExitCode::SUCCESS,
         Ok(Some(CheckFailed)) => ExitCode::from(1),
         Err(e) => {
-            eprintln!("error: {e:#}");
+            eprintln!("error: {}", error_text(&e));
             ExitCode::from(2)
         }
     }
+}
+
+/// The error and its causes, joined by `: `, each said once: a cause whose text an outer
+/// message already shows (a library error that names its source) is not repeated.
+fn error_text(e: &anyhow::Error) -> String {
+    let mut text = e.to_string();
+    for cause in e.chain().skip(1) {
+        let c = cause.to_string();
+        if !text.contains(&c) {
+            text.push_str(": ");
+            text.push_str(&c);
+        }
+    }
+    text
 }
 
 fn bar(len: u64, what: &str) -> ProgressBar {
@@ -473,21 +487,19 @@ fn bar(len: u64, what: &str) -> ProgressBar {
 }
 
 fn load_config(c: &ConfigArg) -> Result<Config> {
-    Config::load(&c.config).map_err(|e| anyhow!("{e}"))
+    Ok(Config::load(&c.config)?)
 }
 
 fn load_base(m: &ModelArgs, calib: &Path) -> Result<Base> {
     let config = load_config(&m.cfg)?;
-    let float = FloatModel::load(&m.model).map_err(|e| anyhow!("{e}"))?;
-    Base::from_float(config, float, calib)
-        .map_err(|e| anyhow!("{e}"))
-        .with_context(|| {
-            format!(
-                "model {} with config {}",
-                m.model.display(),
-                m.cfg.config.display()
-            )
-        })
+    let float = FloatModel::load(&m.model)?;
+    Base::from_float(config, float, calib).with_context(|| {
+        format!(
+            "model {} with config {}",
+            m.model.display(),
+            m.cfg.config.display()
+        )
+    })
 }
 
 fn print_json<T: serde::Serialize>(v: &T) -> Result<()> {
@@ -503,8 +515,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                     "--chip: unknown chip `{chip}`; `hone chips` lists the built-in ones"
                 ));
             }
-            let o = hone_host::demo::run(&out, &chip, &mut |m| eprintln!("{m}"))
-                .map_err(|e| anyhow!("demo: {e}"))?;
+            let o = hone_host::demo::run(&out, &chip, &mut |m| eprintln!("{m}")).context("demo")?;
             outln!("{}", o.summary);
             Ok((!o.drift_pass || !o.fits).then_some(CheckFailed))
         }
@@ -514,19 +525,18 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                 &[("--out", &out)],
             )?;
             let config = load_config(&cfg)?;
-            let dataset = config.load_data(&data, None).map_err(|e| anyhow!("{e}"))?;
+            let dataset = config.load_data(&data, None)?;
             let b = bar(config.epochs() as u64, "epochs");
             let trained = hone_host::train::train_float(&config, &dataset, &mut |e, _, loss| {
                 b.set_position(e as u64);
                 b.set_message(format!("loss {loss:.5}"));
-            })
-            .map_err(|e| anyhow!("{e}"))?;
+            })?;
             b.finish_and_clear();
             for c in &trained.constant {
                 eprintln!("warning: {}: {c}", data.display());
             }
             let model = &trained.model;
-            model.save(&out).map_err(|e| anyhow!("{e}"))?;
+            model.save(&out)?;
             let last = model.history.last().map(|h| h.loss).unwrap_or_default();
             let held = if trained.held_out_rows > 0 {
                 format!(
@@ -571,10 +581,11 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             // while writing leaves none of them (see `fsutil::write_all` for the rare failed
             // rename).
             let blob_bytes = match &blob {
-                Some(_) => Some(
-                    hone_host::export::model_blob(&q.desc, &q.params, &base.float.scaling)
-                        .map_err(|e| anyhow!("{e}"))?,
-                ),
+                Some(_) => Some(hone_host::export::model_blob(
+                    &q.desc,
+                    &q.params,
+                    &base.float.scaling,
+                )?),
                 None => None,
             };
             let rust_src = match &rust {
@@ -584,15 +595,12 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
                         model.model.display(),
                         model.cfg.config.display()
                     );
-                    Some(
-                        hone_host::export::rust_source(
-                            &q.desc,
-                            &q.params,
-                            &base.float.scaling,
-                            &origin,
-                        )
-                        .map_err(|e| anyhow!("{e}"))?,
-                    )
+                    Some(hone_host::export::rust_source(
+                        &q.desc,
+                        &q.params,
+                        &base.float.scaling,
+                        &origin,
+                    )?)
                 }
                 None => None,
             };
@@ -635,7 +643,7 @@ fn run(cmd: Command) -> Result<Option<CheckFailed>> {
             Ok(None)
         }
         Command::Inspect { file, json } => {
-            let r = hone_host::inspect::inspect_file(&file).map_err(|e| anyhow!("{e}"))?;
+            let r = hone_host::inspect::inspect_file(&file)?;
             if json {
                 print_json(&r)?;
             } else {
@@ -682,8 +690,7 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
         &eval,
         &opts,
         &mut |p| b.set_position(p.done),
-    )
-    .map_err(|e| anyhow!("{e}"))?;
+    )?;
     b.finish_and_clear();
     let setup = vec![
         (
@@ -716,9 +723,7 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
     };
     let mut report = DriftReport::from_run(&run, train.is_classification(), setup, t);
     report.unit = base.config.data().unit.clone();
-    report
-        .advise_saturation(&q.desc, &run, &train, &q.float_params)
-        .map_err(|e| anyhow!("{e}"))?;
+    report.advise_saturation(&q.desc, &run, &train, &q.float_params)?;
     if a.json {
         print_json(&report)?;
     } else {
@@ -739,7 +744,7 @@ fn drift(a: DriftArgs) -> Result<Option<CheckFailed>> {
 }
 
 fn size(s: &str, what: &str) -> Result<u32> {
-    hone_host::memplan::parse_size(s).map_err(|e| anyhow!("--{what}: {e}"))
+    hone_host::memplan::parse_size(s).with_context(|| format!("--{what}"))
 }
 
 fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
@@ -754,9 +759,7 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
     // fraction bits here.
     let desc = match &base {
         Some(b) => b.quant.desc.clone(),
-        None => config
-            .model_desc_with(hone_host::train::provisional_frac)
-            .map_err(|e| anyhow!("{e}"))?,
+        None => config.model_desc_with(hone_host::train::provisional_frac)?,
     };
     let data = match (&base, &a.train, &a.eval) {
         (Some(b), Some(t), Some(e)) => Some((prepare(b, t)?, prepare(b, e)?)),
@@ -764,9 +767,9 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
     };
     let drift_cost = |d: &hone_core::model::ModelDesc| match (base.as_ref(), data.as_ref()) {
         (Some(b), Some((train, eval))) => {
-            hone_host::pipeline::drift_cost(b, train, eval, a.epochs, d)
+            hone_host::pipeline::drift_cost(b, train, eval, a.epochs, d).map_err(Into::into)
         }
-        _ => Err("no calibration data".to_owned()),
+        _ => Err("no calibration data".into()),
     };
     let chip = match &a.chip {
         Some(id) => Some(hone_host::chips::find(id).ok_or_else(|| anyhow!("--chip: unknown chip `{id}`; `hone chips` lists the built-in ones, or give --ram and --flash"))?),
@@ -789,9 +792,9 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
     // named) core, or else the largest measured figures, marked as an estimate.
     let overhead = match (chip, &a.core) {
         (Some(c), _) => memplan::engine_overhead(c),
-        (None, Some(name)) => memplan::measured_core_overhead(
-            memplan::measured_core(name).map_err(|e| anyhow!("--core: {e}"))?,
-        ),
+        (None, Some(name)) => {
+            memplan::measured_core_overhead(memplan::measured_core(name).context("--core")?)
+        }
         (None, None) => memplan::estimated_overhead(),
     };
     let report = plan_report(
@@ -803,7 +806,7 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
         data.as_ref()
             .map(|_| &drift_cost as hone_host::memplan::DriftFn<'_>),
     )
-    .map_err(|e| anyhow!("{}: {e}", a.cfg.config.display()))?;
+    .with_context(|| a.cfg.config.display().to_string())?;
     let report = match chip {
         Some(c) => report.with_chip(c, &desc),
         None => report,
@@ -824,7 +827,7 @@ fn plan(a: PlanArgs) -> Result<Option<CheckFailed>> {
 /// Loads and quantizes `csv` for the model; warns on stderr about values the model's
 /// formats cannot hold.
 fn prepare(base: &Base, csv: &Path) -> Result<hone_host::sim::Prepared> {
-    let p = base.prepare(csv).map_err(|e| anyhow!("{e}"))?;
+    let p = base.prepare(csv)?;
     if p.input_saturations > 0 {
         eprintln!(
             "warning: {}: {} input values saturated the model's input format {}",
@@ -888,7 +891,7 @@ fn no_repeats<T: PartialEq + std::fmt::Display>(option: &str, values: &[T]) -> R
 /// Refuses outputs that name one file twice or name an input (see
 /// [`hone_host::fsutil::check_outputs`]).
 fn distinct(inputs: &[(&str, &Path)], outputs: &[(&str, &Path)]) -> Result<()> {
-    hone_host::fsutil::check_outputs(inputs, outputs).map_err(|e| anyhow!("{e}"))
+    Ok(hone_host::fsutil::check_outputs(inputs, outputs)?)
 }
 
 fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
@@ -899,6 +902,12 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
     no_repeats("rounding", &a.rounding)?;
     no_repeats("lr", &a.lr)?;
     no_repeats("mode", &a.mode)?;
+    // The settings first, so a mistake costs no data loading.
+    let modes = a
+        .mode
+        .iter()
+        .map(|&m| sweep_mode(m))
+        .collect::<Result<_>>()?;
     let base = load_base(&a.model, a.calib.as_ref().unwrap_or(&a.train))?;
     let train = prepare(&base, &a.train)?;
     let eval = prepare(&base, &a.eval)?;
@@ -920,11 +929,7 @@ fn sweep(a: SweepArgs) -> Result<Option<CheckFailed>> {
             .iter()
             .map(|&lr| check_sweep_lr(lr, base.quant.desc.train.lr.frac))
             .collect::<Result<_>>()?,
-        modes: a
-            .mode
-            .iter()
-            .map(|&m| sweep_mode(m))
-            .collect::<Result<_>>()?,
+        modes,
     };
     let opts = RunOptions {
         epochs: a.epochs.unwrap_or(base.config.epochs()),
@@ -1011,16 +1016,14 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
             json,
         } => {
             let boards_dir = device::default_boards_dir();
-            let profile =
-                device::verify::release_opt_level(&boards_dir).map_err(|e| anyhow!("{e}"))?;
+            let profile = device::verify::release_opt_level(&boards_dir)?;
             if board == device::lean::LEAN_BOARD {
                 if session_dir.is_some() || elf.is_some() {
                     bail!(
                         "--board {board}: --session-dir and --elf do not apply to the lean build"
                     );
                 }
-                let check = device::lean::verify_lean(&boards_dir, device::DEFAULT_TIMEOUT)
-                    .map_err(|e| anyhow!("{e}"))?;
+                let check = device::lean::verify_lean(&boards_dir, device::DEFAULT_TIMEOUT)?;
                 if json {
                     outln!("{}", serde_json::to_string(&check.summary(&profile))?);
                 } else {
@@ -1043,7 +1046,7 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
                 boards_dir,
                 ..Default::default()
             };
-            let check = device::verify::verify_board(b, &opts).map_err(|e| anyhow!("{e}"))?;
+            let check = device::verify::verify_board(b, &opts)?;
             if json {
                 outln!("{}", serde_json::to_string(&check.summary(&profile))?);
             } else {
@@ -1070,14 +1073,13 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
             let b = board_named(&board)?;
             let elf = match elf {
                 Some(e) => e,
-                None => device::build_firmware(b, &device::default_boards_dir())
-                    .map_err(|e| anyhow!("{e}"))?,
+                None => device::build_firmware(b, &device::default_boards_dir())?,
             };
             let opts = device::profile::ProfileOptions {
                 phase,
                 timeout: std::time::Duration::from_secs(timeout),
             };
-            let p = device::profile::profile_elf(b, &elf, &opts).map_err(|e| anyhow!("{e}"))?;
+            let p = device::profile::profile_elf(b, &elf, &opts)?;
             if json {
                 print_json(&p)?;
             } else {
@@ -1090,7 +1092,7 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
                 Some(d) => d,
                 None => device::session::committed_dir(&device::default_boards_dir(), &board),
             };
-            let files = device::session::generate(&dir, &board).map_err(|e| anyhow!("{e}"))?;
+            let files = device::session::generate(&dir, &board)?;
             if files.is_empty() {
                 outln!("{}: session files already current", dir.display());
             }
@@ -1121,14 +1123,12 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
             if let Some(p) = &out {
                 distinct(&[("the image", &image)], &[("--out", p)])?;
             }
-            let (info, blob) = hone_host::checkpoint::read_latest_file(&image, geometry(&g))
-                .map_err(|e| anyhow!("{e}"))?;
+            let (info, blob) = hone_host::checkpoint::read_latest_file(&image, geometry(&g))?;
             if let Some(p) = &out {
                 hone_host::fsutil::write_atomic(p, &blob)
                     .with_context(|| p.display().to_string())?;
             }
-            let report = hone_host::inspect::inspect(&image.display().to_string(), &blob)
-                .map_err(|e| anyhow!("{e}"))?;
+            let report = hone_host::inspect::inspect(&image.display().to_string(), &blob)?;
             if json {
                 print_json(&serde_json::json!({ "checkpoint": info, "blob": report }))?;
             } else {
@@ -1162,15 +1162,13 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
                         &blob,
                         &out,
                         start_over,
-                    )
-                    .map_err(|e| anyhow!("{e}"))?;
+                    )?;
                     outln!("written: {} ({len} bytes)", out.display());
                     return Ok(None);
                 }
                 None => {
                     let region_len = size(&region, "region")?;
-                    hone_host::checkpoint::check_geometry(geometry(&g))
-                        .map_err(|e| anyhow!("{e}"))?;
+                    hone_host::checkpoint::check_geometry(geometry(&g))?;
                     if !region_len.is_multiple_of(g.erase) {
                         return Err(anyhow!(
                             "--region: {region_len} B is not a whole number of {} B erase \
@@ -1179,8 +1177,7 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
                             g.erase
                         ));
                     }
-                    hone_host::checkpoint::write_image_file(&blob, geometry(&g), region_len)
-                        .map_err(|e| anyhow!("{e}"))?
+                    hone_host::checkpoint::write_image_file(&blob, geometry(&g), region_len)?
                 }
             };
             hone_host::fsutil::write_atomic(&out, &image)
@@ -1188,5 +1185,28 @@ fn checkpoint(c: CheckpointCmd) -> Result<Option<CheckFailed>> {
             outln!("written: {} ({} bytes)", out.display(), image.len());
             Ok(None)
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn error_text_says_each_cause_once() {
+        // A library error that prints its source and also returns it from `source()`.
+        let io = std::io::Error::other("disk on fire");
+        let e = anyhow::Error::new(hone_host::config::ConfigError::Io {
+            path: PathBuf::from("a.toml"),
+            source: io,
+        })
+        .context("--config");
+        assert_eq!(
+            error_text(&e),
+            "--config: a.toml: cannot read the config file: disk on fire"
+        );
+        // A cause the outer message does not show is still said.
+        let e = anyhow!("inner").context("outer");
+        assert_eq!(error_text(&e), "outer: inner");
     }
 }

@@ -737,14 +737,15 @@ impl PlanReport {
 
 /// What the caller may pass to estimate the drift cost of a changed model: the cost, or why
 /// it cannot be computed for this change (shown in its place).
-pub type DriftFn<'a> = &'a dyn Fn(&ModelDesc) -> Result<DriftCost, String>;
+pub type DriftFn<'a> =
+    &'a dyn Fn(&ModelDesc) -> Result<DriftCost, Box<dyn std::error::Error + Send + Sync>>;
 
 /// Calls the caller's drift function, if any: the cost, and the reason when there is none.
 fn drift_of(drift: Option<DriftFn<'_>>, d: &ModelDesc) -> (Option<DriftCost>, Option<String>) {
     match drift.map(|f| f(d)) {
         None => (None, None),
         Some(Ok(c)) => (Some(c), None),
-        Some(Err(why)) => (None, Some(why)),
+        Some(Err(why)) => (None, Some(why.to_string())),
     }
 }
 

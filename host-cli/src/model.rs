@@ -155,12 +155,117 @@ pub enum ModelError {
         message: String,
     },
     /// Valid structure, wrong content.
+    #[error("{path}: {source}")]
+    Check {
+        /// The file.
+        path: String,
+        /// What is wrong and what to do.
+        #[source]
+        source: ModelFault,
+    },
+    /// The model could not be written as JSON.
     #[error("{path}: {message}")]
     Invalid {
         /// The file.
         path: String,
         /// What is wrong and what to do.
         message: String,
+    },
+}
+
+/// What is wrong with a float model's content (its structure parsed).
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum ModelFault {
+    /// The `format` field names another format.
+    #[error("`format` is {0:?}, expected {FORMAT_NAME:?}")]
+    Format(String),
+    /// The `version` field is not the one this build reads.
+    #[error("`version` is {0}, this build reads version {FORMAT_VERSION}")]
+    Version(u32),
+    /// The core rejects the architecture.
+    #[error("architecture: {0}")]
+    Architecture(#[source] hone_core::Error),
+    /// A layer's parameter counts differ from its architecture's.
+    #[error(
+        "layer {layer}: {weights} weights and {biases} biases, the architecture needs \
+         {need_weights} and {need_biases}"
+    )]
+    ParamCount {
+        /// Layer index.
+        layer: usize,
+        /// Weights in the file.
+        weights: usize,
+        /// Biases in the file.
+        biases: usize,
+        /// Weights the architecture needs.
+        need_weights: usize,
+        /// Biases the architecture needs.
+        need_biases: usize,
+    },
+    /// A parameter is NaN or infinite.
+    #[error("layer {layer}: parameter {index} is not a finite number")]
+    NotFinite {
+        /// Layer index.
+        layer: usize,
+        /// Parameter index (weights, then biases).
+        index: usize,
+    },
+    /// A parameter is larger than any fixed-point format holds.
+    #[error(
+        "layer {layer}: parameter {index} is {value:e}, larger than any fixed-point format holds \
+         (2^31); the model is corrupted or its training diverged"
+    )]
+    TooLarge {
+        /// Layer index.
+        layer: usize,
+        /// Parameter index (weights, then biases).
+        index: usize,
+        /// The value.
+        value: f64,
+    },
+    /// A layer without parameters has a train mode.
+    #[error("layer {layer}: a train mode is set on a layer without parameters")]
+    ModeWithoutParams {
+        /// Layer index.
+        layer: usize,
+    },
+    /// The scaling list does not have one entry per input channel.
+    #[error("{entries} scaling entries for {channels} input channels")]
+    ScalingCount {
+        /// Entries in the file.
+        entries: usize,
+        /// Input channels.
+        channels: usize,
+    },
+    /// A scaling offset is not finite.
+    #[error(
+        "`scaling[{channel}].offset` is {value}, not a finite number; train the model again \
+         or correct the entry"
+    )]
+    ScalingOffset {
+        /// Channel index.
+        channel: usize,
+        /// The offset.
+        value: f32,
+    },
+    /// A scaling gain is not finite or is 0.
+    #[error(
+        "`scaling[{channel}].gain` is {value}; a gain must be a finite number other than 0 \
+         (a zero gain erases the channel); train the model again or correct the entry"
+    )]
+    ScalingGain {
+        /// Channel index.
+        channel: usize,
+        /// The gain.
+        value: f32,
+    },
+    /// The feature names do not match the input size.
+    #[error("{names} feature names for an input of {values} values")]
+    FeatureCount {
+        /// Feature names in the file.
+        names: usize,
+        /// Values of the input.
+        values: usize,
     },
 }
 
@@ -203,9 +308,9 @@ impl FloatModel {
             column: e.column(),
             message: e.to_string(),
         })?;
-        m.check().map_err(|message| ModelError::Invalid {
+        m.check().map_err(|source| ModelError::Check {
             path: shown,
-            message,
+            source,
         })?;
         Ok(m)
     }
@@ -228,8 +333,8 @@ impl FloatModel {
     /// The shapes of every layer, from the architecture alone (formats play no part).
     ///
     /// # Errors
-    /// The core's message for an architecture it rejects.
-    pub fn shapes(&self) -> Result<hone_core::model::Shapes, String> {
+    /// The core's error for an architecture it rejects.
+    pub fn shapes(&self) -> Result<hone_core::model::Shapes, hone_core::Error> {
         let probe: Vec<hone_core::model::LayerDesc> = self
             .layers
             .iter()
@@ -241,37 +346,31 @@ impl FloatModel {
                 )
             })
             .collect();
-        hone_core::model::shapes(self.input, &probe, self.loss).map_err(|e| e.to_string())
+        hone_core::model::shapes(self.input, &probe, self.loss)
     }
 
     /// Checks format name, version, shapes against the architecture, and finiteness.
     ///
     /// # Errors
-    /// A message saying what is wrong.
-    pub fn check(&self) -> Result<(), String> {
+    /// A [`ModelFault`] saying what is wrong.
+    pub fn check(&self) -> Result<(), ModelFault> {
         if self.format != FORMAT_NAME {
-            return Err(format!(
-                "`format` is {:?}, expected {FORMAT_NAME:?}",
-                self.format
-            ));
+            return Err(ModelFault::Format(self.format.clone()));
         }
         if self.version != FORMAT_VERSION {
-            return Err(format!(
-                "`version` is {}, this build reads version {FORMAT_VERSION}",
-                self.version
-            ));
+            return Err(ModelFault::Version(self.version));
         }
-        let shapes = self.shapes().map_err(|e| format!("architecture: {e}"))?;
+        let shapes = self.shapes().map_err(ModelFault::Architecture)?;
         for (k, l) in self.layers.iter().enumerate() {
             let g = shapes.layers[k];
             if l.weights.len() != g.weights as usize || l.bias.len() != g.biases as usize {
-                return Err(format!(
-                    "layer {k}: {} weights and {} biases, the architecture needs {} and {}",
-                    l.weights.len(),
-                    l.bias.len(),
-                    g.weights,
-                    g.biases
-                ));
+                return Err(ModelFault::ParamCount {
+                    layer: k,
+                    weights: l.weights.len(),
+                    biases: l.bias.len(),
+                    need_weights: g.weights as usize,
+                    need_biases: g.biases as usize,
+                });
             }
             if let Some(i) = l
                 .weights
@@ -279,7 +378,7 @@ impl FloatModel {
                 .chain(l.bias.iter())
                 .position(|v| !v.is_finite())
             {
-                return Err(format!("layer {k}: parameter {i} is not a finite number"));
+                return Err(ModelFault::NotFinite { layer: k, index: i });
             }
             if let Some((i, v)) = l
                 .weights
@@ -288,46 +387,41 @@ impl FloatModel {
                 .enumerate()
                 .find(|(_, v)| v.abs() > MAX_PARAM)
             {
-                return Err(format!(
-                    "layer {k}: parameter {i} is {v:e}, larger than any fixed-point format holds \
-                     (2^31); the model is corrupted or its training diverged"
-                ));
+                return Err(ModelFault::TooLarge {
+                    layer: k,
+                    index: i,
+                    value: *v,
+                });
             }
             if !l.kind.has_params() && l.mode != TrainMode::Frozen {
-                return Err(format!(
-                    "layer {k}: a train mode is set on a layer without parameters"
-                ));
+                return Err(ModelFault::ModeWithoutParams { layer: k });
             }
         }
         if !self.scaling.is_empty() && self.scaling.len() != self.input.channels as usize {
-            return Err(format!(
-                "{} scaling entries for {} input channels",
-                self.scaling.len(),
-                self.input.channels
-            ));
+            return Err(ModelFault::ScalingCount {
+                entries: self.scaling.len(),
+                channels: self.input.channels as usize,
+            });
         }
         for (c, sc) in self.scaling.iter().enumerate() {
             if !sc.offset.is_finite() {
-                return Err(format!(
-                    "`scaling[{c}].offset` is {}, not a finite number; train the model again \
-                     or correct the entry",
-                    sc.offset
-                ));
+                return Err(ModelFault::ScalingOffset {
+                    channel: c,
+                    value: sc.offset,
+                });
             }
             if !sc.gain.is_finite() || sc.gain == 0.0 {
-                return Err(format!(
-                    "`scaling[{c}].gain` is {}; a gain must be a finite number other than 0 \
-                     (a zero gain erases the channel); train the model again or correct the entry",
-                    sc.gain
-                ));
+                return Err(ModelFault::ScalingGain {
+                    channel: c,
+                    value: sc.gain,
+                });
             }
         }
         if self.features.len() != self.input.size() as usize {
-            return Err(format!(
-                "{} feature names for an input of {} values",
-                self.features.len(),
-                self.input.size()
-            ));
+            return Err(ModelFault::FeatureCount {
+                names: self.features.len(),
+                values: self.input.size() as usize,
+            });
         }
         Ok(())
     }
@@ -419,7 +513,7 @@ mod tests {
             let mut m = small();
             m.scaling[c] = ChannelScale { offset, gain };
             let e = m.check().unwrap_err();
-            assert!(e.starts_with(field), "{field}: {e}");
+            assert!(e.to_string().starts_with(field), "{field}: {e}");
         }
         // Through a file: a gain beyond the f32 range is refused by the reader (exact float
         // parsing reports it as out of range, with its place).

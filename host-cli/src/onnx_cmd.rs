@@ -3,7 +3,7 @@
 
 use std::path::PathBuf;
 
-use anyhow::{anyhow, bail, Result};
+use anyhow::{bail, Context, Result};
 use clap::{Args, Subcommand};
 use hone_host::model::FloatModel;
 use hone_host::onnx::{self, ImportOptions, Precision};
@@ -65,7 +65,7 @@ pub struct ExportArgs {
 }
 
 fn read(p: &PathBuf) -> Result<Vec<u8>> {
-    std::fs::read(p).map_err(|e| anyhow!("{}: {e}", p.display()))
+    std::fs::read(p).with_context(|| p.display().to_string())
 }
 
 /// Runs one `hone onnx` command; returns the lines to print.

@@ -1,7 +1,7 @@
 //! The steps every workflow shares, in one place: load a config, train or load the float base
 //! model, quantize it, and prepare samples for it.
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 use crate::config::Config;
 use crate::data::Dataset;
@@ -9,15 +9,50 @@ use crate::model::FloatModel;
 use crate::quant::{quantize, Quantized};
 use crate::sim::Prepared;
 
+/// Why a shared step of a workflow failed.
+#[derive(Debug, thiserror::Error)]
+pub enum PipelineError {
+    /// The float model and the config describe different models.
+    #[error(
+        "{}: the float model {what}; train a model with this config, or use the config it was \
+         trained with",
+        config.display()
+    )]
+    Mismatch {
+        /// The config file.
+        config: PathBuf,
+        /// The first difference.
+        what: String,
+    },
+    /// The data cannot be read or do not suit the model.
+    #[error(transparent)]
+    Data(#[from] crate::data::DataError),
+    /// Training the float model failed.
+    #[error(transparent)]
+    Train(#[from] crate::train::TrainError),
+    /// Quantizing the model failed.
+    #[error(transparent)]
+    Quant(#[from] crate::quant::QuantError),
+    /// Preparing samples or running the simulation failed.
+    #[error(transparent)]
+    Sim(#[from] crate::sim::SimError),
+    /// A drift cost was asked for a description with other layer shapes.
+    #[error("a changed layer size needs a float model retrained with that shape (hone train)")]
+    ShapeChanged,
+    /// The simulated run recorded no epoch.
+    #[error("the run recorded no epoch")]
+    NoEpoch,
+}
+
 /// Checks that a float model has the architecture the config describes: input, loss, the
 /// layer kinds in order, and (for regression) the target names.
 ///
 /// # Errors
-/// A message naming the config and the first difference.
-pub fn check_model_matches(config: &Config, float: &FloatModel) -> Result<(), String> {
-    let cfg = config.source().display();
-    let differs = |what: String| {
-        format!("{cfg}: the float model {what}; train a model with this config, or use the config it was trained with")
+/// [`PipelineError::Mismatch`] naming the config and the first difference.
+pub fn check_model_matches(config: &Config, float: &FloatModel) -> Result<(), PipelineError> {
+    let differs = |what: String| PipelineError::Mismatch {
+        config: config.source().to_path_buf(),
+        what,
     };
     if float.input != config.input() {
         return Err(differs(format!(
@@ -87,13 +122,13 @@ impl Base {
     /// from the same data.
     ///
     /// # Errors
-    /// Config, data, training or quantization errors, as messages naming the file.
+    /// Config, data, training or quantization errors, naming the file.
     pub fn train(
         config: Config,
         factory: &Path,
         progress: &mut dyn FnMut(u32, u32, f64),
-    ) -> Result<Base, String> {
-        let data = config.load_data(factory, None).map_err(|e| e.to_string())?;
+    ) -> Result<Base, PipelineError> {
+        let data = config.load_data(factory, None)?;
         let float = crate::train::train_float(&config, &data, progress)?.model;
         let quant = quantize(&config, &float, &data)?;
         Ok(Base {
@@ -107,7 +142,11 @@ impl Base {
     ///
     /// # Errors
     /// As [`Base::train`]; also when the model's inputs or outputs do not match the config.
-    pub fn from_float(config: Config, float: FloatModel, calib: &Path) -> Result<Base, String> {
+    pub fn from_float(
+        config: Config,
+        float: FloatModel,
+        calib: &Path,
+    ) -> Result<Base, PipelineError> {
         // The model and config are checked against each other first, so a mismatch is blamed
         // on them and not reported as a problem of the data read with the wrong columns.
         check_model_matches(&config, &float)?;
@@ -116,11 +155,8 @@ impl Base {
         } else {
             None
         };
-        let data = config
-            .load_data(calib, classes)
-            .map_err(|e| e.to_string())?;
-        data.check_features(&float.features)
-            .map_err(|e| e.to_string())?;
+        let data = config.load_data(calib, classes)?;
+        data.check_features(&float.features)?;
         let quant = quantize(&config, &float, &data)?;
         Ok(Base {
             config,
@@ -134,28 +170,24 @@ impl Base {
     ///
     /// # Errors
     /// Data errors naming the file, line and column.
-    pub fn prepare(&self, csv: &Path) -> Result<Prepared, String> {
+    pub fn prepare(&self, csv: &Path) -> Result<Prepared, PipelineError> {
         let data = self.load(csv)?;
-        Prepared::new(&data, &self.quant.desc)
+        Ok(Prepared::new(&data, &self.quant.desc)?)
     }
 
     /// Loads `csv` scaled, without quantizing.
     ///
     /// # Errors
     /// As [`Base::prepare`].
-    pub fn load(&self, csv: &Path) -> Result<Dataset, String> {
+    pub fn load(&self, csv: &Path) -> Result<Dataset, PipelineError> {
         let classes = if self.config.data().spec.task == crate::data::Task::Classification {
             Some(&self.float.outputs[..])
         } else {
             None
         };
-        let mut data = self
-            .config
-            .load_data(csv, classes)
-            .map_err(|e| e.to_string())?;
-        data.check_features(&self.float.features)
-            .map_err(|e| e.to_string())?;
-        crate::data::apply(&self.float.scaling, &mut data).map_err(|e| e.to_string())?;
+        let mut data = self.config.load_data(csv, classes)?;
+        data.check_features(&self.float.features)?;
+        crate::data::apply(&self.float.scaling, &mut data)?;
         Ok(data)
     }
 }
@@ -178,7 +210,7 @@ pub fn drift_cost(
     eval: &Prepared,
     epochs: u32,
     desc: &hone_core::model::ModelDesc,
-) -> Result<crate::memplan::DriftCost, String> {
+) -> Result<crate::memplan::DriftCost, PipelineError> {
     let same_shape = desc.input == base.quant.desc.input
         && desc.layers.len() == base.quant.desc.layers.len()
         && desc
@@ -187,10 +219,7 @@ pub fn drift_cost(
             .zip(&base.quant.desc.layers)
             .all(|(a, b)| a.kind == b.kind);
     if !same_shape {
-        return Err(
-            "a changed layer size needs a float model retrained with that shape (hone train)"
-                .into(),
-        );
+        return Err(PipelineError::ShapeChanged);
     }
     let (q, _) = crate::sim::QuantParams::quantize(desc, &base.quant.float_params)?;
     let opts = crate::sim::RunOptions {
@@ -209,7 +238,7 @@ pub fn drift_cost(
         &opts,
         &mut |_| {},
     )?;
-    let last = run.epochs.last().ok_or("the run recorded no epoch")?;
+    let last = run.epochs.last().ok_or(PipelineError::NoEpoch)?;
     Ok(crate::memplan::DriftCost {
         what: format!("eval loss gap after {epochs} calibration passes"),
         value: crate::drift::gap_pct(last.fixed_eval_loss, last.float_eval_loss),

@@ -165,15 +165,31 @@ pub struct Quantized {
     pub report: QuantReport,
 }
 
+/// Why a model could not be quantized.
+#[derive(Debug, thiserror::Error)]
+pub enum QuantError {
+    /// The calibration data do not suit the model.
+    #[error(transparent)]
+    Data(#[from] crate::data::DataError),
+    /// The config does not give a description.
+    #[error(transparent)]
+    Config(#[from] crate::config::ConfigError),
+    /// The core rejects the description.
+    #[error(transparent)]
+    Engine(#[from] hone_core::Error),
+    /// Quantizing the parameters or evaluating the pair failed.
+    #[error(transparent)]
+    Sim(#[from] crate::sim::SimError),
+}
+
 /// Largest output magnitude of every layer over `data` (already scaled), run through the
 /// float model.
 fn activation_ranges(
     desc: &ModelDesc,
     params: &[(Vec<f64>, Vec<f64>)],
     data: &Dataset,
-) -> Result<Vec<f64>, String> {
-    let shapes =
-        hone_core::model::shapes(desc.input, &desc.layers, desc.loss).map_err(|e| e.to_string())?;
+) -> Result<Vec<f64>, hone_core::Error> {
+    let shapes = hone_core::model::shapes(desc.input, &desc.layers, desc.loss)?;
     let mut max = vec![0f64; desc.layers.len()];
     for row in &data.x {
         let mut x = row.clone();
@@ -226,18 +242,20 @@ fn tensor_error(
 /// activations on `calib` (unscaled, as loaded; the model's scaling is applied here).
 ///
 /// # Errors
-/// A message for data that do not fit the model or a description the core rejects.
-pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Quantized, String> {
+/// [`QuantError`] for data that do not fit the model or a description the core rejects.
+pub fn quantize(
+    cfg: &Config,
+    model: &FloatModel,
+    calib: &Dataset,
+) -> Result<Quantized, QuantError> {
     let float_params: Vec<(Vec<f64>, Vec<f64>)> = model
         .layers
         .iter()
         .map(|l| (l.weights.clone(), l.bias.clone()))
         .collect();
     let mut scaled = calib.clone();
-    crate::data::apply(&model.scaling, &mut scaled).map_err(|e| e.to_string())?;
-    let provisional = cfg
-        .model_desc_with(crate::train::provisional_frac)
-        .map_err(|e| e.to_string())?;
+    crate::data::apply(&model.scaling, &mut scaled)?;
+    let provisional = cfg.model_desc_with(crate::train::provisional_frac)?;
     let ranges = activation_ranges(&provisional, &float_params, &scaled)?;
     let auto_grads = cfg
         .auto_formats()
@@ -251,61 +269,59 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
     };
     let train = cfg.train();
     let mut chosen = Vec::new();
-    let desc = cfg
-        .model_desc_with(|a: AutoFormat| {
-            let (max_abs, margin) = match a.role {
-                FormatRole::Weights => (
-                    float_params[a.layer]
-                        .0
-                        .iter()
-                        .fold(0f64, |m, v| m.max(v.abs())),
-                    WEIGHT_MARGIN,
-                ),
-                FormatRole::Bias => (
-                    float_params[a.layer]
-                        .1
-                        .iter()
-                        .fold(0f64, |m, v| m.max(v.abs())),
-                    WEIGHT_MARGIN,
-                ),
-                FormatRole::Gradients => (grads[a.layer].grad, GRADIENT_MARGIN),
-                FormatRole::Accumulators => {
-                    let g = &grads[a.layer];
-                    (
-                        crate::ranges::accumulator_need(
-                            g.weight_grad.max(g.bias_grad),
-                            train.batch,
-                            train.momentum.to_f64(),
-                            train.clip.to_f64(),
-                        ),
-                        GRADIENT_MARGIN,
-                    )
-                }
-                _ => (ranges[a.layer], ACTIVATION_MARGIN),
-            };
-            let bound = match a.role {
-                FormatRole::Activations => cfg
-                    .layers()
-                    .get(a.layer)
-                    .and_then(|l| output_bound(l.kind))
-                    .filter(|&b| max_abs * margin > b),
-                _ => None,
-            };
-            let frac = match bound {
-                Some(b) => frac_for(b, 1.0, a.word),
-                None => frac_for(max_abs, margin, a.word),
-            };
-            chosen.push(ChosenFormat {
-                layer: a.layer,
-                role: a.role.key().into(),
-                format: QFormat::new_unchecked(a.word, frac).to_string(),
-                max_abs,
-                margin,
-                bound,
-            });
-            frac
-        })
-        .map_err(|e| e.to_string())?;
+    let desc = cfg.model_desc_with(|a: AutoFormat| {
+        let (max_abs, margin) = match a.role {
+            FormatRole::Weights => (
+                float_params[a.layer]
+                    .0
+                    .iter()
+                    .fold(0f64, |m, v| m.max(v.abs())),
+                WEIGHT_MARGIN,
+            ),
+            FormatRole::Bias => (
+                float_params[a.layer]
+                    .1
+                    .iter()
+                    .fold(0f64, |m, v| m.max(v.abs())),
+                WEIGHT_MARGIN,
+            ),
+            FormatRole::Gradients => (grads[a.layer].grad, GRADIENT_MARGIN),
+            FormatRole::Accumulators => {
+                let g = &grads[a.layer];
+                (
+                    crate::ranges::accumulator_need(
+                        g.weight_grad.max(g.bias_grad),
+                        train.batch,
+                        train.momentum.to_f64(),
+                        train.clip.to_f64(),
+                    ),
+                    GRADIENT_MARGIN,
+                )
+            }
+            _ => (ranges[a.layer], ACTIVATION_MARGIN),
+        };
+        let bound = match a.role {
+            FormatRole::Activations => cfg
+                .layers()
+                .get(a.layer)
+                .and_then(|l| output_bound(l.kind))
+                .filter(|&b| max_abs * margin > b),
+            _ => None,
+        };
+        let frac = match bound {
+            Some(b) => frac_for(b, 1.0, a.word),
+            None => frac_for(max_abs, margin, a.word),
+        };
+        chosen.push(ChosenFormat {
+            layer: a.layer,
+            role: a.role.key().into(),
+            format: QFormat::new_unchecked(a.word, frac).to_string(),
+            max_abs,
+            margin,
+            bound,
+        });
+        frac
+    })?;
     let (params, _) = QuantParams::quantize(&desc, &float_params)?;
     let mut tensors = Vec::new();
     for (k, l) in desc.layers.iter().enumerate() {
@@ -341,8 +357,7 @@ pub fn quantize(cfg: &Config, model: &FloatModel, calib: &Dataset) -> Result<Qua
     // split with the train seed), so quantize and train report the same rows; without a
     // hold-out, or when it would leave no row, every row counts.
     let held = if cfg.data().holdout > 0.0 {
-        let (_, h) = crate::data::split(&scaled, cfg.data().holdout, cfg.train().seed)
-            .map_err(|e| e.to_string())?;
+        let (_, h) = crate::data::split(&scaled, cfg.data().holdout, cfg.train().seed)?;
         (!h.is_empty()).then_some(h)
     } else {
         None

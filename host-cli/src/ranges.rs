@@ -61,9 +61,8 @@ pub fn float_ranges(
     desc: &ModelDesc,
     params: &[(Vec<f64>, Vec<f64>)],
     data: &Prepared,
-) -> Result<Vec<LayerRanges>, String> {
-    let shapes =
-        hone_core::model::shapes(desc.input, &desc.layers, desc.loss).map_err(|e| e.to_string())?;
+) -> Result<Vec<LayerRanges>, hone_core::Error> {
+    let shapes = hone_core::model::shapes(desc.input, &desc.layers, desc.loss)?;
     let n = desc.layers.len();
     let mut out = vec![LayerRanges::default(); n];
     let max_abs = |v: &[f64], m: f64| v.iter().fold(m, |m, x| m.max(x.abs()));

@@ -9,6 +9,8 @@
 //! Because the fixed-point side is the very code the device runs, its numbers are the
 //! device's numbers.
 
+use std::path::PathBuf;
+
 use hone_core::float::{FloatParams, FloatTarget, Twin};
 use hone_core::layer::loss::Target;
 use hone_core::layer::Tensor;
@@ -34,19 +36,92 @@ pub enum OwnedRaw {
     I32(Vec<i32>),
 }
 
+/// A value that is NaN or infinite, where a number to quantize was expected.
+#[derive(Clone, Debug, PartialEq, thiserror::Error)]
+#[error("value {index} is {value}, not a finite number")]
+pub struct NotFinite {
+    /// Position of the value, from 0.
+    pub index: usize,
+    /// The value.
+    pub value: f64,
+}
+
+/// An error of the fixed-point simulation, naming the file and row, the layer or the sample.
+#[derive(Debug, thiserror::Error)]
+pub enum SimError {
+    /// A parameter of the float model is not finite.
+    #[error("layer {layer} {tensor}: {source}")]
+    Param {
+        /// Layer index.
+        layer: usize,
+        /// `weights` or `bias`.
+        tensor: &'static str,
+        /// The value.
+        #[source]
+        source: NotFinite,
+    },
+    /// A value of a data row is not finite.
+    #[error("{}: row {row}: {field}: {source}", file.display())]
+    Row {
+        /// The data file.
+        file: PathBuf,
+        /// Data row, from 1.
+        row: usize,
+        /// `input` or `target`.
+        field: &'static str,
+        /// The value.
+        #[source]
+        source: NotFinite,
+    },
+    /// The data's targets do not suit the model's loss.
+    #[error("{}: the targets do not match the loss {loss:?}", file.display())]
+    TargetsMismatch {
+        /// The data file.
+        file: PathBuf,
+        /// The model's loss.
+        loss: Loss,
+    },
+    /// The core cannot plan the model's memory.
+    #[error("the model does not plan: {0}")]
+    Plan(#[source] hone_core::Error),
+    /// The trainer or the float twin refused its start.
+    #[error("{side} start: {source}")]
+    Start {
+        /// `fixed-point` or `float`.
+        side: &'static str,
+        /// The core's error.
+        #[source]
+        source: hone_core::Error,
+    },
+    /// A sample failed to train or evaluate.
+    #[error("{what} {sample}: {source}")]
+    Sample {
+        /// `training sample`, `evaluation sample` or `sample`.
+        what: &'static str,
+        /// The sample, from 1.
+        sample: usize,
+        /// The core's error.
+        #[source]
+        source: hone_core::Error,
+    },
+    /// Any other refusal of the core.
+    #[error(transparent)]
+    Engine(#[from] hone_core::Error),
+}
+
 impl OwnedRaw {
     /// Quantizes `values` to nearest (ties to even), saturating. Returns the tensor and the
     /// number of values that saturated.
     ///
     /// # Errors
-    /// A message naming the first value that is NaN or infinite.
-    pub fn quantize(values: &[f64], fmt: QFormat) -> Result<(OwnedRaw, usize), String> {
+    /// [`NotFinite`] naming the first value that is NaN or infinite.
+    pub fn quantize(values: &[f64], fmt: QFormat) -> Result<(OwnedRaw, usize), NotFinite> {
         let mut raw = Vec::with_capacity(values.len());
         let mut sat = 0;
         for (i, &v) in values.iter().enumerate() {
             let (r, s) = fmt
                 .from_f64_saturating(v)
-                .map_err(|_| format!("value {i} is {v}, not a finite number"))?;
+                .map_err(|_| NotFinite { index: i, value: v })?;
             sat += s as usize;
             raw.push(r);
         }
@@ -109,18 +184,26 @@ impl QuantParams {
     /// the number of saturated values per layer.
     ///
     /// # Errors
-    /// A message naming the layer and value that is not finite.
+    /// [`SimError::Param`] naming the layer and value that is not finite.
     pub fn quantize(
         desc: &ModelDesc,
         float: &[(Vec<f64>, Vec<f64>)],
-    ) -> Result<(QuantParams, Vec<usize>), String> {
+    ) -> Result<(QuantParams, Vec<usize>), SimError> {
         let mut layers = Vec::new();
         let mut sats = Vec::new();
         for (k, (l, (w, b))) in desc.layers.iter().zip(float).enumerate() {
-            let (qw, sw) = OwnedRaw::quantize(w, l.weight.value)
-                .map_err(|e| format!("layer {k} weights: {e}"))?;
+            let (qw, sw) =
+                OwnedRaw::quantize(w, l.weight.value).map_err(|source| SimError::Param {
+                    layer: k,
+                    tensor: "weights",
+                    source,
+                })?;
             let (qb, sb) =
-                OwnedRaw::quantize(b, l.bias.value).map_err(|e| format!("layer {k} bias: {e}"))?;
+                OwnedRaw::quantize(b, l.bias.value).map_err(|source| SimError::Param {
+                    layer: k,
+                    tensor: "bias",
+                    source,
+                })?;
             layers.push((qw, qb));
             sats.push(sw + sb);
         }
@@ -185,14 +268,19 @@ impl Prepared {
     /// Prepares an already scaled dataset for `desc`.
     ///
     /// # Errors
-    /// A message naming the row of a value that is not finite, or a task that does not match
-    /// the loss.
-    pub fn new(data: &Dataset, desc: &ModelDesc) -> Result<Prepared, String> {
+    /// [`SimError::Row`] naming the row of a value that is not finite, or
+    /// [`SimError::TargetsMismatch`] for a task that does not match the loss.
+    pub fn new(data: &Dataset, desc: &ModelDesc) -> Result<Prepared, SimError> {
         let mut xq = Vec::with_capacity(data.x.len());
         let mut input_saturations = 0;
         for (i, row) in data.x.iter().enumerate() {
-            let (q, s) = OwnedRaw::quantize(row, desc.input_format)
-                .map_err(|e| format!("{}: row {}: {e}", data.source.display(), i + 1))?;
+            let (q, s) =
+                OwnedRaw::quantize(row, desc.input_format).map_err(|source| SimError::Row {
+                    file: data.source.clone(),
+                    row: i + 1,
+                    field: "input",
+                    source,
+                })?;
             input_saturations += s;
             xq.push(q);
         }
@@ -202,8 +290,11 @@ impl Prepared {
                 let format = desc.layers.last().map(|l| l.out).unwrap_or(QFormat::Q0_7);
                 let mut yq = Vec::with_capacity(y.len());
                 for (i, t) in y.iter().enumerate() {
-                    let (q, s) = OwnedRaw::quantize(t, format).map_err(|e| {
-                        format!("{}: row {}: target: {e}", data.source.display(), i + 1)
+                    let (q, s) = OwnedRaw::quantize(t, format).map_err(|source| SimError::Row {
+                        file: data.source.clone(),
+                        row: i + 1,
+                        field: "target",
+                        source,
                     })?;
                     target_saturations += s;
                     yq.push(q);
@@ -218,11 +309,10 @@ impl Prepared {
                 PreparedTargets::Classes(labels.clone())
             }
             _ => {
-                return Err(format!(
-                    "{}: the targets do not match the loss {:?}",
-                    data.source.display(),
-                    desc.loss
-                ))
+                return Err(SimError::TargetsMismatch {
+                    file: data.source.clone(),
+                    loss: desc.loss,
+                })
             }
         };
         Ok(Prepared {
@@ -544,7 +634,7 @@ fn evaluate_both(
     float: &mut Twin<'_, f64>,
     data: &Prepared,
     in_fmt: QFormat,
-) -> Result<PairFigures, String> {
+) -> Result<PairFigures, SimError> {
     if data.is_empty() {
         return Ok(PairFigures {
             fixed_loss: f64::NAN,
@@ -558,13 +648,17 @@ fn evaluate_both(
     let (mut lq, mut lf, mut mq, mut mf, mut aq, mut af) = (0f64, 0f64, 0f64, 0f64, 0f64, 0f64);
     for i in 0..data.len() {
         let (x, t) = data.fixed(i, in_fmt);
-        let oq = fixed
-            .evaluate(x, t)
-            .map_err(|e| format!("sample {}: {e}", i + 1))?;
+        let oq = fixed.evaluate(x, t).map_err(|source| SimError::Sample {
+            what: "sample",
+            sample: i + 1,
+            source,
+        })?;
         let (xf, tf) = data.float(i);
-        let of = float
-            .evaluate(xf, tf)
-            .map_err(|e| format!("sample {}: {e}", i + 1))?;
+        let of = float.evaluate(xf, tf).map_err(|source| SimError::Sample {
+            what: "sample",
+            sample: i + 1,
+            source,
+        })?;
         lf += of.loss;
         match &data.target {
             PreparedTargets::Classes(labels) => {
@@ -619,7 +713,7 @@ fn grad_sqnr(
     float: &mut Twin<'_, f64>,
     data: &Prepared,
     probe: usize,
-) -> Result<Option<f64>, String> {
+) -> Result<Option<f64>, SimError> {
     let n = probe.min(data.len());
     if n == 0 {
         return Ok(None);
@@ -627,12 +721,8 @@ fn grad_sqnr(
     let in_fmt = desc.input_format;
     let (mut sig, mut noise) = (0f64, 0f64);
     for i in 0..n {
-        fixed
-            .probe_gradients(std::iter::once(data.fixed(i, in_fmt)))
-            .map_err(|e| e.to_string())?;
-        float
-            .probe_gradients(std::iter::once(data.float(i)))
-            .map_err(|e| e.to_string())?;
+        fixed.probe_gradients(std::iter::once(data.fixed(i, in_fmt)))?;
+        float.probe_gradients(std::iter::once(data.float(i)))?;
         for (k, l) in desc.layers.iter().enumerate() {
             let (Some(q), Some(f)) = (fixed.accumulators(k), float.accumulators(k)) else {
                 continue;
@@ -677,10 +767,9 @@ pub fn run_side_by_side(
     eval: &Prepared,
     opts: &RunOptions,
     progress: &mut dyn FnMut(Progress),
-) -> Result<DriftRun, String> {
-    let plan = Plan::of(desc).map_err(|e| format!("the model does not plan: {e}"))?;
-    let fplan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8)
-        .map_err(|e| e.to_string())?;
+) -> Result<DriftRun, SimError> {
+    let plan = Plan::of(desc).map_err(SimError::Plan)?;
+    let fplan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8)?;
     let mut arena = vec![0u32; plan.ram_words()];
     let mut farena = vec![0f64; fplan.ram_bytes as usize / 8];
     let views = init_fixed.views();
@@ -688,10 +777,16 @@ pub fn run_side_by_side(
         .iter()
         .map(|(w, b)| FloatParams { weight: w, bias: b })
         .collect();
-    let mut fixed = Trainer::new(desc, &plan, &mut arena, &views)
-        .map_err(|e| format!("fixed-point start: {e}"))?;
+    let mut fixed =
+        Trainer::new(desc, &plan, &mut arena, &views).map_err(|source| SimError::Start {
+            side: "fixed-point",
+            source,
+        })?;
     let mut float =
-        Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|e| format!("float start: {e}"))?;
+        Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|source| SimError::Start {
+            side: "float",
+            source,
+        })?;
     let in_fmt = desc.input_format;
     let total = opts.epochs as u64 * train.len() as u64;
     let mut done = 0u64;
@@ -726,18 +821,22 @@ pub fn run_side_by_side(
         let (mut lq, mut lf) = (0f64, 0f64);
         for &i in &order {
             let (x, t) = train.fixed(i, in_fmt);
-            let oq = fixed
-                .step(x, t)
-                .map_err(|e| format!("training sample {}: {e}", i + 1))?;
+            let oq = fixed.step(x, t).map_err(|source| SimError::Sample {
+                what: "training sample",
+                sample: i + 1,
+                source,
+            })?;
             let (xf, tf) = train.float(i);
             // Regression losses count against the true targets, not their quantized form.
             let fixed_loss = match &train.target {
                 PreparedTargets::Values { y, .. } => squared_error_true(fixed.output(), &y[i]),
                 PreparedTargets::Classes(_) => oq.loss.to_f64(),
             };
-            let of = float
-                .step(xf, tf)
-                .map_err(|e| format!("training sample {}: {e}", i + 1))?;
+            let of = float.step(xf, tf).map_err(|source| SimError::Sample {
+                what: "training sample",
+                sample: i + 1,
+                source,
+            })?;
             lq += fixed_loss;
             lf += of.loss;
             done += 1;
@@ -836,13 +935,19 @@ pub fn run_side_by_side(
     if let PreparedTargets::Values { y, .. } = &eval.target {
         for (i, t) in y.iter().enumerate() {
             let (x, _) = eval.fixed(i, in_fmt);
-            let out = fixed
-                .predict(x)
-                .map_err(|e| format!("evaluation sample {}: {e}", i + 1))?;
+            let out = fixed.predict(x).map_err(|source| SimError::Sample {
+                what: "evaluation sample",
+                sample: i + 1,
+                source,
+            })?;
             let fx = out.fmt.to_f64(out.raw.at(0));
             let fl = float
                 .predict(&eval.x[i])
-                .map_err(|e| format!("evaluation sample {}: {e}", i + 1))?
+                .map_err(|source| SimError::Sample {
+                    what: "evaluation sample",
+                    sample: i + 1,
+                    source,
+                })?
                 .first()
                 .copied()
                 .unwrap_or(f64::NAN);
@@ -875,10 +980,9 @@ pub fn evaluate_pair(
     fixed: &QuantParams,
     float: &[(Vec<f64>, Vec<f64>)],
     data: &Prepared,
-) -> Result<PairFigures, String> {
-    let plan = Plan::of(desc).map_err(|e| format!("the model does not plan: {e}"))?;
-    let fplan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8)
-        .map_err(|e| e.to_string())?;
+) -> Result<PairFigures, SimError> {
+    let plan = Plan::of(desc).map_err(SimError::Plan)?;
+    let fplan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 8)?;
     let mut arena = vec![0u32; plan.ram_words()];
     let mut farena = vec![0f64; fplan.ram_bytes as usize / 8];
     let views = fixed.views();
@@ -886,8 +990,16 @@ pub fn evaluate_pair(
         .iter()
         .map(|(w, b)| FloatParams { weight: w, bias: b })
         .collect();
-    let mut tq = Trainer::new(desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
-    let mut tf = Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|e| e.to_string())?;
+    let mut tq =
+        Trainer::new(desc, &plan, &mut arena, &views).map_err(|source| SimError::Start {
+            side: "fixed-point",
+            source,
+        })?;
+    let mut tf =
+        Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|source| SimError::Start {
+            side: "float",
+            source,
+        })?;
     evaluate_both(&mut tq, &mut tf, data, desc.input_format)
 }
 

@@ -89,6 +89,51 @@ fn word_name(w: Word) -> String {
     w.to_string()
 }
 
+/// Why one grid point could not run (shown in its row; the other points go on).
+#[derive(Debug, thiserror::Error)]
+pub enum PointError {
+    /// The fraction-bit offset leaves a tensor outside 0 to 31 fraction bits.
+    #[error(
+        "fraction-bit offset {delta:+} gives layer {layer} {tensor} {frac} fraction bits, \
+         outside 0 to 31"
+    )]
+    FracOutOfRange {
+        /// The offset.
+        delta: i8,
+        /// Layer index.
+        layer: usize,
+        /// `weights` or `biases`.
+        tensor: &'static str,
+        /// The fraction bits it gives.
+        frac: i32,
+    },
+    /// The learning rate does not fit its format.
+    #[error("learning rate {lr}: {source}")]
+    LearningRate {
+        /// The learning rate.
+        lr: f64,
+        /// The core's error.
+        #[source]
+        source: hone_core::Error,
+    },
+    /// The evaluation loss stopped being a finite number.
+    #[error(
+        "training diverged (evaluation loss fixed {fixed}, float {float}); lower the learning rate"
+    )]
+    Diverged {
+        /// Fixed-point evaluation loss.
+        fixed: f64,
+        /// Float evaluation loss.
+        float: f64,
+    },
+    /// The core rejects the point's description.
+    #[error(transparent)]
+    Engine(#[from] hone_core::Error),
+    /// Quantizing or simulating the point failed.
+    #[error(transparent)]
+    Sim(#[from] crate::sim::SimError),
+}
+
 /// The description and start parameters of one grid point.
 ///
 /// # Errors
@@ -103,13 +148,13 @@ pub fn variant(
     rounding: Option<Rounding>,
     lr: Option<f64>,
     mode: Option<TrainMode>,
-) -> Result<(ModelDesc, QuantParams), String> {
+) -> Result<(ModelDesc, QuantParams), PointError> {
     let mut d = base.clone();
     for (k, l) in d.layers.iter_mut().enumerate() {
         if let Some(a) = activations {
             let int_bits = l.out.int_bits();
             let frac = (a.bits() as i32 - 1 - int_bits).clamp(0, 31) as u8;
-            l.out = QFormat::new(a, frac).map_err(|e| e.to_string())?;
+            l.out = QFormat::new(a, frac)?;
         }
         if !l.kind.has_params() {
             continue;
@@ -131,16 +176,17 @@ pub fn variant(
             // Out of range is an error of this point, not a silent clamp that would keep the
             // offset's label on a format it does not describe.
             if !(0..=31).contains(&frac) {
-                return Err(format!(
-                    "fraction-bit offset {frac_delta:+} gives layer {k} {} {frac} fraction bits, \
-                     outside 0 to 31",
-                    if is_weight { "weights" } else { "biases" }
-                ));
+                return Err(PointError::FracOutOfRange {
+                    delta: frac_delta,
+                    layer: k,
+                    tensor: if is_weight { "weights" } else { "biases" },
+                    frac,
+                });
             }
-            p.value = QFormat::new(word, frac as u8).map_err(|e| e.to_string())?;
+            p.value = QFormat::new(word, frac as u8)?;
             if let Some(m) = p.master {
                 if m.frac < p.value.frac {
-                    p.master = Some(QFormat::new(m.word, p.value.frac).map_err(|e| e.to_string())?);
+                    p.master = Some(QFormat::new(m.word, p.value.frac)?);
                 }
             }
         }
@@ -156,9 +202,9 @@ pub fn variant(
     }
     if let Some(lr) = lr {
         d.train.lr = QScalar::from_f64(lr, d.train.lr.frac)
-            .map_err(|e| format!("learning rate {lr}: {e}"))?;
+            .map_err(|source| PointError::LearningRate { lr, source })?;
     }
-    d.check().map_err(|e| e.to_string())?;
+    d.check()?;
     let (params, _) = QuantParams::quantize(&d, float)?;
     Ok((d, params))
 }
@@ -252,7 +298,7 @@ pub fn run(
                         saturations: 0,
                         lost_updates: 0,
                         pareto: false,
-                        error: Some(e),
+                        error: Some(e.to_string()),
                     });
                 let result = PointResult { settings, ..result };
                 if let Ok(mut r) = results.lock() {
@@ -288,18 +334,18 @@ fn point(
     train: &Prepared,
     eval: &Prepared,
     opts: &RunOptions,
-) -> Result<PointResult, String> {
+) -> Result<PointResult, PointError> {
     let (d, q) = variant(base, float, c.0, c.1, c.2, c.3, c.4, c.5)?;
-    let plan = Plan::of(&d).map_err(|e| e.to_string())?;
+    let plan = Plan::of(&d)?;
     // Inputs are quantized in the base input format, which the sweep does not change.
     let run = run_side_by_side(&d, &q, float, train, eval, opts, &mut |_| {})?;
     let last = run.epochs.last().copied().unwrap_or_default();
     let drift = crate::drift::gap_pct(last.fixed_eval_loss, last.float_eval_loss);
     if !drift.is_finite() {
-        return Err(format!(
-            "training diverged (evaluation loss fixed {}, float {}); lower the learning rate",
-            last.fixed_eval_loss, last.float_eval_loss
-        ));
+        return Err(PointError::Diverged {
+            fixed: last.fixed_eval_loss,
+            float: last.float_eval_loss,
+        });
     }
     Ok(PointResult {
         settings: PointSettings {

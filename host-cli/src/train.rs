@@ -5,6 +5,8 @@
 //! modes say what the *device* may change later, during calibration. The saved model keeps
 //! the configured modes.
 
+use std::path::PathBuf;
+
 use hone_core::float::{FloatParams, FloatTarget, Twin};
 use hone_core::model::{LayerDesc, ModelDesc, TrainMode};
 use hone_core::num::Rng;
@@ -15,12 +17,51 @@ use crate::data::{ConstantChannel, Dataset, Scaling, Targets};
 use crate::model::{EpochRecord, FloatLayer, FloatModel, FORMAT_NAME, FORMAT_VERSION};
 use crate::sim::epoch_order;
 
+/// Why the float model could not be trained.
+#[derive(Debug, thiserror::Error)]
+pub enum TrainError {
+    /// The data do not suit the config.
+    #[error(transparent)]
+    Data(#[from] crate::data::DataError),
+    /// The config does not give a description.
+    #[error(transparent)]
+    Config(#[from] crate::config::ConfigError),
+    /// The core rejects the description.
+    #[error(transparent)]
+    Engine(#[from] hone_core::Error),
+    /// A training row failed.
+    #[error("{}: row {row}: {source}", file.display())]
+    Row {
+        /// The data file.
+        file: PathBuf,
+        /// Data row, from 1.
+        row: usize,
+        /// The core's error.
+        #[source]
+        source: hone_core::Error,
+    },
+    /// A loss or weight stopped being a finite number.
+    #[error(
+        "{}: training diverged (a loss or weight is no longer a finite number); lower \
+         train.learning-rate (now {learning_rate}) or add train.clip",
+        config.display()
+    )]
+    Diverged {
+        /// The config file.
+        config: PathBuf,
+        /// The learning rate, as written in the message.
+        learning_rate: String,
+    },
+}
+
 /// Initial weights: uniform in ±√(6 / (fan_in + fan_out)) (Glorot and Bengio, "Understanding
 /// the difficulty of training deep feedforward neural networks", AISTATS 2010, eq. 16), biases
 /// zero. Seeded, so a config and a seed give one start.
-pub fn glorot_init(desc: &ModelDesc, seed: u64) -> Result<crate::sim::FloatLayers, String> {
-    let shapes =
-        hone_core::model::shapes(desc.input, &desc.layers, desc.loss).map_err(|e| e.to_string())?;
+pub fn glorot_init(
+    desc: &ModelDesc,
+    seed: u64,
+) -> Result<crate::sim::FloatLayers, hone_core::Error> {
+    let shapes = hone_core::model::shapes(desc.input, &desc.layers, desc.loss)?;
     let mut rng = Rng::new(seed ^ 0x9E37_79B9);
     Ok((0..desc.layers.len())
         .map(|k| {
@@ -68,14 +109,17 @@ pub fn provisional_frac(a: crate::config::AutoFormat) -> u8 {
 /// # Errors
 /// A message naming the file and, for statistics the device's `f32` scaling cannot hold, the
 /// column.
-pub fn fit_scaling(cfg: &Config, fit_on: &Dataset) -> Result<Scaling, String> {
+pub fn fit_scaling(cfg: &Config, fit_on: &Dataset) -> Result<Scaling, TrainError> {
     if !cfg.data().standardize {
         return Ok(Scaling {
             scales: Vec::new(),
             constant: Vec::new(),
         });
     }
-    Scaling::fit_per_channel(fit_on, cfg.input().channels as usize).map_err(|e| e.to_string())
+    Ok(Scaling::fit_per_channel(
+        fit_on,
+        cfg.input().channels as usize,
+    )?)
 }
 
 /// A float model fresh from [`train_float`], with what its training saw.
@@ -94,22 +138,21 @@ pub struct Trained {
 
 /// Mean loss, metric (accuracy in % or mean absolute error) and, for regression, the RMSE of
 /// the twin on `data`.
-fn score(twin: &mut Twin<'_, f64>, data: &Dataset) -> Result<(f64, f64, Option<f64>), String> {
+fn score(
+    twin: &mut Twin<'_, f64>,
+    data: &Dataset,
+) -> Result<(f64, f64, Option<f64>), hone_core::Error> {
     let (mut loss, mut metric, mut count, mut sq) = (0f64, 0f64, 0usize, 0f64);
     for (i, x) in data.x.iter().enumerate() {
         match &data.target {
             Targets::Classes { labels, .. } => {
-                let o = twin
-                    .evaluate(x, FloatTarget::Class(labels[i]))
-                    .map_err(|e| e.to_string())?;
+                let o = twin.evaluate(x, FloatTarget::Class(labels[i]))?;
                 loss += o.loss;
                 metric += (o.predicted == Some(labels[i])) as u8 as f64;
                 count += 1;
             }
             Targets::Values { y, .. } => {
-                let o = twin
-                    .evaluate(x, FloatTarget::Values(&y[i]))
-                    .map_err(|e| e.to_string())?;
+                let o = twin.evaluate(x, FloatTarget::Values(&y[i]))?;
                 loss += o.loss;
                 for (p, t) in twin.output().iter().zip(y[i].iter()) {
                     metric += (p - t).abs();
@@ -170,16 +213,14 @@ pub fn train_float(
     cfg: &Config,
     data: &Dataset,
     progress: &mut dyn FnMut(u32, u32, f64),
-) -> Result<Trained, String> {
-    cfg.check_dataset(data).map_err(|e| e.to_string())?;
-    let desc = cfg
-        .model_desc_with(provisional_frac)
-        .map_err(|e| e.to_string())?;
+) -> Result<Trained, TrainError> {
+    cfg.check_dataset(data)?;
+    let desc = cfg.model_desc_with(provisional_frac)?;
     let train_desc = all_trainable(&desc);
     let seed = cfg.train().seed;
     // Rows held out of training (data.holdout) are scored after every epoch.
     let (fit_rows, held) = if cfg.data().holdout > 0.0 {
-        crate::data::split(data, cfg.data().holdout, seed).map_err(|e| e.to_string())?
+        crate::data::split(data, cfg.data().holdout, seed)?
     } else {
         (
             data.clone(),
@@ -195,9 +236,9 @@ pub fn train_float(
         constant,
     } = fit_scaling(cfg, &fit_rows)?;
     let mut scaled = fit_rows;
-    crate::data::apply(&scaling, &mut scaled).map_err(|e| e.to_string())?;
+    crate::data::apply(&scaling, &mut scaled)?;
     let mut held = held;
-    crate::data::apply(&scaling, &mut held).map_err(|e| e.to_string())?;
+    crate::data::apply(&scaling, &mut held)?;
     let params = glorot_init(&train_desc, seed)?;
     let plan = Plan::new_float(
         train_desc.input,
@@ -205,22 +246,18 @@ pub fn train_float(
         train_desc.loss,
         &train_desc.train,
         8,
-    )
-    .map_err(|e| e.to_string())?;
+    )?;
     let mut arena = vec![0f64; plan.ram_bytes as usize / 8];
     let views: Vec<FloatParams<'_, f64>> = params
         .iter()
         .map(|(w, b)| FloatParams { weight: w, bias: b })
         .collect();
-    let mut twin = Twin::new(&train_desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
+    let mut twin = Twin::new(&train_desc, &plan, &mut arena, &views)?;
     let n = scaled.len();
     let mut history = Vec::new();
-    let diverged = || {
-        format!(
-            "{}: training diverged (a loss or weight is no longer a finite number); lower train.learning-rate (now {}) or add train.clip",
-            cfg.source().display(),
-            crate::report::short_decimal(cfg.train().lr.to_f64())
-        )
+    let diverged = || TrainError::Diverged {
+        config: cfg.source().to_path_buf(),
+        learning_rate: crate::report::short_decimal(cfg.train().lr.to_f64()),
     };
     for epoch in 1..=cfg.epochs() {
         let mut loss = 0f64;
@@ -230,7 +267,11 @@ pub fn train_float(
                 Targets::Values { y, .. } => twin.step(x, FloatTarget::Values(&y[i])),
                 Targets::Classes { labels, .. } => twin.step(x, FloatTarget::Class(labels[i])),
             }
-            .map_err(|e| format!("{}: row {}: {e}", data.source.display(), i + 1))?;
+            .map_err(|source| TrainError::Row {
+                file: data.source.clone(),
+                row: i + 1,
+                source,
+            })?;
             loss += out.loss;
         }
         twin.flush();

@@ -463,7 +463,7 @@ fn drift_cost_not_computed_is_said_with_its_reason() {
             .zip(&desc.layers)
             .any(|(a, b)| a.kind != b.kind)
         {
-            return Err("the shape changed".to_owned());
+            return Err("the shape changed".into());
         }
         Ok(DriftCost {
             what: "gap".to_owned(),

@@ -116,12 +116,31 @@ pub enum DeviceError {
     },
     /// A board's calibration session could not be generated or simulated, or its committed
     /// files are out of date.
-    #[error("calibration session of {board}: {detail}")]
+    #[error("calibration session of {board}: {source}")]
     Session {
         /// Board.
         board: &'static str,
         /// What went wrong.
-        detail: String,
+        #[source]
+        source: Box<super::session::SessionError>,
+    },
+    /// The host's run of the lean build's session failed.
+    #[error("calibration session of {board}: host run of the lean session: {source}")]
+    LeanHost {
+        /// Board.
+        board: &'static str,
+        /// The core's error.
+        #[source]
+        source: hone_core::Error,
+    },
+    /// The boards' cargo manifest is not valid TOML.
+    #[error("{}: {source}", path.display())]
+    Manifest {
+        /// The manifest.
+        path: PathBuf,
+        /// The TOML parser's error.
+        #[source]
+        source: toml::de::Error,
     },
     /// The device's result differs from the host's.
     #[error("the {board} firmware did not end where the host did:\n{detail}")]

@@ -91,7 +91,7 @@ impl LeanCheck {
 /// compares it with the host.
 ///
 /// # Errors
-/// Those of [`build_bin`] and [`run_qemu`]; [`DeviceError::Session`] when the host's run of
+/// Those of [`build_bin`] and [`run_qemu`]; [`DeviceError::LeanHost`] when the host's run of
 /// the session fails; [`DeviceError::Io`] or [`DeviceError::Elf`] for an unreadable image.
 pub fn verify_lean(boards_dir: &Path, timeout: Duration) -> Result<LeanCheck, DeviceError> {
     let elf = build_bin(&boards_dir.join("lean"), "hone-lean")?;
@@ -108,9 +108,9 @@ pub fn verify_lean(boards_dir: &Path, timeout: Duration) -> Result<LeanCheck, De
         }
         host.push('\n');
     })
-    .map_err(|e| DeviceError::Session {
+    .map_err(|source| DeviceError::LeanHost {
         board: LEAN_BOARD,
-        detail: format!("host run of the lean session: {e}"),
+        source,
     })?;
     host.push_str(&format!("lean loss {} {}\n", summary.before, summary.after));
 

@@ -113,6 +113,79 @@ pub fn committed_dir(boards_dir: &Path, board: &str) -> PathBuf {
 /// The file names of a session, in the order they are written.
 pub const FILES: [&str; 2] = ["model.rs", "samples.rs"];
 
+/// Why a board's session could not be built, written, checked or simulated.
+#[derive(Debug, thiserror::Error)]
+pub enum SessionError {
+    /// The board has no calibration session.
+    #[error("no calibration session for board `{board}`; boards with one: {known}")]
+    UnknownBoard {
+        /// The board asked for.
+        board: String,
+        /// The boards with a session.
+        known: String,
+    },
+    /// The session's chip is missing from the built-in table.
+    #[error("chip `{0}` is not in the built-in table")]
+    UnknownChip(&'static str),
+    /// The model does not fit the chip by the memory plan.
+    #[error("the model of {config} does not fit {chip}: {verdict}")]
+    DoesNotFit {
+        /// The session's config.
+        config: String,
+        /// The chip's name.
+        chip: String,
+        /// The plan's verdict.
+        verdict: String,
+    },
+    /// A session file could not be read or written.
+    #[error("{}: {source}", path.display())]
+    Io {
+        /// The file or folder.
+        path: PathBuf,
+        /// Operating-system error.
+        #[source]
+        source: std::io::Error,
+    },
+    /// A committed session file differs from what the generator writes now.
+    #[error(
+        "{} is not what the generator writes now (first difference at line {line}); \
+         regenerate the board's session files with \
+         `cargo run -p hone -- device session --board <board>` (see \
+         boards/README.md, \"Session files\")",
+        path.display()
+    )]
+    Stale {
+        /// The file.
+        path: PathBuf,
+        /// First differing line, from 1.
+        line: usize,
+    },
+    /// More samples than a session's count holds.
+    #[error("{0} samples: a session holds at most 65535")]
+    TooManySamples(usize),
+    /// The float twin's training failed.
+    #[error("twin: {0}")]
+    Twin(#[source] hone_core::Error),
+    /// The session's config does not load.
+    #[error(transparent)]
+    Config(#[from] crate::config::ConfigError),
+    /// Training, quantizing or preparing samples failed.
+    #[error(transparent)]
+    Pipeline(#[from] crate::pipeline::PipelineError),
+    /// The model could not be exported.
+    #[error(transparent)]
+    Export(#[from] crate::export::ExportError),
+    /// The memory plan failed.
+    #[error(transparent)]
+    Plan(#[from] crate::memplan::MemplanError),
+    /// The throughput phase could not be set up or simulated.
+    #[error(transparent)]
+    Throughput(#[from] super::throughput::ThroughputError),
+    /// The core refused a step.
+    #[error(transparent)]
+    Engine(#[from] hone_core::Error),
+}
+
 /// A board's calibration session, in memory.
 #[derive(Clone, Debug)]
 pub struct Session {
@@ -159,19 +232,16 @@ impl Session {
     /// renders both files.
     ///
     /// # Errors
-    /// A message for an unknown board, unreadable config or data, or a model that does not
+    /// [`SessionError`] for an unknown board, unreadable config or data, or a model that does not
     /// fit the chip by the memory plan (with the measured engine overhead where the table has
     /// one for the chip's core).
-    pub fn build(repo: &Path, board: &str) -> Result<Session, String> {
-        let spec = *board_session(board).ok_or_else(|| {
-            format!(
-                "no calibration session for board `{board}`; boards with one: {}",
-                BOARD_SESSIONS.map(|b| b.board).join(", ")
-            )
+    pub fn build(repo: &Path, board: &str) -> Result<Session, SessionError> {
+        let spec = *board_session(board).ok_or_else(|| SessionError::UnknownBoard {
+            board: board.to_owned(),
+            known: BOARD_SESSIONS.map(|b| b.board).join(", "),
         })?;
-        let chip = chips::find(spec.chip)
-            .ok_or_else(|| format!("chip `{}` is not in the built-in table", spec.chip))?;
-        let config = Config::load(&repo.join(spec.config)).map_err(|e| e.to_string())?;
+        let chip = chips::find(spec.chip).ok_or(SessionError::UnknownChip(spec.chip))?;
+        let config = Config::load(&repo.join(spec.config))?;
         let base = Base::train(config, &repo.join(FACTORY_CSV), &mut |_, _, _| {})?;
         let desc = base.quant.desc.clone();
         let params = base.quant.params.clone();
@@ -192,13 +262,13 @@ impl Session {
             overhead.as_ref(),
             &AdviceOptions::default(),
             None,
-        )
-        .map_err(|e| e.to_string())?;
+        )?;
         if !plan_report.fits {
-            return Err(format!(
-                "the model of {} does not fit {}: {}",
-                spec.config, chip.name, plan_report.verdict
-            ));
+            return Err(SessionError::DoesNotFit {
+                config: spec.config.to_owned(),
+                chip: chip.name.to_owned(),
+                verdict: plan_report.verdict.to_string(),
+            });
         }
 
         let float_params = params
@@ -253,8 +323,8 @@ impl Session {
     ///
     /// # Errors
     /// A message if the model does not plan.
-    pub fn factory_weights(&self) -> Result<Vec<u8>, String> {
-        let plan = Plan::of(&self.desc).map_err(|e| e.to_string())?;
+    pub fn factory_weights(&self) -> Result<Vec<u8>, SessionError> {
+        let plan = Plan::of(&self.desc)?;
         let mut out = Vec::new();
         for span in payload_layout(&self.desc, &plan, false) {
             let (w, b) = &self.params.layers[span.layer];
@@ -284,16 +354,23 @@ impl Session {
     ///
     /// # Errors
     /// A message naming the file that could not be written.
-    pub fn write(&self, dir: &Path) -> Result<Vec<PathBuf>, String> {
-        std::fs::create_dir_all(dir).map_err(|e| format!("{}: {e}", dir.display()))?;
+    pub fn write(&self, dir: &Path) -> Result<Vec<PathBuf>, SessionError> {
+        std::fs::create_dir_all(dir).map_err(|source| SessionError::Io {
+            path: dir.to_path_buf(),
+            source,
+        })?;
         let mut written = Vec::new();
         for (name, text) in self.files() {
             let path = dir.join(name);
             if std::fs::read(&path).ok().as_deref() == Some(text.as_bytes()) {
                 continue;
             }
-            crate::fsutil::write_atomic(&path, text.as_bytes())
-                .map_err(|e| format!("{}: {e}", path.display()))?;
+            crate::fsutil::write_atomic(&path, text.as_bytes()).map_err(|source| {
+                SessionError::Io {
+                    path: path.to_path_buf(),
+                    source,
+                }
+            })?;
             written.push(path);
         }
         Ok(written)
@@ -304,11 +381,13 @@ impl Session {
     /// # Errors
     /// A message naming the first file that is missing or differs, and the command that
     /// regenerates it.
-    pub fn check_current(&self, dir: &Path) -> Result<(), String> {
+    pub fn check_current(&self, dir: &Path) -> Result<(), SessionError> {
         for (name, text) in self.files() {
             let path = dir.join(name);
-            let on_disk =
-                std::fs::read_to_string(&path).map_err(|e| format!("{}: {e}", path.display()))?;
+            let on_disk = std::fs::read_to_string(&path).map_err(|source| SessionError::Io {
+                path: path.to_path_buf(),
+                source,
+            })?;
             if on_disk != text {
                 let line = on_disk
                     .lines()
@@ -318,13 +397,7 @@ impl Session {
                         || on_disk.lines().count().min(text.lines().count()) + 1,
                         |i| i + 1,
                     );
-                return Err(format!(
-                    "{} is not what the generator writes now (first difference at line {line}); \
-                     regenerate the board's session files with \
-                     `cargo run -p hone -- device session --board <board>` (see \
-                     boards/README.md, \"Session files\")",
-                    path.display()
-                ));
+                return Err(SessionError::Stale { path, line });
             }
         }
         Ok(())
@@ -336,7 +409,7 @@ impl Session {
 ///
 /// # Errors
 /// As [`Session::build`] and [`Session::write`].
-pub fn generate(dir: &Path, board: &str) -> Result<Vec<PathBuf>, String> {
+pub fn generate(dir: &Path, board: &str) -> Result<Vec<PathBuf>, SessionError> {
     Session::build(&default_repo_dir(), board)?.write(dir)
 }
 
@@ -365,12 +438,12 @@ fn checkpoint_capacity(
     desc: &ModelDesc,
     params: &QuantParams,
     scaling: &[ChannelScale],
-) -> Result<usize, String> {
-    let plan = Plan::of(desc).map_err(|e| e.to_string())?;
+) -> Result<usize, SessionError> {
+    let plan = Plan::of(desc)?;
     let mut arena = vec![0u32; plan.ram_words()];
     let views = params.views();
-    let t = Trainer::new(desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
-    let body = t.checkpoint_body(scaling).map_err(|e| e.to_string())?;
+    let t = Trainer::new(desc, &plan, &mut arena, &views)?;
+    let body = t.checkpoint_body(scaling)?;
     let worst = BlobBody {
         state: Some(TrainState {
             steps: u32::MAX,
@@ -381,7 +454,7 @@ fn checkpoint_capacity(
         }),
         ..body
     };
-    blob::encoded_len(&worst).map_err(|e| e.to_string())
+    Ok(blob::encoded_len(&worst)?)
 }
 
 fn word_type(w: Word) -> &'static str {
@@ -639,22 +712,20 @@ pub struct HostOutcome {
 ///
 /// # Errors
 /// A message for any error of the core.
-pub fn simulate(s: &Session) -> Result<HostOutcome, String> {
+pub fn simulate(s: &Session) -> Result<HostOutcome, SessionError> {
     let desc = &s.desc;
-    let plan = Plan::of(desc).map_err(|e| e.to_string())?;
+    let plan = Plan::of(desc)?;
     let calibration = guarded(s, &plan, &s.calibration)?;
     let faulty = guarded(s, &plan, &s.faulty)?;
 
-    let float_plan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 4)
-        .map_err(|e| e.to_string())?;
+    let float_plan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 4)?;
     let mut arena = vec![0f32; float_plan.ram_words()];
     let views: Vec<FloatParams<'_, f32>> = s
         .float_params
         .iter()
         .map(|(w, b)| FloatParams { weight: w, bias: b })
         .collect();
-    let mut twin =
-        Twin::new(desc, &float_plan, &mut arena, &views).map_err(|e| format!("twin: {e}"))?;
+    let mut twin = Twin::new(desc, &float_plan, &mut arena, &views).map_err(SessionError::Twin)?;
     let float_y: FloatTargets<'_, f32> = match &s.calibration.target {
         PreparedTargets::Values { .. } => FloatTargets::Values(&s.float_y),
         PreparedTargets::Classes(l) => FloatTargets::Classes(l),
@@ -664,8 +735,7 @@ pub fn simulate(s: &Session) -> Result<HostOutcome, String> {
         x: &s.float_x,
         y: float_y,
     };
-    core_session::train_twin(&mut twin, &float_plan, &set, PASSES)
-        .map_err(|e| format!("twin: {e}"))?;
+    core_session::train_twin(&mut twin, &float_plan, &set, PASSES).map_err(SessionError::Twin)?;
     let float_weights = float_payload(desc, &float_plan, &twin);
     let throughput = match &s.throughput.spec {
         Some(spec) => Some(throughput::simulate(spec)?),
@@ -681,11 +751,11 @@ pub fn simulate(s: &Session) -> Result<HostOutcome, String> {
     })
 }
 
-fn guarded(s: &Session, plan: &Plan, set: &Prepared) -> Result<GuardedOutcome, String> {
+fn guarded(s: &Session, plan: &Plan, set: &Prepared) -> Result<GuardedOutcome, SessionError> {
     let desc = &s.desc;
     let mut arena = vec![0u32; plan.ram_words()];
     let views = s.params.views();
-    let mut t = Trainer::new(desc, plan, &mut arena, &views).map_err(|e| e.to_string())?;
+    let mut t = Trainer::new(desc, plan, &mut arena, &views)?;
     let (train, holdout) = (FlatSet::of(set), FlatSet::of(&s.holdout));
     // The firmware's session: the same core procedure, going back to the factory parameters.
     let report = core_session::calibrate_set(
@@ -696,11 +766,10 @@ fn guarded(s: &Session, plan: &Plan, set: &Prepared) -> Result<GuardedOutcome, S
         &GUARD,
         LastGood::Params(&views),
         &mut (),
-    )
-    .map_err(|e| e.to_string())?;
+    )?;
     let weights = weights_payload(&t);
     let mut checkpoint = vec![0u8; s.checkpoint_capacity];
-    let n = core_session::checkpoint(&t, &s.scaling, &mut checkpoint).map_err(|e| e.to_string())?;
+    let n = core_session::checkpoint(&t, &s.scaling, &mut checkpoint)?;
     checkpoint.truncate(n);
     Ok(GuardedOutcome {
         report,
@@ -742,10 +811,10 @@ impl FlatSet {
     }
 
     /// The core's view of the samples.
-    pub(crate) fn view(&self) -> Result<SampleSet<'_>, String> {
+    pub(crate) fn view(&self) -> Result<SampleSet<'_>, SessionError> {
         Ok(SampleSet {
             count: u16::try_from(self.count)
-                .map_err(|_| format!("{} samples: a session holds at most 65535", self.count))?,
+                .map_err(|_| SessionError::TooManySamples(self.count))?,
             x: self.x.raw(),
             y: match &self.y {
                 FlatTargets::Values(y, fmt) => Targets::Values(Tensor {
@@ -758,9 +827,8 @@ impl FlatSet {
     }
 }
 
-fn set_count(p: &Prepared) -> Result<u16, String> {
-    u16::try_from(p.len())
-        .map_err(|_| format!("{} samples: a session holds at most 65535", p.len()))
+fn set_count(p: &Prepared) -> Result<u16, SessionError> {
+    u16::try_from(p.len()).map_err(|_| SessionError::TooManySamples(p.len()))
 }
 
 /// `values` in storage words of `word` (each already in range: they came from that word).

@@ -127,6 +127,20 @@ pub struct PhaseRam {
     pub float: u64,
 }
 
+/// Why the throughput phase could not be set up or simulated.
+#[derive(Debug, thiserror::Error)]
+pub enum ThroughputError {
+    /// The core does not describe or plan the model.
+    #[error(transparent)]
+    Engine(#[from] hone_core::Error),
+    /// Training in fixed point failed.
+    #[error("throughput: {0}")]
+    Train(#[source] hone_core::Error),
+    /// Training the float twin failed.
+    #[error("throughput twin: {0}")]
+    Twin(#[source] hone_core::Error),
+}
+
 /// The throughput phase of one board.
 #[derive(Clone, Debug)]
 pub struct ThroughputSpec {
@@ -158,12 +172,12 @@ impl ThroughputSpec {
     /// The spec of the model `dims` with the constants of this module.
     ///
     /// # Errors
-    /// A message if the core does not plan the model.
+    /// The core's error if it does not plan the model.
     pub fn new(
         dims: (u16, u16, u16),
         o: &MeasuredOverhead,
         ram_bytes: u64,
-    ) -> Result<Self, String> {
+    ) -> Result<Self, ThroughputError> {
         let (inputs, hidden, outputs) = dims;
         let desc = ModelDesc::new(
             Shape::vector(inputs),
@@ -171,11 +185,9 @@ impl ThroughputSpec {
             &layers(hidden, outputs),
             Loss::SquaredError,
             TRAIN,
-        )
-        .map_err(|e| e.to_string())?;
-        let plan = Plan::of(&desc).map_err(|e| e.to_string())?;
-        let float_plan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 4)
-            .map_err(|e| e.to_string())?;
+        )?;
+        let plan = Plan::of(&desc)?;
+        let float_plan = Plan::new_float(desc.input, &desc.layers, desc.loss, &desc.train, 4)?;
         let values = drawn_count(&plan, POOL) as u64;
         let firmware = u64::from(o.firmware_static_bytes) + u64::from(o.firmware_stack_bytes);
         let predicted = PhaseRam {
@@ -250,7 +262,7 @@ pub struct Choice {
 ///
 /// # Errors
 /// A message if the core does not plan a candidate.
-pub fn choose(chip: &Chip, overhead: Option<&MeasuredOverhead>) -> Result<Choice, String> {
+pub fn choose(chip: &Chip, overhead: Option<&MeasuredOverhead>) -> Result<Choice, ThroughputError> {
     let Some(o) = overhead else {
         return Ok(Choice {
             spec: None,
@@ -361,7 +373,7 @@ pub struct ThroughputOutcome {
 ///
 /// # Errors
 /// A message for any error of the core.
-pub fn simulate(spec: &ThroughputSpec) -> Result<ThroughputOutcome, String> {
+pub fn simulate(spec: &ThroughputSpec) -> Result<ThroughputOutcome, ThroughputError> {
     let desc = &spec.desc;
     let values = drawn_values(spec);
     let n_params = spec.param_values();
@@ -388,7 +400,7 @@ pub fn simulate(spec: &ThroughputSpec) -> Result<ThroughputOutcome, String> {
         });
     }
     let mut arena = vec![0u32; spec.plan.ram_words()];
-    let mut t = Trainer::new(desc, &spec.plan, &mut arena, &views).map_err(|e| e.to_string())?;
+    let mut t = Trainer::new(desc, &spec.plan, &mut arena, &views)?;
     let set = SampleSet {
         count: spec.pool,
         x: Raw::I16(xs),
@@ -397,9 +409,8 @@ pub fn simulate(spec: &ThroughputSpec) -> Result<ThroughputOutcome, String> {
             fmt: spec.target_format,
         }),
     };
-    let trained = u64::from(
-        core_session::train(&mut t, &set, spec.passes).map_err(|e| format!("throughput: {e}"))?,
-    );
+    let trained =
+        u64::from(core_session::train(&mut t, &set, spec.passes).map_err(ThroughputError::Train)?);
     let weights = weights_payload(&t);
 
     let reals: Vec<f32> = values.iter().map(|&(v, fmt)| fmt.to_f32(v)).collect();
@@ -419,15 +430,15 @@ pub fn simulate(spec: &ThroughputSpec) -> Result<ThroughputOutcome, String> {
         });
     }
     let mut arena = vec![0f32; spec.float_plan.ram_words()];
-    let mut twin = Twin::new(desc, &spec.float_plan, &mut arena, &views)
-        .map_err(|e| format!("throughput twin: {e}"))?;
+    let mut twin =
+        Twin::new(desc, &spec.float_plan, &mut arena, &views).map_err(ThroughputError::Twin)?;
     let set = FloatSet {
         count: spec.pool,
         x: xs,
         y: FloatTargets::Values(ys),
     };
     core_session::train_twin(&mut twin, &spec.float_plan, &set, spec.passes)
-        .map_err(|e| format!("throughput twin: {e}"))?;
+        .map_err(ThroughputError::Twin)?;
     let float_weights = float_payload(desc, &spec.float_plan, &twin);
     Ok(ThroughputOutcome {
         weights,

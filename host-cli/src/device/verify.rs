@@ -373,7 +373,7 @@ pub struct VerifySummary {
 /// default for release).
 ///
 /// # Errors
-/// [`DeviceError::Io`] when the file cannot be read, [`DeviceError::Session`] when it is not
+/// [`DeviceError::Io`] when the file cannot be read, [`DeviceError::Manifest`] when it is not
 /// valid TOML.
 pub fn release_opt_level(boards_dir: &Path) -> Result<String, DeviceError> {
     let path = boards_dir.join("Cargo.toml");
@@ -381,9 +381,9 @@ pub fn release_opt_level(boards_dir: &Path) -> Result<String, DeviceError> {
         path: path.clone(),
         source,
     })?;
-    let doc: toml::Table = text.parse().map_err(|e| DeviceError::Session {
-        board: "boards",
-        detail: format!("{}: {e}", path.display()),
+    let doc: toml::Table = text.parse().map_err(|source| DeviceError::Manifest {
+        path: path.clone(),
+        source,
     })?;
     let level = doc
         .get("profile")
@@ -438,9 +438,9 @@ fn protocol(line: usize, detail: impl Into<String>) -> DeviceError {
 /// [`DeviceError::Protocol`] for missing records or payloads. Differences between device and
 /// host are not errors here: see [`SessionCheck::ensure_bit_exact`].
 pub fn verify_board(board: QemuBoard, opts: &VerifyOptions) -> Result<SessionCheck, DeviceError> {
-    let session_err = |detail: String| DeviceError::Session {
+    let session_err = |source| DeviceError::Session {
         board: board.name(),
-        detail,
+        source: Box::new(source),
     };
     let session = Session::build(&opts.repo_dir, board.name()).map_err(session_err)?;
     let dir = match &opts.session_dir {

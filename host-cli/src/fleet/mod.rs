@@ -119,17 +119,44 @@ pub enum FleetError {
         /// The data file.
         data: PathBuf,
     },
-    /// The data or model could not be read or used.
-    #[error("{0}")]
-    Input(String),
+    /// The data could not be read or do not suit the model.
+    #[error(transparent)]
+    Data(#[from] crate::data::DataError),
+    /// The model could not be exported as the units' fallback blob.
+    #[error(transparent)]
+    Export(#[from] crate::export::ExportError),
+    /// The worker threads could not start.
+    #[error("cannot start worker threads: {0}")]
+    Threads(#[source] rayon::ThreadPoolBuildError),
     /// One unit's simulation failed.
-    #[error("unit {unit}: {message}")]
+    #[error("unit {unit}: {source}")]
     Unit {
         /// The unit's index, from 0.
         unit: usize,
         /// What failed.
-        message: String,
+        #[source]
+        source: UnitError,
     },
+}
+
+/// Why one unit's simulation failed.
+#[derive(Debug, thiserror::Error)]
+pub enum UnitError {
+    /// The unit's samples do not suit the model.
+    #[error(transparent)]
+    Data(#[from] crate::data::DataError),
+    /// Preparing samples or the calibration run failed.
+    #[error(transparent)]
+    Sim(#[from] crate::sim::SimError),
+    /// The core refused a step.
+    #[error(transparent)]
+    Engine(#[from] hone_core::Error),
+    /// The calibration recorded no epoch.
+    #[error("the calibration recorded no epoch")]
+    NoEpoch,
+    /// The guarded session failed.
+    #[error("guarded session: {0}")]
+    Guarded(#[source] hone_core::Error),
 }
 
 impl FleetOptions {
@@ -278,17 +305,13 @@ struct UnitResult {
 /// the columns as read).
 ///
 /// # Errors
-/// [`FleetError::Input`] for a file that does not load or fit the model,
+/// [`FleetError::Data`] for a file that does not load or fit the model,
 /// [`FleetError::EmptyPool`] for a file without rows.
 pub fn load_pool(base: &Base, csv: &std::path::Path) -> Result<Dataset, FleetError> {
     let classes =
         (base.config.data().spec.task == Task::Classification).then_some(&base.float.outputs[..]);
-    let data = base
-        .config
-        .load_data(csv, classes)
-        .map_err(|e| FleetError::Input(e.to_string()))?;
-    data.check_features(&base.float.features)
-        .map_err(|e| FleetError::Input(e.to_string()))?;
+    let data = base.config.load_data(csv, classes)?;
+    data.check_features(&base.float.features)?;
     if data.is_empty() {
         return Err(FleetError::EmptyPool {
             data: csv.to_path_buf(),
@@ -344,8 +367,7 @@ pub fn run(
         .map(|n| fleet.features.iter().find(|f| &f.name == n))
         .collect();
     let q = &base.quant;
-    let blob = crate::export::model_blob(&q.desc, &q.params, &base.float.scaling)
-        .map_err(|e| FleetError::Input(e.to_string()))?;
+    let blob = crate::export::model_blob(&q.desc, &q.params, &base.float.scaling)?;
     let classification = pool.target.task() == Task::Classification;
     let shared = Shared {
         base,
@@ -358,9 +380,9 @@ pub fn run(
     let workers = rayon::ThreadPoolBuilder::new()
         .num_threads(opts.threads)
         .build()
-        .map_err(|e| FleetError::Input(format!("cannot start worker threads: {e}")))?;
+        .map_err(FleetError::Threads)?;
     let done = AtomicUsize::new(0);
-    let results: Vec<Result<UnitResult, String>> = workers.install(|| {
+    let results: Vec<Result<UnitResult, UnitError>> = workers.install(|| {
         (0..opts.units)
             .into_par_iter()
             .map(|u| {
@@ -372,7 +394,7 @@ pub fn run(
     });
     let mut units = Vec::with_capacity(results.len());
     for (u, r) in results.into_iter().enumerate() {
-        units.push(r.map_err(|message| FleetError::Unit { unit: u, message })?);
+        units.push(r.map_err(|source| FleetError::Unit { unit: u, source })?);
     }
     let spec = opts.spec.unwrap_or(fleet.spec);
     Ok(summarize(&shared, fleet, spec, &units))
@@ -484,9 +506,9 @@ fn draw(
 }
 
 /// The unit's rows, scaled for the model and quantized.
-fn prepare(s: &Shared<'_>, mut data: Dataset) -> Result<Prepared, String> {
-    crate::data::apply(&s.base.float.scaling, &mut data).map_err(|e| e.to_string())?;
-    Prepared::new(&data, &s.base.quant.desc)
+fn prepare(s: &Shared<'_>, mut data: Dataset) -> Result<Prepared, UnitError> {
+    crate::data::apply(&s.base.float.scaling, &mut data)?;
+    Ok(Prepared::new(&data, &s.base.quant.desc)?)
 }
 
 /// The first `n` samples of `all`.
@@ -509,7 +531,7 @@ fn error_of(s: &Shared<'_>, metric: f64) -> f64 {
     }
 }
 
-fn unit(s: &Shared<'_>, u: usize) -> Result<UnitResult, String> {
+fn unit(s: &Shared<'_>, u: usize) -> Result<UnitResult, UnitError> {
     let opts = s.opts;
     let mut rng = unit_stream(opts.seed, u);
     let distortion: Vec<(f64, f64, f64)> = s
@@ -541,8 +563,8 @@ fn unit(s: &Shared<'_>, u: usize) -> Result<UnitResult, String> {
         input_saturations: (held.input_saturations + eval.input_saturations) as u64,
         ..UnitResult::default()
     };
-    let last_good = hone_core::blob::decode(&s.blob).map_err(|e| e.to_string())?;
-    let plan = Plan::of(&q.desc).map_err(|e| e.to_string())?;
+    let last_good = hone_core::blob::decode(&s.blob)?;
+    let plan = Plan::of(&q.desc)?;
     let mut arena = vec![0u32; plan.ram_words()];
     for (k, &n) in opts.samples.iter().enumerate() {
         let train = prepare(s, first(&reference, n))?;
@@ -560,7 +582,7 @@ fn unit(s: &Shared<'_>, u: usize) -> Result<UnitResult, String> {
         )?;
         let (start, end) = match (run.epochs.first(), run.epochs.last()) {
             (Some(a), Some(b)) => (a, b),
-            _ => return Err("the calibration recorded no epoch".into()),
+            _ => return Err(UnitError::NoEpoch),
         };
         if k == 0 {
             out.before_fixed = error_of(s, start.fixed_metric);
@@ -570,7 +592,7 @@ fn unit(s: &Shared<'_>, u: usize) -> Result<UnitResult, String> {
         out.float.push(error_of(s, end.float_metric));
         // The device's guarded session on the same samples in the same order.
         let views = q.params.views();
-        let mut t = Trainer::new(&q.desc, &plan, &mut arena, &views).map_err(|e| e.to_string())?;
+        let mut t = Trainer::new(&q.desc, &plan, &mut arena, &views)?;
         let f = q.desc.input_format;
         let steps: Vec<_> = (1..=opts.epochs)
             .flat_map(|e| epoch_order(n, e, order_seed))
@@ -578,7 +600,7 @@ fn unit(s: &Shared<'_>, u: usize) -> Result<UnitResult, String> {
             .collect();
         let holdout: Vec<_> = (0..held.len()).map(|i| held.fixed(i, f)).collect();
         let r = guard::calibrate(&mut t, steps, holdout, &GuardConfig::DEFAULT, &last_good)
-            .map_err(|e| format!("guarded session: {e}"))?;
+            .map_err(UnitError::Guarded)?;
         out.rejected.push(matches!(r.verdict, Verdict::Reject(_)));
     }
     Ok(out)

@@ -165,7 +165,7 @@ pub fn export(m: &FloatModel, precision: Precision, source: &str) -> Result<Vec<
         path: source.to_string(),
         message,
     };
-    m.check().map_err(invalid)?;
+    m.check().map_err(|e| invalid(e.to_string()))?;
     let shapes = m
         .shapes()
         .map_err(|e| invalid(format!("architecture: {e}")))?;
@@ -453,7 +453,7 @@ pub fn from_blobs(
         outputs: outputs.unwrap_or_else(|| (0..out_size).map(|i| format!("output_{i}")).collect()),
         history: Vec::new(),
     };
-    m.check().map_err(|e| invalid(model.0, e))?;
+    m.check().map_err(|e| invalid(model.0, e.to_string()))?;
     if m.outputs.len() != out_size as usize {
         return Err(invalid(
             model.0,

@@ -97,19 +97,34 @@ pub enum OnnxError {
     },
 }
 
+/// Why [`forward`] could not run a sample.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum ForwardError {
+    /// The sample's length is not the model's input size.
+    #[error("{given} values for an input of {input}")]
+    InputLength {
+        /// Values given.
+        given: usize,
+        /// The model's input size.
+        input: usize,
+    },
+    /// The core rejects the architecture.
+    #[error(transparent)]
+    Architecture(#[from] hone_core::Error),
+}
+
 /// A float model's forward pass on one raw sample: the input scaling, then every layer in
 /// `f64` through the core's float twin ([`hone_core::float::forward`]). Returns the outputs
 /// of the last layer (logits for the cross-entropy loss; no softmax applied).
 ///
 /// # Errors
-/// A message when the architecture is invalid or the sample has the wrong length.
-pub fn forward(m: &crate::model::FloatModel, raw: &[f64]) -> Result<Vec<f64>, String> {
+/// [`ForwardError`] when the sample has the wrong length or the architecture is invalid.
+pub fn forward(m: &crate::model::FloatModel, raw: &[f64]) -> Result<Vec<f64>, ForwardError> {
     if raw.len() != m.input.size() as usize {
-        return Err(format!(
-            "{} values for an input of {}",
-            raw.len(),
-            m.input.size()
-        ));
+        return Err(ForwardError::InputLength {
+            given: raw.len(),
+            input: m.input.size() as usize,
+        });
     }
     let shapes = m.shapes()?;
     let len = m.input.len as usize;
