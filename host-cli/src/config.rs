@@ -320,17 +320,68 @@ fn same_range_hint(m: i64) -> String {
     }
 }
 
+/// A Q-format that does not parse, with what is wrong and how to write it.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+pub enum FormatError {
+    /// Not in the notation at all.
+    #[error("`{0}` is not a Q-format; {FORMAT_HELP}")]
+    Notation(String),
+    /// Negative fraction bits.
+    #[error("`{text}` has {frac} fraction bits; fraction bits are 0 to {MAX_FRAC}")]
+    NegativeFrac {
+        /// The text given.
+        text: String,
+        /// Its fraction bits.
+        frac: i64,
+    },
+    /// More fraction bits than hone allows.
+    #[error("`{text}` has {frac} fraction bits; hone allows at most {MAX_FRAC}")]
+    TooManyFrac {
+        /// The text given.
+        text: String,
+        /// Its fraction bits.
+        frac: i64,
+    },
+    /// Integer and fraction bits that do not make a word.
+    #[error(
+        "`{text}` is {int} + {frac} + 1 = {bits} bits, but a word has 8, 16 or 32 bits{}",
+        same_range_hint(*int)
+    )]
+    WordSize {
+        /// The text given.
+        text: String,
+        /// Its integer bits.
+        int: i64,
+        /// Its fraction bits.
+        frac: i64,
+        /// Their sum plus the sign bit.
+        bits: i64,
+    },
+    /// `auto` without a word size.
+    #[error("`{0}` does not say the word size; write \"auto8\", \"auto16\" or \"auto32\"")]
+    AutoWord(String),
+    /// The core refuses the format.
+    #[error("`{text}`: {source}")]
+    Engine {
+        /// The text given.
+        text: String,
+        /// The core's error.
+        #[source]
+        source: CoreError,
+    },
+}
+
 /// Parses a Q-format in trade notation: `"Qm.n"` or `"Qn"` (= Q0.n), `m + n + 1` being 8, 16
 /// or 32 and `n` at most 31.
 ///
 /// # Errors
-/// A message saying what is wrong and how to write it.
-pub fn parse_qformat(text: &str) -> Result<QFormat, String> {
+/// [`FormatError`] saying what is wrong and how to write it.
+pub fn parse_qformat(text: &str) -> Result<QFormat, FormatError> {
     let t = text.trim();
     let body = t
         .strip_prefix('Q')
         .or_else(|| t.strip_prefix('q'))
-        .ok_or_else(|| format!("`{text}` is not a Q-format; {FORMAT_HELP}"))?;
+        .ok_or_else(|| FormatError::Notation(text.to_owned()))?;
     let (m, n) = match body.split_once('.') {
         Some((m, n)) => (m, n),
         None => ("0", body),
@@ -342,45 +393,47 @@ pub fn parse_qformat(text: &str) -> Result<QFormat, String> {
             .flatten()
     };
     let (Some(m), Some(n)) = (parse(m), parse(n)) else {
-        return Err(format!("`{text}` is not a Q-format; {FORMAT_HELP}"));
+        return Err(FormatError::Notation(text.to_owned()));
     };
     if n < 0 {
-        return Err(format!(
-            "`{text}` has {n} fraction bits; fraction bits are 0 to {MAX_FRAC}"
-        ));
+        return Err(FormatError::NegativeFrac {
+            text: text.to_owned(),
+            frac: n,
+        });
     }
     if n > i64::from(MAX_FRAC) {
-        return Err(format!(
-            "`{text}` has {n} fraction bits; hone allows at most {MAX_FRAC}"
-        ));
+        return Err(FormatError::TooManyFrac {
+            text: text.to_owned(),
+            frac: n,
+        });
     }
     let bits = m + n + 1;
     let word = u32::try_from(bits)
         .ok()
         .and_then(Word::from_bits)
-        .ok_or_else(|| {
-            format!(
-                "`{text}` is {m} + {n} + 1 = {bits} bits, but a word has 8, 16 or 32 bits{}",
-                same_range_hint(m)
-            )
+        .ok_or_else(|| FormatError::WordSize {
+            text: text.to_owned(),
+            int: m,
+            frac: n,
+            bits,
         })?;
     // n ≤ MAX_FRAC was checked, so the format is valid.
-    QFormat::new(word, n as u8).map_err(|e| format!("`{text}`: {e}"))
+    QFormat::new(word, n as u8).map_err(|source| FormatError::Engine {
+        text: text.to_owned(),
+        source,
+    })
 }
 
 impl std::str::FromStr for FormatChoice {
-    type Err = String;
+    type Err = FormatError;
 
     /// Parses `"Qm.n"`, `"Qn"` or `"auto8"`/`"auto16"`/`"auto32"`.
-    fn from_str(text: &str) -> Result<FormatChoice, String> {
+    fn from_str(text: &str) -> Result<FormatChoice, FormatError> {
         let t = text.trim();
         if let Some(bits) = t.strip_prefix("auto") {
             return match bits.parse::<u32>().ok().and_then(Word::from_bits) {
                 Some(word) => Ok(FormatChoice::Auto { word }),
-                None => Err(format!(
-                    "`{text}` does not say the word size; write \"auto8\", \"auto16\" or \
-                     \"auto32\""
-                )),
+                None => Err(FormatError::AutoWord(text.to_owned())),
             };
         }
         parse_qformat(t).map(FormatChoice::Fixed)
@@ -2300,10 +2353,16 @@ target = "y"
         assert_eq!(q("q15.16"), QFormat::Q15_16);
         assert_eq!(q("Q-2.17"), QFormat::new(Word::I16, 17).unwrap());
         assert_eq!(q("Q31"), QFormat::new(Word::I32, 31).unwrap());
-        let e = parse_qformat("Q3.13").unwrap_err();
+        let e = parse_qformat("Q3.13").unwrap_err().to_string();
         assert!(e.contains("17 bits") && e.contains("Q3.12 (i16)"), "{e}");
-        assert!(parse_qformat("Q-1.3").unwrap_err().contains("3 bits"));
-        assert!(parse_qformat("Q-8.39").unwrap_err().contains("at most 31"));
+        assert!(parse_qformat("Q-1.3")
+            .unwrap_err()
+            .to_string()
+            .contains("3 bits"));
+        assert!(parse_qformat("Q-8.39")
+            .unwrap_err()
+            .to_string()
+            .contains("at most 31"));
         for bad in ["x", "Q", "Q3.", "Q.3", "Q3.x", "3.12", "Q+3.12", "Q3.-12"] {
             assert!(parse_qformat(bad).is_err(), "{bad}");
         }

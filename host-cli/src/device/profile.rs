@@ -96,19 +96,19 @@ impl Phase {
     }
 }
 
+/// A phase name that is not one of [`Phase::ALL`].
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+#[error("`{0}` is not a phase; use one of {names}", names = Phase::ALL.map(Phase::name).join(", "))]
+pub struct UnknownPhase(pub String);
+
 impl std::str::FromStr for Phase {
-    type Err = String;
+    type Err = UnknownPhase;
 
     fn from_str(s: &str) -> Result<Self, Self::Err> {
         Self::ALL
             .into_iter()
             .find(|p| p.name() == s)
-            .ok_or_else(|| {
-                format!(
-                    "`{s}` is not a phase; use one of {}",
-                    Self::ALL.map(Self::name).join(", ")
-                )
-            })
+            .ok_or_else(|| UnknownPhase(s.to_owned()))
     }
 }
 
