@@ -1029,9 +1029,10 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
             json,
         } => {
             let boards_dir = device::default_boards_dir();
-            let profile =
-                device::verify::release_opt_level(&boards_dir).map_err(|e| anyhow!("{e}"))?;
             if board == device::lean::LEAN_BOARD {
+                let profile =
+                    device::verify::profile_opt_level(&boards_dir, device::lean::LEAN_PROFILE)
+                        .map_err(|e| anyhow!("{e}"))?;
                 if session_dir.is_some() || elf.is_some() {
                     bail!(
                         "--board {board}: --session-dir and --elf do not apply to the lean build"
@@ -1055,6 +1056,8 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
                 return Ok(None);
             }
             let b = board_named(&board)?;
+            let profile = device::verify::profile_opt_level(&boards_dir, device::RELEASE_PROFILE)
+                .map_err(|e| anyhow!("{e}"))?;
             let opts = device::verify::VerifyOptions {
                 session_dir,
                 elf,
