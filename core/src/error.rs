@@ -21,8 +21,10 @@ pub enum LayerFault {
     /// A setting of the layer is out of its range (leaky-ReLU shift 1 to 15, clipped-ReLU
     /// ceiling at least 1).
     Parameter,
-    /// The layer kind or the loss is not built into this core: its cargo feature (`conv1d`,
-    /// `pool1d`, `table-activations` or `cross-entropy`) is off.
+    /// A part the layer needs is not built into this core: its cargo feature is off. The part
+    /// is the layer kind or the loss (`conv1d`, `pool1d`, `table-activations`,
+    /// `cross-entropy`), a value word (`word-i8`, `word-i32`) or a master copy
+    /// (`master-weights`).
     NotBuilt,
 }
 
@@ -110,6 +112,9 @@ pub enum Error {
     Blob(crate::blob::BlobError),
     /// The checkpoint store failed. See [`crate::store::StoreError`].
     Store(crate::store::StoreError),
+    /// The training setup needs an optional part this core is built without (see
+    /// [`crate::features`]).
+    NotBuilt(crate::features::Feature),
 }
 
 impl fmt::Display for LayerFault {
@@ -122,7 +127,7 @@ impl fmt::Display for LayerFault {
             LayerFault::Format => "a Q-format has more than 31 fraction bits",
             LayerFault::LossOutput => "the loss needs a different output size",
             LayerFault::ModeWithoutParams => "a train mode is set on a layer without parameters",
-            LayerFault::NotBuilt => "the layer kind or loss is not built into this core (its cargo feature is off)",
+            LayerFault::NotBuilt => "its kind, loss, value word or master copy is not built into this core (its cargo feature is off)",
         })
     }
 }
@@ -171,6 +176,10 @@ impl fmt::Display for Error {
             ),
             Error::Blob(e) => write!(f, "blob: {e}"),
             Error::Store(e) => write!(f, "checkpoint store: {e}"),
+            Error::NotBuilt(part) => write!(
+                f,
+                "the training setup needs `{part}`, which this core is built without (turn on its cargo feature)"
+            ),
         }
     }
 }

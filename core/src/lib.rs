@@ -7,6 +7,7 @@
 pub mod approx;
 pub mod blob;
 pub mod error;
+pub mod features;
 pub mod float;
 pub mod guard;
 pub mod kernel;

@@ -149,9 +149,9 @@ pub struct Plan {
     pub backward: [Slot; 2],
     /// Index of the first layer that trains anything; equal to the layer count if none does.
     pub first_trainable: usize,
-    /// The trainer's own state, last in the arena: per layer its live fraction bits, its
-    /// statistics and the marks of the dynamic-fixed-point interval
-    /// ([`STATE_WORDS_PER_LAYER`] words each). Empty in a float-twin plan.
+    /// The trainer's own state, last in the arena: per layer its live fraction bits and its
+    /// statistics ([`STATE_WORDS_PER_LAYER`] words each), and with dynamic fixed point the
+    /// marks of the interval ([`MARK_WORDS_PER_LAYER`] more). Empty in a float-twin plan.
     pub state: Slot,
     /// Total RAM of the arena in bytes (a multiple of 4).
     pub ram_bytes: u32,
@@ -164,9 +164,14 @@ pub struct Plan {
     pub fingerprint: u32,
 }
 
-/// Words of trainer state per layer in [`Plan::state`]: the live fraction bits (one word),
-/// the six tallies of [`crate::train::LayerStats`] (24) and the four interval marks (16).
-pub const STATE_WORDS_PER_LAYER: u32 = 1 + 6 * 4 + 4 * 4;
+/// Words of trainer state per layer in [`Plan::state`]: the live fraction bits (one word) and
+/// the six tallies of [`crate::train::LayerStats`] (24), plus [`MARK_WORDS_PER_LAYER`] with
+/// dynamic fixed point.
+pub const STATE_WORDS_PER_LAYER: u32 = 1 + 6 * 4;
+
+/// Words per layer of the dynamic-fixed-point interval marks (four tallies), planned only
+/// for a description with dynamic fixed point.
+pub const MARK_WORDS_PER_LAYER: u32 = 4 * 4;
 
 const fn pad4(bytes: u64) -> u64 {
     (bytes + 3) & !3
@@ -400,7 +405,13 @@ impl Plan {
         plan.backward[0] = bump.take(bwd_max[0].0, bwd_max[0].1, fb);
         plan.backward[1] = bump.take(bwd_max[1].0, bwd_max[1].1, fb);
         if fb == 0 {
-            plan.state = bump.take(n as u32 * STATE_WORDS_PER_LAYER, Word::I32, 0);
+            let per_layer = STATE_WORDS_PER_LAYER
+                + if train.dynamic.is_some() {
+                    MARK_WORDS_PER_LAYER
+                } else {
+                    0
+                };
+            plan.state = bump.take(n as u32 * per_layer, Word::I32, 0);
         }
 
         if bump.overflow || flash > u32::MAX as u64 {
@@ -714,6 +725,30 @@ mod tests {
     }
 
     #[test]
+    fn interval_marks_only_with_dynamic_fixed_point() {
+        let layers = [
+            dense(5, TrainMode::Full),
+            LayerDesc::simple(LayerKind::Relu, ACT, ACT),
+        ];
+        let fixed = Plan::new(Shape::vector(3), &layers, Loss::SquaredError, &sgd()).unwrap();
+        let mut t = sgd();
+        t.dynamic = Some(crate::model::DynamicRule {
+            max_rate_ppm: 100,
+            interval: 4,
+        });
+        let dynamic = Plan::new(Shape::vector(3), &layers, Loss::SquaredError, &t).unwrap();
+        assert_eq!(fixed.state.bytes, 2 * STATE_WORDS_PER_LAYER * 4);
+        assert_eq!(
+            dynamic.state.bytes,
+            2 * (STATE_WORDS_PER_LAYER + MARK_WORDS_PER_LAYER) * 4
+        );
+        assert_eq!(
+            dynamic.ram_bytes - fixed.ram_bytes,
+            2 * MARK_WORDS_PER_LAYER * 4
+        );
+    }
+
+    #[test]
     fn dense_relu_dense_full() {
         let layers = [
             dense(5, TrainMode::Full),
@@ -754,8 +789,9 @@ mod tests {
         }
         slots.extend(p.forward);
         slots.extend(p.backward);
-        // The trainer's state comes last: 41 words for each of the 3 layers.
-        assert_eq!(p.state.bytes, 3 * 41 * 4);
+        // The trainer's state comes last: 25 words for each of the 3 layers (no interval
+        // marks without dynamic fixed point).
+        assert_eq!(p.state.bytes, 3 * 25 * 4);
         slots.push(p.state);
         slots.retain(|s| s.is_some());
         slots.sort_by_key(|s| s.offset);

@@ -1016,8 +1016,9 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
             json,
         } => {
             let boards_dir = device::default_boards_dir();
-            let profile = device::verify::release_opt_level(&boards_dir)?;
             if board == device::lean::LEAN_BOARD {
+                let profile =
+                    device::verify::profile_opt_level(&boards_dir, device::lean::LEAN_PROFILE)?;
                 if session_dir.is_some() || elf.is_some() {
                     bail!(
                         "--board {board}: --session-dir and --elf do not apply to the lean build"
@@ -1040,6 +1041,7 @@ fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
                 return Ok(None);
             }
             let b = board_named(&board)?;
+            let profile = device::verify::profile_opt_level(&boards_dir, device::RELEASE_PROFILE)?;
             let opts = device::verify::VerifyOptions {
                 session_dir,
                 elf,

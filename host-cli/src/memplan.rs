@@ -2134,15 +2134,33 @@ pub fn session_estimate(chip: &Chip) -> Option<SessionEstimate> {
     })
 }
 
-/// The core's optional features (`core/Cargo.toml`) that `desc` needs.
+/// The core's optional features (`core/Cargo.toml`) that `desc` needs: its layer kinds and
+/// loss, its value words besides `i16`, and its training parts (rounding modes, momentum,
+/// master weights, decay and clip, dynamic fixed point; see `hone_core::features`).
 #[must_use]
 pub fn core_features(desc: &ModelDesc) -> Vec<&'static str> {
+    use hone_core::features::Feature;
+    use hone_core::num::{Rounding, Word};
     let mut f = Vec::new();
     let mut add = |name| {
         if !f.contains(&name) {
             f.push(name);
         }
     };
+    let mut word = |w: Word| match w {
+        Word::I8 => add("word-i8"),
+        Word::I32 => add("word-i32"),
+        Word::I16 => {}
+    };
+    word(desc.input_format.word);
+    for l in &desc.layers {
+        word(l.out.word);
+        word(l.grad.word);
+        if l.kind.has_params() {
+            word(l.weight.value.word);
+            word(l.bias.value.word);
+        }
+    }
     for l in &desc.layers {
         match l.kind {
             LayerKind::Conv1d { .. } => add("conv1d"),
@@ -2153,6 +2171,33 @@ pub fn core_features(desc: &ModelDesc) -> Vec<&'static str> {
     }
     if desc.loss == hone_core::model::Loss::SoftmaxCrossEntropy {
         add("cross-entropy");
+    }
+    let t = &desc.train;
+    for mode in [
+        t.rounding.activations,
+        t.rounding.gradients,
+        t.rounding.updates,
+    ] {
+        match mode {
+            Rounding::Stochastic => add(Feature::Stochastic.name()),
+            Rounding::TowardZero => add(Feature::TowardZero.name()),
+            Rounding::NearestEven => {}
+        }
+    }
+    if !t.momentum.is_zero() {
+        add(Feature::Momentum.name());
+    }
+    let master = |l: &hone_core::model::LayerDesc| {
+        l.kind.has_params() && (l.weight.master.is_some() || l.bias.master.is_some())
+    };
+    if desc.layers.iter().any(master) {
+        add(Feature::MasterWeights.name());
+    }
+    if !(t.weight_decay.is_zero() && t.clip.is_zero()) {
+        add(Feature::DecayClip.name());
+    }
+    if t.dynamic.is_some() {
+        add(Feature::Dynamic.name());
     }
     f
 }

@@ -201,21 +201,12 @@ fn c_example_matches_the_host_bit_for_bit() {
         "arm-none-eabi-gcc (Debian package gcc-arm-none-eabi)",
     );
     let out = run(
-        Command::new("timeout")
-            .args([
-                "120",
-                "qemu-system-arm",
-                "-cpu",
-                "cortex-m3",
-                "-machine",
-                "lm3s6965evb",
-            ])
-            .args(["-semihosting-config", "enable=on,target=native"])
-            .args([
-                "-display", "none", "-monitor", "none", "-serial", "null", "-kernel",
-            ])
+        // The boards' runner script owns the QEMU command line (machine, `-icount`,
+        // semihosting).
+        Command::new(boards.join("qemu-run.sh"))
+            .args(["--plain", "lm3s6965evb"])
             .arg(&elf),
-        "qemu-system-arm (Debian package qemu-system-arm)",
+        "boards/qemu-run.sh (runs qemu-system-arm, Debian package qemu-system-arm)",
     );
     // QEMU 7.2 writes the semihosting console (SYS_WRITE0) to its standard error.
     let stdout = String::from_utf8_lossy(&out.stderr).into_owned();

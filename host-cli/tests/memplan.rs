@@ -3,7 +3,7 @@
 use hone_core::model::{
     LayerDesc, LayerKind, Loss, ModelDesc, ParamFormats, Shape, TrainDesc, TrainMode,
 };
-use hone_core::num::{QFormat, QScalar, Word};
+use hone_core::num::{QFormat, QScalar, Rounding, Word};
 use hone_core::plan::Plan;
 use hone_host::chips;
 use hone_host::memplan::{
@@ -675,7 +675,8 @@ fn lean_build_is_advised_when_the_engine_overhead_blocks_the_fit() {
     assert!(!r.fits, "{}", render_table(&r));
     let lean = r.lean.as_deref().expect("lean advice");
     assert!(lean.contains("boards/lean") && lean.contains("default-features = false"));
-    assert!(lean.contains("no optional feature"), "{lean}");
+    // The test model keeps its biases in `i32` words, so its lean build needs `word-i32`.
+    assert!(lean.contains(r#"features = ["word-i32"]"#), "{lean}");
     assert!(render_table(&r).contains("boards/lean"));
 
     let big = chips::find("nrf52840").expect("chip in table");
@@ -697,6 +698,27 @@ fn lean_build_is_advised_when_the_engine_overhead_blocks_the_fit() {
     tanh.layers.insert(1, layer).expect("room for a layer");
     assert_eq!(
         hone_host::memplan::core_features(&tanh),
-        ["table-activations"]
+        ["word-i32", "table-activations"]
+    );
+    // Value words and training parts count too, each named once, in a fixed order.
+    let mut wide = tanh.clone();
+    wide.layers[0].weight.value = QFormat::new(Word::I8, 6).expect("format");
+    wide.layers[2].out = QFormat::new(Word::I32, 20).expect("format");
+    wide.train.momentum = QScalar { raw: 1, frac: 1 };
+    wide.train.rounding.gradients = Rounding::Stochastic;
+    wide.train.rounding.updates = Rounding::Stochastic;
+    wide.train.clip = QScalar { raw: 1, frac: 0 };
+    wide.layers[0].weight.master = Some(QFormat::new(Word::I32, 24).expect("format"));
+    assert_eq!(
+        hone_host::memplan::core_features(&wide),
+        [
+            "word-i8",
+            "word-i32",
+            "table-activations",
+            "stochastic",
+            "momentum",
+            "master-weights",
+            "decay-clip"
+        ]
     );
 }

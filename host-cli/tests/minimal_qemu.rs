@@ -55,24 +55,12 @@ fn minimal_example_matches_the_host_bit_for_bit() {
         String::from_utf8_lossy(&build.stderr)
     );
     let elf = dir.join("../target/thumbv7m-none-eabi/release/hone-minimal");
-    let run = Command::new("timeout")
-        .args([
-            "120",
-            "qemu-system-arm",
-            "-cpu",
-            "cortex-m3",
-            "-machine",
-            "lm3s6965evb",
-        ])
-        .args(["-semihosting-config", "enable=on,target=native"])
-        .args([
-            "-display", "none", "-monitor", "none", "-serial", "null", "-kernel",
-        ])
+    // The boards' runner script owns the QEMU command line (machine, `-icount`, semihosting).
+    let run = Command::new(dir.join("../qemu-run.sh"))
+        .args(["--plain", "lm3s6965evb"])
         .arg(&elf)
         .output()
-        .unwrap_or_else(|e| {
-            panic!("cannot start qemu-system-arm (Debian package qemu-system-arm): {e}")
-        });
+        .unwrap_or_else(|e| panic!("cannot start boards/qemu-run.sh: {e}"));
     // QEMU 7.2 writes the semihosting console to its standard error, after its own notice
     // about the board's timer.
     let stderr = String::from_utf8_lossy(&run.stderr);

@@ -28,15 +28,18 @@ const GCC_PACKAGES: [&str; 2] = ["gcc-arm-none-eabi", "libnewlib-arm-none-eabi"]
 /// Targets the C static library (`boards/ffi`) is built for: the M3 for the C example under
 /// QEMU, the M0 for its code size.
 const FFI_TARGETS: [&str; 2] = ["thumbv7m-none-eabi", "thumbv6m-none-eabi"];
-/// Board crates built in release mode (the QEMU ones also run in the tests).
-const BOARDS: [&str; 7] = [
-    "lm3s6965evb",
-    "minimal",
-    "microbit",
-    "mps2-an386",
-    "sifive-e",
-    "pico",
-    "lean",
+/// Board crates and the cargo profile each is built in (the QEMU ones also run in the tests,
+/// which build them in the same profile, so each firmware is built once): `release` for speed,
+/// `lean` (opt-level `z`) for the lean build; the host's `device::lean::LEAN_PROFILE` names
+/// the same.
+const BOARDS: [(&str, &str); 7] = [
+    ("lm3s6965evb", "release"),
+    ("minimal", "release"),
+    ("microbit", "release"),
+    ("mps2-an386", "release"),
+    ("sifive-e", "release"),
+    ("pico", "release"),
+    ("lean", "lean"),
 ];
 
 fn root() -> PathBuf {
@@ -260,20 +263,28 @@ fn test(steps: &mut Vec<Step>) -> Result<(), String> {
             "built_",
         ],
     )?;
-    for b in BOARDS {
+    for (b, profile) in BOARDS {
         run(
             steps,
             &format!("firmware {b}"),
             &boards.join(b),
             "cargo",
-            &["build", "--release", "--locked"],
+            &["build", "--profile", profile, "--locked"],
         )?;
         run(
             steps,
             &format!("clippy firmware {b}"),
             &boards.join(b),
             "cargo",
-            &["clippy", "--release", "--locked", "--", "-D", "warnings"],
+            &[
+                "clippy",
+                "--profile",
+                profile,
+                "--locked",
+                "--",
+                "-D",
+                "warnings",
+            ],
         )?;
     }
     // The C interface's static library, once per target (the C example test links the

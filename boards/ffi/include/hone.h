@@ -21,8 +21,8 @@
 // The blob is malformed or corrupted (bad magic, version, CRC or contents).
 #define HONE_ERR_BLOB -4
 
-// The model description is invalid, or uses a layer kind or loss this library was built
-// without.
+// The model description is invalid, or uses a layer kind, loss, value word or training part
+// this library was built without.
 #define HONE_ERR_MODEL -5
 
 // A sample does not fit the model: wrong input or target length, a class label out of

@@ -57,8 +57,8 @@ pub const HONE_ERR_ALIGN: i32 = -2;
 pub const HONE_ERR_MEMORY: i32 = -3;
 /// The blob is malformed or corrupted (bad magic, version, CRC or contents).
 pub const HONE_ERR_BLOB: i32 = -4;
-/// The model description is invalid, or uses a layer kind or loss this library was built
-/// without.
+/// The model description is invalid, or uses a layer kind, loss, value word or training part
+/// this library was built without.
 pub const HONE_ERR_MODEL: i32 = -5;
 /// A sample does not fit the model: wrong input or target length, a class label out of
 /// range, or a target of the wrong kind for the loss.
@@ -217,7 +217,8 @@ fn status(e: Error) -> i32 {
         | Error::EmptyModel
         | Error::TooManyLayers
         | Error::Layer { .. }
-        | Error::Params { .. } => HONE_ERR_MODEL,
+        | Error::Params { .. }
+        | Error::NotBuilt(_) => HONE_ERR_MODEL,
         Error::InvalidTraining => HONE_ERR_PENDING,
         Error::Store(s) => store_status(s),
         _ => HONE_ERR_INTERNAL,

@@ -168,20 +168,6 @@ pub fn training_macs(plan: &Plan) -> (u32, u32) {
     (sat_u32(forward), sat_u32(backward))
 }
 
-/// Scales a raw sensor reading as the host does (`x = (raw − offset) · gain`) and quantizes it
-/// into `fmt`: to nearest (halves away from zero), saturated to the word's range. For samples
-/// acquired on the device; the host's quantizer rounds halves to even, so a reading that falls
-/// exactly halfway between two steps may differ by one step from the host's.
-#[must_use]
-pub fn quantize_reading(raw: f32, scale: ChannelScale, fmt: QFormat) -> i32 {
-    let x = (raw - scale.offset) * scale.gain;
-    let y = x * (1u32 << fmt.frac.min(31)) as f32;
-    let r = if y >= 0.0 { y + 0.5 } else { y - 0.5 };
-    // `as` truncates toward zero and saturates at the ends of `i32` (NaN gives 0).
-    let q = r as i32;
-    q.clamp(fmt.word.min_raw(), fmt.word.max_raw())
-}
-
 fn sat_u32(v: u64) -> u32 {
     u32::try_from(v).unwrap_or(u32::MAX)
 }

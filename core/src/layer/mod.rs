@@ -15,6 +15,7 @@ pub mod dense;
 pub mod loss;
 pub mod pool;
 
+use crate::features::{STOCHASTIC, TOWARD_ZERO};
 use crate::kernel::{Tally, WORD_I32, WORD_I8};
 use crate::model::{LayerGeometry, LayerKind};
 use crate::num::round::{
@@ -120,7 +121,7 @@ impl Rounder<'_> {
         from_frac: u32,
         tally: &mut Tally,
     ) {
-        if g == 0 && self.mode != Rounding::Stochastic {
+        if g == 0 && !(STOCHASTIC && self.mode == Rounding::Stochastic) {
             return;
         }
         // A zero row still runs under stochastic rounding (for its draws) into a tally that
@@ -263,7 +264,7 @@ impl Rows<'_> {
     /// Each row as [`Rounder::accumulate_outer`] adds it: rows with a zero gradient skipped
     /// unless the rounding is stochastic, and then counted in a tally that is dropped.
     fn run<X: Sample>(self, acc: &mut [i32], x: &[X], rng: &mut Rng, tally: &mut Tally) {
-        let stochastic = self.mode == Rounding::Stochastic;
+        let stochastic = STOCHASTIC && self.mode == Rounding::Stochastic;
         for (j, row) in acc.chunks_exact_mut(self.n_in).enumerate() {
             let g = self.gy.at(j) as i64;
             if g == 0 && !stochastic {
@@ -301,9 +302,10 @@ fn outer_row<X: Sample>(
     };
     let g = g as i32;
     let (sats, high) = match mode {
-        Rounding::NearestEven => outer_row_fast::<X, NearestEven>(acc, x, g, sh, rng),
-        Rounding::TowardZero => outer_row_fast::<X, TowardZero>(acc, x, g, sh, rng),
-        Rounding::Stochastic => outer_row_fast::<X, Stochastic>(acc, x, g, sh, rng),
+        Rounding::TowardZero if TOWARD_ZERO => outer_row_fast::<X, TowardZero>(acc, x, g, sh, rng),
+        Rounding::Stochastic if STOCHASTIC => outer_row_fast::<X, Stochastic>(acc, x, g, sh, rng),
+        // Nearest-even, and any mode this build leaves out (see `crate::features`).
+        _ => outer_row_fast::<X, NearestEven>(acc, x, g, sh, rng),
     };
     tally.add_counts(acc.len().min(x.len()) as u32, sats, high);
 }

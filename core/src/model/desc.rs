@@ -8,7 +8,8 @@ use heapless::Vec;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, LayerFault};
-use crate::num::{QFormat, QScalar, RoundingPlan, Word};
+use crate::features::Feature;
+use crate::num::{QFormat, QScalar, Rounding, RoundingPlan, Word};
 
 /// The most layers a model may have. Activation functions and pooling count as layers.
 pub const MAX_LAYERS: usize = 12;
@@ -309,7 +310,9 @@ impl TrainDesc {
     /// # Errors
     /// [`Error::InvalidTraining`] for a zero batch, a negative learning rate, momentum,
     /// decay or clip, a momentum of one or more, a scalar with more than 31 fraction bits,
-    /// or a dynamic rule with a zero interval.
+    /// or a dynamic rule with a zero interval; [`Error::NotBuilt`] for a rounding mode,
+    /// momentum, weight decay, clipping or dynamic fixed point this core is built without
+    /// (see [`crate::features`]).
     pub const fn check(&self) -> Result<(), Error> {
         let scalars = [self.lr, self.momentum, self.weight_decay, self.clip];
         let mut i = 0;
@@ -330,6 +333,40 @@ impl TrainDesc {
             if d.interval == 0 {
                 return Err(Error::InvalidTraining);
             }
+        }
+        self.check_built()
+    }
+
+    /// Refuses a setup that needs an optional part this core is built without.
+    const fn check_built(&self) -> Result<(), Error> {
+        let modes = [
+            self.rounding.activations,
+            self.rounding.gradients,
+            self.rounding.updates,
+        ];
+        let mut i = 0;
+        while i < modes.len() {
+            let part = match modes[i] {
+                Rounding::NearestEven => None,
+                Rounding::TowardZero => Some(Feature::TowardZero),
+                Rounding::Stochastic => Some(Feature::Stochastic),
+            };
+            if let Some(p) = part {
+                if !p.is_built() {
+                    return Err(Error::NotBuilt(p));
+                }
+            }
+            i += 1;
+        }
+        if !self.momentum.is_zero() && !Feature::Momentum.is_built() {
+            return Err(Error::NotBuilt(Feature::Momentum));
+        }
+        let decay_or_clip = !(self.weight_decay.is_zero() && self.clip.is_zero());
+        if decay_or_clip && !Feature::DecayClip.is_built() {
+            return Err(Error::NotBuilt(Feature::DecayClip));
+        }
+        if self.dynamic.is_some() && !Feature::Dynamic.is_built() {
+            return Err(Error::NotBuilt(Feature::Dynamic));
         }
         Ok(())
     }
@@ -470,6 +507,9 @@ pub const fn layer_geometry(
         || (layer.kind.has_params()
             && !(layer.weight.value.word.is_built_for_values()
                 && layer.bias.value.word.is_built_for_values()))
+        || (layer.kind.has_params()
+            && (layer.weight.master.is_some() || layer.bias.master.is_some())
+            && !Feature::MasterWeights.is_built())
     {
         return Err(lf(index, LayerFault::NotBuilt));
     }
@@ -746,6 +786,77 @@ mod tests {
                     );
                 }
             }
+        }
+    }
+
+    /// Each optional training part is accepted exactly when its feature is on, and refused
+    /// with `NotBuilt` naming it otherwise. `cargo xtask test` runs the `built_` tests with
+    /// every feature and with none.
+    #[test]
+    fn built_training_parts_follow_features() {
+        let half = QScalar { raw: 1, frac: 1 };
+        type Set = fn(&mut TrainDesc);
+        let sets: [(Feature, Set); 7] = [
+            (Feature::Stochastic, |t| {
+                t.rounding.gradients = Rounding::Stochastic
+            }),
+            (Feature::TowardZero, |t| {
+                t.rounding.activations = Rounding::TowardZero
+            }),
+            (Feature::Momentum, |t| {
+                t.momentum = QScalar { raw: 1, frac: 1 }
+            }),
+            (Feature::DecayClip, |t| {
+                t.weight_decay = QScalar { raw: 1, frac: 8 }
+            }),
+            (Feature::DecayClip, |t| t.clip = QScalar { raw: 1, frac: 0 }),
+            (Feature::Dynamic, |t| {
+                t.dynamic = Some(DynamicRule {
+                    max_rate_ppm: 100,
+                    interval: 8,
+                })
+            }),
+            (Feature::Stochastic, |t| {
+                t.rounding.updates = Rounding::Stochastic
+            }),
+        ];
+        for (part, set) in sets {
+            let built = match part {
+                Feature::Stochastic => cfg!(feature = "stochastic"),
+                Feature::TowardZero => cfg!(feature = "toward-zero"),
+                Feature::Momentum => cfg!(feature = "momentum"),
+                Feature::DecayClip => cfg!(feature = "decay-clip"),
+                Feature::Dynamic => cfg!(feature = "dynamic"),
+                Feature::MasterWeights => cfg!(feature = "master-weights"),
+            };
+            assert_eq!(part.is_built(), built, "{part}");
+            let mut t = TrainDesc::sgd(half);
+            set(&mut t);
+            let want = if built {
+                Ok(())
+            } else {
+                Err(Error::NotBuilt(part))
+            };
+            assert_eq!(t.check(), want, "{part}");
+        }
+        assert_eq!(TrainDesc::sgd(half).check(), Ok(()));
+
+        // A master copy is refused at its layer.
+        let built = cfg!(feature = "master-weights");
+        assert_eq!(Feature::MasterWeights.is_built(), built);
+        let mut l = dense(3);
+        l.weight.master = Some(q(Word::I32, 20));
+        let r = shapes(Shape::vector(4), &[l, dense(1)], Loss::SquaredError);
+        if built {
+            assert!(r.is_ok(), "{r:?}");
+        } else {
+            assert_eq!(
+                r.err(),
+                Some(Error::Layer {
+                    layer: 0,
+                    fault: LayerFault::NotBuilt
+                })
+            );
         }
     }
 

@@ -17,6 +17,11 @@
 //!   depends on the generator and, for the softmax, on the data. Host and device run the same
 //!   code from the same seed and draw the same stream.
 //!
+//! Toward-zero and stochastic rounding are optional parts of the build (cargo features
+//! `toward-zero` and `stochastic`, see [`crate::features`]). A build without one refuses a
+//! description that names it; the functions here, called directly with such a mode, round to
+//! nearest-even instead.
+//!
 //! Wide intermediate values are `i64`. Shifts are at most 62 because formats have at most
 //! [`MAX_FRAC`](super::format::MAX_FRAC) = 31 fraction bits and products add two of them.
 
@@ -26,6 +31,7 @@ use super::format::QFormat;
 #[cfg(test)]
 use super::format::Word;
 use super::rng::Rng;
+use crate::features::{STOCHASTIC, TOWARD_ZERO};
 
 /// How a value that falls between two representable values is rounded.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
@@ -37,6 +43,18 @@ pub enum Rounding {
     TowardZero,
     /// Stochastic rounding (Gupta et al. 2015): up with probability equal to the remainder.
     Stochastic,
+}
+
+impl Rounding {
+    /// The mode this build rounds with when asked for `self`: `self` if it is built, else
+    /// nearest-even (see [`crate::features`]).
+    pub const fn built(self) -> Rounding {
+        match self {
+            Rounding::TowardZero if !TOWARD_ZERO => Rounding::NearestEven,
+            Rounding::Stochastic if !STOCHASTIC => Rounding::NearestEven,
+            m => m,
+        }
+    }
 }
 
 /// The rounding used for each role a tensor can play in training.
@@ -74,24 +92,25 @@ pub fn shift_right(v: i64, shift: u32, mode: Rounding, rng: &mut Rng) -> i64 {
     let mask = (1u64 << shift) - 1;
     let r = (v as u64) & mask; // v − q·2^shift, in [0, 2^shift)
     match mode {
-        Rounding::NearestEven => {
-            let half = 1u64 << (shift - 1);
-            if r > half || (r == half && (q & 1) != 0) {
-                q + 1
-            } else {
-                q
-            }
-        }
-        Rounding::TowardZero => {
+        Rounding::TowardZero if TOWARD_ZERO => {
             if v < 0 && r != 0 {
                 q + 1
             } else {
                 q
             }
         }
-        Rounding::Stochastic => {
+        Rounding::Stochastic if STOCHASTIC => {
             let u = rng.bits(shift);
             if u < r {
+                q + 1
+            } else {
+                q
+            }
+        }
+        // Nearest-even, and any mode this build leaves out (see `crate::features`).
+        _ => {
+            let half = 1u64 << (shift - 1);
+            if r > half || (r == half && (q & 1) != 0) {
                 q + 1
             } else {
                 q
@@ -133,23 +152,24 @@ pub fn div_round(num: i64, den: i64, mode: Rounding, rng: &mut Rng) -> i64 {
     let q = num.div_euclid(den); // floor for den > 0
     let r = num.rem_euclid(den); // in [0, den)
     match mode {
-        Rounding::NearestEven => {
-            let twice = 2 * r as i128;
-            if twice > den as i128 || (twice == den as i128 && (q & 1) != 0) {
-                q + 1
-            } else {
-                q
-            }
-        }
-        Rounding::TowardZero => {
+        Rounding::TowardZero if TOWARD_ZERO => {
             if num < 0 && r != 0 {
                 q + 1
             } else {
                 q
             }
         }
-        Rounding::Stochastic => {
+        Rounding::Stochastic if STOCHASTIC => {
             if (rng.below(den as u64) as i64) < r {
+                q + 1
+            } else {
+                q
+            }
+        }
+        // Nearest-even, and any mode this build leaves out.
+        _ => {
+            let twice = 2 * r as i128;
+            if twice > den as i128 || (twice == den as i128 && (q & 1) != 0) {
                 q + 1
             } else {
                 q
@@ -187,9 +207,9 @@ pub fn requantize(
         if let Some(s) = from_frac.checked_sub(to.frac as u32).and_then(Shr32::new) {
             let v = v as i32;
             let r = match mode {
-                Rounding::NearestEven => NearestEven::shr32(v, s, rng),
-                Rounding::TowardZero => TowardZero::shr32(v, s, rng),
-                Rounding::Stochastic => Stochastic::shr32(v, s, rng),
+                Rounding::TowardZero if TOWARD_ZERO => TowardZero::shr32(v, s, rng),
+                Rounding::Stochastic if STOCHASTIC => Stochastic::shr32(v, s, rng),
+                _ => NearestEven::shr32(v, s, rng),
             };
             return to.word.saturate(r as i64);
         }
@@ -199,9 +219,9 @@ pub fn requantize(
     if (-BOUND64..=BOUND64).contains(&v) {
         if let Some(s) = from_frac.checked_sub(to.frac as u32).and_then(Shr64::new) {
             let r = match mode {
-                Rounding::NearestEven => NearestEven::shr64(v, s, rng),
-                Rounding::TowardZero => TowardZero::shr64(v, s, rng),
-                Rounding::Stochastic => Stochastic::shr64(v, s, rng),
+                Rounding::TowardZero if TOWARD_ZERO => TowardZero::shr64(v, s, rng),
+                Rounding::Stochastic if STOCHASTIC => Stochastic::shr64(v, s, rng),
+                _ => NearestEven::shr64(v, s, rng),
             };
             return to.word.saturate_narrow(r);
         }
@@ -274,12 +294,8 @@ pub fn requantize_wide(
         let q = v >> s;
         let r = (v - (q << s)) as u128; // in [0, 2^s)
         let up = match mode {
-            Rounding::NearestEven => {
-                let half = 1u128 << (s - 1);
-                r > half || (r == half && q & 1 != 0)
-            }
-            Rounding::TowardZero => v < 0 && r != 0,
-            Rounding::Stochastic => {
+            Rounding::TowardZero if TOWARD_ZERO => v < 0 && r != 0,
+            Rounding::Stochastic if STOCHASTIC => {
                 // Compare the top 64 bits of the remainder with 64 random bits; for s ≤ 64
                 // this is exact, beyond that the probability is exact to 2^-64.
                 let (rt, bits) = if s > 64 {
@@ -288,6 +304,11 @@ pub fn requantize_wide(
                     (r as u64, s)
                 };
                 rng.bits(bits) < rt
+            }
+            // Nearest-even, and any mode this build leaves out.
+            _ => {
+                let half = 1u128 << (s - 1);
+                r > half || (r == half && q & 1 != 0)
             }
         };
         q + up as i128

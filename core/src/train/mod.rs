@@ -12,6 +12,7 @@ pub mod dynamic;
 pub mod sgd;
 
 use crate::error::{Error, ParamTensor};
+use crate::features::{DYNAMIC, MASTER_WEIGHTS, MOMENTUM};
 use crate::kernel::Tally;
 use crate::layer::loss::{self, LossValue, Target};
 use crate::layer::{self, BackOut, BackTally, Params, Rounder, Tensor, TensorMut};
@@ -141,13 +142,14 @@ fn carve<const N: usize>(arena: &mut [u32], slots: [Slot; N]) -> [&mut [u32]; N]
 }
 
 /// Cuts the state part ([`Plan::state`]) off the end of the arena and views it as the live
-/// fraction bits, statistics and interval marks of `n` layers; returns those and the tensors'
-/// part.
+/// fraction bits, statistics and (with dynamic fixed point) interval marks of `n` layers;
+/// returns those and the tensors' part.
 #[allow(clippy::type_complexity)]
 fn split_state(
     arena: &mut [u32],
     state: Slot,
     n: usize,
+    dynamic: bool,
 ) -> Result<
     (
         &mut [LiveFracs],
@@ -161,7 +163,12 @@ fn split_state(
     let need = [
         n * words(core::mem::size_of::<LiveFracs>()),
         n * words(core::mem::size_of::<LayerStats>()),
-        n * words(core::mem::size_of::<[Tally; 4]>()),
+        // The interval marks exist only with dynamic fixed point.
+        if dynamic {
+            n * words(core::mem::size_of::<[Tally; 4]>())
+        } else {
+            0
+        },
     ];
     if state.words() < need.iter().sum::<usize>()
         || arena.len() < state.first_word() + state.words()
@@ -236,7 +243,8 @@ impl<'a> Trainer<'a> {
                 check_param(k, ParamTensor::Bias, p.bias, l.bias.value, g.biases)?;
             }
         }
-        let (live, stats, marks, arena) = split_state(arena, plan.state, n)?;
+        let (live, stats, marks, arena) =
+            split_state(arena, plan.state, n, desc.train.dynamic.is_some())?;
         for (f, l) in live.iter_mut().zip(desc.layers.iter()) {
             *f = LiveFracs {
                 out: l.out.frac,
@@ -329,7 +337,9 @@ impl<'a> Trainer<'a> {
                 .into_iter()
                 .enumerate()
             {
-                let Some(f) = f else { continue };
+                let Some(f) = f.filter(|_| MASTER_WEIGHTS) else {
+                    continue;
+                };
                 let len = src.raw.len() as u32;
                 let mut m = view_mut(m, f, len);
                 for i in 0..len as usize {
@@ -899,7 +909,7 @@ impl<'a> Trainer<'a> {
             samples: self.in_batch.max(1) as u32,
             mode: train.rounding.updates,
         };
-        let with_momentum = !train.momentum.is_zero();
+        let with_momentum = MOMENTUM && !train.momentum.is_zero();
         for k in 0..self.desc.layers.len() {
             let l = *self.layer(k);
             let s = self.plan.layers[k];
@@ -944,7 +954,10 @@ impl<'a> Trainer<'a> {
                 }
                 let acc_fmt = fmt_frac(pf.accum, acc_frac);
                 let mut value = view_mut(value, pf.value, slot.elems);
-                let mut master = pf.master.map(|m| view_mut(master, m, slot.elems));
+                let mut master = pf
+                    .master
+                    .filter(|_| MASTER_WEIGHTS)
+                    .map(|m| view_mut(master, m, slot.elems));
                 let mut accum = view_mut(accum, acc_fmt, slot.elems);
                 let mut mom = view_mut(mom, acc_fmt, slot.elems);
                 cfg.samples = self.in_batch.max(1) as u32;
@@ -970,7 +983,7 @@ impl<'a> Trainer<'a> {
         }
         self.in_batch = 0;
         self.updates = self.updates.saturating_add(1);
-        if let Some(rule) = train.dynamic {
+        if let Some(rule) = train.dynamic.filter(|_| DYNAMIC) {
             if self.updates.is_multiple_of(rule.interval as u32) {
                 self.adjust_fracs(rule);
             }

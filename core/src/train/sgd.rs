@@ -21,6 +21,7 @@
 //! With a learning rate of zero nothing is meant to move, and nothing is counted.
 //! Products that vanish while they are summed into `acc` are not updates and are not counted.
 
+use crate::features::{DECAY_CLIP, MASTER_WEIGHTS, MOMENTUM, STOCHASTIC};
 use crate::kernel::{add_sat, mul_wide, outer_half, Tally, WORD_I32, WORD_I8};
 use crate::layer::TensorMut;
 use crate::num::round::{
@@ -71,8 +72,16 @@ pub fn update(
     tally: &mut Tally,
     accum_tally: &mut Tally,
 ) {
+    // Parts this build leaves out are never read (see `crate::features`).
+    let mut t = t;
+    if !MASTER_WEIGHTS {
+        t.master = None;
+    }
+    if !MOMENTUM {
+        t.momentum = None;
+    }
     match Lean::of(&t, cfg) {
-        Some(lean) => lean.update(t, cfg.mode, rng, tally, accum_tally),
+        Some(lean) => lean.update(t, cfg.mode.built(), rng, tally, accum_tally),
         None => update_exact(t, cfg, rng, tally, accum_tally),
     }
 }
@@ -103,9 +112,10 @@ impl Lean {
     fn of(t: &UpdateTensors<'_, '_>, cfg: &UpdateConfig) -> Option<Lean> {
         let n = t.value.raw.len();
         let i32_of_len = |r: &RawMut<'_>| matches!(r, RawMut::I32(s) if s.len() == n);
-        let served = matches!(cfg.mode, Rounding::NearestEven | Rounding::Stochastic)
-            && cfg.decay.is_zero()
-            && cfg.clip.is_zero()
+        let served = matches!(
+            cfg.mode.built(),
+            Rounding::NearestEven | Rounding::Stochastic
+        ) && (!DECAY_CLIP || (cfg.decay.is_zero() && cfg.clip.is_zero()))
             && i32_of_len(&t.accum.raw)
             && t.momentum.as_deref().is_none_or(|m| i32_of_len(&m.raw))
             && t.master.as_deref().is_none_or(|m| i32_of_len(&m.raw));
@@ -156,7 +166,7 @@ impl Lean {
         macro_rules! by_mode {
             ($v:expr) => {
                 match mode {
-                    Rounding::Stochastic => {
+                    Rounding::Stochastic if STOCHASTIC => {
                         self.run::<_, Stochastic>($v, b, rng, tally, accum_tally)
                     }
                     _ => self.run::<_, NearestEven>($v, b, rng, tally, accum_tally),
@@ -274,7 +284,7 @@ struct Buffers<'s> {
 /// The clip bound in the accumulator's format, if clipping is on: a bound finer than one step
 /// of the accumulator would clip every gradient to zero, so it becomes one step instead.
 fn clip_bound(cfg: &UpdateConfig, fa: u32, acc_word: Word, rng: &mut Rng) -> Option<i64> {
-    if cfg.clip.is_zero() {
+    if !DECAY_CLIP || cfg.clip.is_zero() {
         return None;
     }
     let (c, _) = rescale(
@@ -303,14 +313,18 @@ pub fn update_exact(
     let clip = clip_bound(cfg, fa, acc_word, rng);
     let UpdateTensors {
         value,
-        mut master,
+        master,
         accum,
-        mut momentum,
+        momentum,
     } = t;
+    // Parts this build leaves out are never read (see `crate::features`).
+    let mut master = master.filter(|_| MASTER_WEIGHTS);
+    let mut momentum = momentum.filter(|_| MOMENTUM);
+    let mode = cfg.mode.built();
     let n = value.raw.len();
     for i in 0..n {
         let sum = accum.raw.at(i) as i64;
-        let mut g = div_round(sum, cfg.samples as i64, cfg.mode, rng);
+        let mut g = div_round(sum, cfg.samples as i64, mode, rng);
         accum.raw.put(i, 0);
         if let Some(c) = clip {
             g = g.clamp(-c, c);
@@ -319,12 +333,12 @@ pub fn update_exact(
             Some(m) => (m.raw.at(i) as i64, m.frac()),
             None => (value.raw.at(i) as i64, value.frac()),
         };
-        if !cfg.decay.is_zero() {
+        if DECAY_CLIP && !cfg.decay.is_zero() {
             let (d, _) = rescale(
                 cfg.decay.raw as i64 * w,
                 cfg.decay.frac as u32 + fw,
                 fa,
-                cfg.mode,
+                mode,
                 rng,
             );
             let (sum, sat) = add_sat(g, d);
@@ -340,7 +354,7 @@ pub fn update_exact(
                 cfg.momentum.raw as i64 * prev,
                 cfg.momentum.frac as u32 + fa,
                 fa,
-                cfg.mode,
+                mode,
                 rng,
             );
             let (v, sat) = acc_word.saturate(add_sat(decayed, g).0);
@@ -357,7 +371,7 @@ pub fn update_exact(
         }
         // |lr| < 2^31 and |g| ≤ 2^31, so the exact product fits in 63 bits.
         let exact = cfg.lr.raw as i64 * g;
-        let (delta, sat_delta) = rescale(exact, cfg.lr.frac as u32 + fa, fw, cfg.mode, rng);
+        let (delta, sat_delta) = rescale(exact, cfg.lr.frac as u32 + fa, fw, mode, rng);
         if (sum != 0 || exact != 0) && delta == 0 && !cfg.lr.is_zero() {
             tally.lost_updates = tally.lost_updates.saturating_add(1);
         }

@@ -142,6 +142,14 @@ pub enum DeviceError {
         #[source]
         source: toml::de::Error,
     },
+    /// A cargo profile of the boards' manifest is missing or has no usable `opt-level`.
+    #[error("{}: {detail}", path.display())]
+    Profile {
+        /// The manifest.
+        path: PathBuf,
+        /// What is wrong.
+        detail: String,
+    },
     /// The device's result differs from the host's.
     #[error("the {board} firmware did not end where the host did:\n{detail}")]
     Mismatch {

@@ -66,6 +66,7 @@ pub fn build_firmware_with(
         &boards_dir.join(board.name()),
         &format!("hone-{}", board.name()),
         session_dir.as_deref(),
+        RELEASE_PROFILE,
     )
 }
 
@@ -77,10 +78,32 @@ pub fn build_firmware_with(
 /// fails (with the end of the compiler's output), [`DeviceError::NoArtifact`] when cargo names
 /// no executable.
 pub fn build_bin(folder: &Path, bin: &str) -> Result<PathBuf, DeviceError> {
-    build_in(folder, bin, None)
+    build_in(folder, bin, None, RELEASE_PROFILE)
 }
 
-fn build_in(folder: &Path, bin: &str, session_dir: Option<&Path>) -> Result<PathBuf, DeviceError> {
+/// The cargo profile of the boards' speed builds: `[profile.release]` in `boards/Cargo.toml`
+/// (opt-level 3).
+pub const RELEASE_PROFILE: &str = "release";
+
+/// Builds the binary `bin` of the firmware crate in `folder` as [`build_bin`] does, in the
+/// cargo profile `profile` of `boards/Cargo.toml` (`--profile <profile>`).
+///
+/// # Errors
+/// As [`build_bin`].
+pub fn build_bin_in_profile(
+    folder: &Path,
+    bin: &str,
+    profile: &str,
+) -> Result<PathBuf, DeviceError> {
+    build_in(folder, bin, None, profile)
+}
+
+fn build_in(
+    folder: &Path,
+    bin: &str,
+    session_dir: Option<&Path>,
+    profile: &str,
+) -> Result<PathBuf, DeviceError> {
     let what = format!(
         "`{bin}` in {}",
         folder
@@ -92,7 +115,8 @@ fn build_in(folder: &Path, bin: &str, session_dir: Option<&Path>) -> Result<Path
     let mut cmd = Command::new(&cargo);
     cmd.args([
         "build",
-        "--release",
+        "--profile",
+        profile,
         "--message-format=json-render-diagnostics",
         "--bin",
         bin,

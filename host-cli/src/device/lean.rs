@@ -7,7 +7,7 @@ use std::path::Path;
 use std::time::Duration;
 
 use super::verify::{flash_figures, FlashFigures, VerifySummary};
-use super::{build_bin, run_qemu, DeviceError, QemuBoard};
+use super::{build_bin_in_profile, run_qemu, DeviceError, QemuBoard};
 
 // The lean firmware's session crate (`boards/lean-session`), compiled here with the core built
 // for the host (all features; the arithmetic of the kinds the lean build keeps is the same
@@ -16,6 +16,11 @@ use hone_lean_session as lean_session;
 
 /// The name the command line gives the lean build.
 pub const LEAN_BOARD: &str = "microbit-lean";
+
+/// The cargo profile of the lean build (`[profile.lean]` in `boards/Cargo.toml`): the release
+/// profile at opt-level `z`, since the lean build exists to be small (the README's "On the
+/// devices" gives the measured trade of each opt-level).
+pub const LEAN_PROFILE: &str = "lean";
 
 /// The QEMU board the lean build runs on.
 pub const LEAN_QEMU: QemuBoard = QemuBoard::Microbit;
@@ -91,10 +96,10 @@ impl LeanCheck {
 /// compares it with the host.
 ///
 /// # Errors
-/// Those of [`build_bin`] and [`run_qemu`]; [`DeviceError::LeanHost`] when the host's run of
+/// Those of [`build_bin_in_profile`] and [`run_qemu`]; [`DeviceError::LeanHost`] when the host's run of
 /// the session fails; [`DeviceError::Io`] or [`DeviceError::Elf`] for an unreadable image.
 pub fn verify_lean(boards_dir: &Path, timeout: Duration) -> Result<LeanCheck, DeviceError> {
-    let elf = build_bin(&boards_dir.join("lean"), "hone-lean")?;
+    let elf = build_bin_in_profile(&boards_dir.join("lean"), "hone-lean", LEAN_PROFILE)?;
     let out = run_qemu(LEAN_QEMU, &elf, timeout)?;
     let device = String::from_utf8_lossy(&out.stdout).into_owned();
 

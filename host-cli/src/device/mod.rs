@@ -42,7 +42,10 @@ pub use board::QemuBoard;
 pub use decode::LogLine;
 pub use elf::SectionSizes;
 pub use error::DeviceError;
-pub use firmware::{build_bin, build_firmware, build_firmware_with, default_boards_dir};
+pub use firmware::{
+    build_bin, build_bin_in_profile, build_firmware, build_firmware_with, default_boards_dir,
+    RELEASE_PROFILE,
+};
 pub use qemu::{run_qemu, QemuOutput};
 pub use report::Report;
 

@@ -368,37 +368,58 @@ pub struct VerifySummary {
     pub profile: String,
 }
 
-/// The `opt-level` of `[profile.release]` in the boards' `Cargo.toml` (the firmware is
-/// always built with `--release`), as written there: `3`, `s` or `z`; `3` when unset (cargo's
-/// default for release).
+/// The `opt-level` of the cargo profile `profile` in the boards' `Cargo.toml`, as written
+/// there (`3`, `s` or `z`), following `inherits`; cargo's defaults when unset (`3` for
+/// `release`, `0` for `dev`).
 ///
 /// # Errors
 /// [`DeviceError::Io`] when the file cannot be read, [`DeviceError::Manifest`] when it is not
-/// valid TOML.
-pub fn release_opt_level(boards_dir: &Path) -> Result<String, DeviceError> {
+/// valid TOML, [`DeviceError::Profile`] when the profile or one it inherits from is not there
+/// (or inherits in a circle).
+pub fn profile_opt_level(boards_dir: &Path, profile: &str) -> Result<String, DeviceError> {
     let path = boards_dir.join("Cargo.toml");
     let text = std::fs::read_to_string(&path).map_err(|source| DeviceError::Io {
         path: path.clone(),
         source,
     })?;
+    let bad = |detail: String| DeviceError::Profile {
+        path: path.clone(),
+        detail,
+    };
     let doc: toml::Table = text.parse().map_err(|source| DeviceError::Manifest {
         path: path.clone(),
         source,
     })?;
-    let level = doc
-        .get("profile")
-        .and_then(|p| p.get("release"))
-        .and_then(|r| r.get("opt-level"));
-    Ok(match level {
-        Some(toml::Value::Integer(n)) => n.to_string(),
-        Some(toml::Value::String(s)) => s.clone(),
-        _ => "3".to_owned(),
-    })
+    let profiles = doc.get("profile");
+    let mut name = profile.to_owned();
+    // Cargo's own profiles need not be written; a chain longer than the table is a circle.
+    for _ in 0..=profiles
+        .and_then(toml::Value::as_table)
+        .map_or(0, |t| t.len())
+    {
+        let table = profiles.and_then(|p| p.get(&name));
+        match table.and_then(|t| t.get("opt-level")) {
+            Some(toml::Value::Integer(n)) => return Ok(n.to_string()),
+            Some(toml::Value::String(s)) => return Ok(s.clone()),
+            Some(other) => return Err(bad(format!("profile.{name}.opt-level is {other}"))),
+            None => {}
+        }
+        match table
+            .and_then(|t| t.get("inherits"))
+            .and_then(toml::Value::as_str)
+        {
+            Some(parent) => name = parent.to_owned(),
+            None if name == "release" || name == "bench" => return Ok("3".to_owned()),
+            None if name == "dev" || name == "test" => return Ok("0".to_owned()),
+            None => return Err(bad(format!("no [profile.{name}] with an opt-level"))),
+        }
+    }
+    Err(bad(format!("profile `{profile}` inherits in a circle")))
 }
 
 impl SessionCheck {
     /// The flat record of [`VerifySummary`], with the build's `profile` (see
-    /// [`release_opt_level`]).
+    /// [`profile_opt_level`]).
     #[must_use]
     pub fn summary(&self, profile: &str) -> VerifySummary {
         let m = &self.measures;
@@ -1388,24 +1409,42 @@ mod tests {
     }
 
     #[test]
-    fn the_release_opt_level_is_read_from_the_manifest() {
+    fn the_opt_level_is_read_from_the_manifest() {
         let dir = tempfile::tempdir().expect("temp dir");
         let manifest = dir.path().join("Cargo.toml");
-        for (text, want) in [
-            ("[profile.release]\nopt-level = 3\n", "3"),
-            ("[profile.release]\nopt-level = \"z\"\n", "z"),
+        let lean = "[profile.lean]\ninherits = \"release\"\nopt-level = \"z\"\n";
+        let bare = "[profile.lean]\ninherits = \"release\"\n";
+        for (text, profile, want) in [
+            ("[profile.release]\nopt-level = 3\n", "release", "3"),
+            ("[profile.release]\nopt-level = \"z\"\n", "release", "z"),
             // Cargo's default for release builds.
-            ("[workspace]\n", "3"),
+            ("[workspace]\n", "release", "3"),
+            (lean, "lean", "z"),
+            (lean, "release", "3"),
+            // A custom profile without its own opt-level takes its parent's.
+            (bare, "lean", "3"),
         ] {
             std::fs::write(&manifest, text).expect("write");
             assert_eq!(
-                release_opt_level(dir.path()).expect("parses"),
+                profile_opt_level(dir.path(), profile).expect("parses"),
                 want,
-                "{text}"
+                "{text} {profile}"
             );
         }
-        std::fs::write(&manifest, "[profile.release\n").expect("write");
-        assert!(release_opt_level(dir.path()).is_err());
+        for (text, profile) in [
+            ("[profile.release\n", "release"),
+            ("[workspace]\n", "lean"),
+            (
+                "[profile.a]\ninherits = \"b\"\n[profile.b]\ninherits = \"a\"\n",
+                "a",
+            ),
+        ] {
+            std::fs::write(&manifest, text).expect("write");
+            assert!(
+                profile_opt_level(dir.path(), profile).is_err(),
+                "{text} {profile}"
+            );
+        }
     }
 
     #[test]
