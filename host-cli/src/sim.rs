@@ -109,6 +109,13 @@ pub enum SimError {
     Engine(#[from] hone_core::Error),
 }
 
+impl SimError {
+    /// Wraps the core's refusal of the `side` (`fixed-point` or `float`) start.
+    fn start(side: &'static str) -> impl FnOnce(hone_core::Error) -> SimError {
+        move |source| SimError::Start { side, source }
+    }
+}
+
 impl OwnedRaw {
     /// Quantizes `values` to nearest (ties to even), saturating. Returns the tensor and the
     /// number of values that saturated.
@@ -778,15 +785,9 @@ pub fn run_side_by_side(
         .map(|(w, b)| FloatParams { weight: w, bias: b })
         .collect();
     let mut fixed =
-        Trainer::new(desc, &plan, &mut arena, &views).map_err(|source| SimError::Start {
-            side: "fixed-point",
-            source,
-        })?;
+        Trainer::new(desc, &plan, &mut arena, &views).map_err(SimError::start("fixed-point"))?;
     let mut float =
-        Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|source| SimError::Start {
-            side: "float",
-            source,
-        })?;
+        Twin::new(desc, &fplan, &mut farena, &fviews).map_err(SimError::start("float"))?;
     let in_fmt = desc.input_format;
     let total = opts.epochs as u64 * train.len() as u64;
     let mut done = 0u64;
@@ -991,15 +992,8 @@ pub fn evaluate_pair(
         .map(|(w, b)| FloatParams { weight: w, bias: b })
         .collect();
     let mut tq =
-        Trainer::new(desc, &plan, &mut arena, &views).map_err(|source| SimError::Start {
-            side: "fixed-point",
-            source,
-        })?;
-    let mut tf =
-        Twin::new(desc, &fplan, &mut farena, &fviews).map_err(|source| SimError::Start {
-            side: "float",
-            source,
-        })?;
+        Trainer::new(desc, &plan, &mut arena, &views).map_err(SimError::start("fixed-point"))?;
+    let mut tf = Twin::new(desc, &fplan, &mut farena, &fviews).map_err(SimError::start("float"))?;
     evaluate_both(&mut tq, &mut tf, data, desc.input_format)
 }
 

@@ -1704,6 +1704,24 @@ fn malformed_cases(fx: &Fixtures) -> Vec<Case> {
             ])
             .stderr(&["--lr: 0.000000000001 rounds to zero"])
             .absent(&["sweep"]),
+        case("sweep-frozen-mode")
+            .file("model.json", fx.soil_model.clone())
+            .args(&[
+                "sweep", "--config", &soil, "--model", "in/model.json", "--train", &cal,
+                "--eval", &hold, "--mode", "full,frozen", "--epochs", "1", "--out", "out/sweep",
+            ])
+            .stderr(&["--mode: frozen trains nothing; use full, bias-only or weights-only"])
+            .absent(&["sweep"]),
+        // The spelling `hone inspect` once printed is not a rounding name; the message lists
+        // the names the config and the sweep share.
+        case("sweep-rounding-underscore")
+            .file("model.json", fx.soil_model.clone())
+            .args(&[
+                "sweep", "--config", &soil, "--model", "in/model.json", "--train", &cal,
+                "--eval", &hold, "--rounding", "nearest_even", "--out", "out/sweep",
+            ])
+            .stderr(&["`nearest_even` is not a rounding; use nearest-even, toward-zero or stochastic"])
+            .absent(&["sweep"]),
         case("drift-zero-epochs")
             .file("model.json", fx.soil_model.clone())
             .args(&[
