@@ -33,6 +33,11 @@
 //!   [`Dataset::load_with_classes`] takes that list; a label outside it is an error naming its
 //!   line.
 //!
+//! # Storage
+//! A dataset keeps its feature values, and its regression targets, as [`Rows`]: one `f64`
+//! table each, row after row, so a row costs 8 bytes per value and nothing more. Class labels
+//! are `u16` indices, found as the file is read; the text of a label is not kept.
+//!
 //! # Scaling
 //! [`Scaling`] fits one offset and gain per input channel ([`ChannelScale`]:
 //! `x = (raw − offset) · gain`), and [`apply`] applies them. [`split`] divides a dataset into
