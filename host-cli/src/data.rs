@@ -165,8 +165,11 @@ impl Rows {
     }
 
     /// The rows in order.
-    pub fn iter(&self) -> impl DoubleEndedIterator<Item = &[f64]> + ExactSizeIterator + '_ {
-        (0..self.len).map(move |i| &self[i])
+    pub fn iter(&self) -> RowsIter<'_> {
+        RowsIter {
+            rows: self,
+            next: 0..self.len,
+        }
     }
 
     /// Every value, row after row.
@@ -217,6 +220,42 @@ impl std::ops::IndexMut<usize> for Rows {
         &mut self.values[i * self.width..(i + 1) * self.width]
     }
 }
+
+impl<'a> IntoIterator for &'a Rows {
+    type Item = &'a [f64];
+    type IntoIter = RowsIter<'a>;
+
+    fn into_iter(self) -> RowsIter<'a> {
+        self.iter()
+    }
+}
+
+/// The rows of a [`Rows`] table in order, from [`Rows::iter`].
+#[derive(Clone, Debug)]
+pub struct RowsIter<'a> {
+    rows: &'a Rows,
+    next: std::ops::Range<usize>,
+}
+
+impl<'a> Iterator for RowsIter<'a> {
+    type Item = &'a [f64];
+
+    fn next(&mut self) -> Option<&'a [f64]> {
+        self.next.next().map(|i| &self.rows[i])
+    }
+
+    fn size_hint(&self) -> (usize, Option<usize>) {
+        self.next.size_hint()
+    }
+}
+
+impl DoubleEndedIterator for RowsIter<'_> {
+    fn next_back(&mut self) -> Option<Self::Item> {
+        self.next.next_back().map(|i| &self.rows[i])
+    }
+}
+
+impl ExactSizeIterator for RowsIter<'_> {}
 
 /// The targets of a dataset, one entry per row.
 #[derive(Clone, Debug, PartialEq)]
@@ -1903,7 +1942,7 @@ mod tests {
         assert_eq!((count(&hold, 0), count(&hold, 1)), (20, 5));
         assert_eq!((count(&train, 0), count(&train, 1)), (60, 15));
         // Every row lands in exactly one part, in file order.
-        let mut all: Vec<f64> = train.x.iter().chain(hold.x.iter()).map(|r| r[0]).collect();
+        let mut all: Vec<f64> = train.x.iter().chain(&hold.x).map(|r| r[0]).collect();
         assert!(train.x.values().windows(2).all(|w| w[0] < w[1]));
         all.sort_by(f64::total_cmp);
         assert_eq!(all, (0..100).map(f64::from).collect::<Vec<_>>());

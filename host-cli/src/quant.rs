@@ -175,7 +175,7 @@ fn activation_ranges(
     let shapes =
         hone_core::model::shapes(desc.input, &desc.layers, desc.loss).map_err(|e| e.to_string())?;
     let mut max = vec![0f64; desc.layers.len()];
-    for row in data.x.iter() {
+    for row in &data.x {
         let mut x = row.to_vec();
         for (k, l) in desc.layers.iter().enumerate() {
             let g = shapes.layers[k];
