@@ -176,7 +176,7 @@ fn activation_ranges(
         hone_core::model::shapes(desc.input, &desc.layers, desc.loss).map_err(|e| e.to_string())?;
     let mut max = vec![0f64; desc.layers.len()];
     for row in &data.x {
-        let mut x = row.clone();
+        let mut x = row.to_vec();
         for (k, l) in desc.layers.iter().enumerate() {
             let g = shapes.layers[k];
             let mut y = vec![0f64; g.output.size() as usize];
