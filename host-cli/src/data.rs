@@ -33,6 +33,11 @@
 //!   [`Dataset::load_with_classes`] takes that list; a label outside it is an error naming its
 //!   line.
 //!
+//! # Storage
+//! A dataset keeps its feature values, and its regression targets, as [`Rows`]: one `f64`
+//! table each, row after row, so a row costs 8 bytes per value and nothing more. Class labels
+//! are `u16` indices, found as the file is read; the text of a label is not kept.
+//!
 //! # Scaling
 //! [`Scaling`] fits one offset and gain per input channel ([`ChannelScale`]:
 //! `x = (raw − offset) · gain`), and [`apply`] applies them. [`split`] divides a dataset into
@@ -85,6 +90,173 @@ pub struct DataSpec {
     pub task: Task,
 }
 
+/// Rows of `f64` values, all of one width, stored one after another in a single vector: a
+/// row costs `8 · width` bytes and nothing more, where a vector per row would add its own
+/// header and allocation. Row `i` is `rows[i]` or [`Rows::row`].
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Rows {
+    width: usize,
+    len: usize,
+    values: Vec<f64>,
+}
+
+impl Rows {
+    /// No rows of `width` values.
+    pub fn new(width: usize) -> Rows {
+        Rows {
+            width,
+            len: 0,
+            values: Vec::new(),
+        }
+    }
+
+    /// No rows of `width` values, with room for `rows` of them.
+    pub fn with_capacity(width: usize, rows: usize) -> Rows {
+        Rows {
+            width,
+            len: 0,
+            values: Vec::with_capacity(width.saturating_mul(rows)),
+        }
+    }
+
+    /// The given rows, each of `width` values.
+    ///
+    /// # Panics
+    /// If a row's length is not `width`: a mistake of the calling code, not of input data.
+    pub fn from_rows<R: AsRef<[f64]>>(width: usize, rows: impl IntoIterator<Item = R>) -> Rows {
+        let mut out = Rows::new(width);
+        for r in rows {
+            out.push(r.as_ref());
+        }
+        out
+    }
+
+    /// Appends a row.
+    ///
+    /// # Panics
+    /// If `row.len()` is not the width: a mistake of the calling code, not of input data.
+    pub fn push(&mut self, row: &[f64]) {
+        assert_eq!(row.len(), self.width, "a row of {} values", self.width);
+        self.values.extend_from_slice(row);
+        self.len += 1;
+    }
+
+    /// Values per row.
+    pub fn width(&self) -> usize {
+        self.width
+    }
+
+    /// Number of rows.
+    pub fn len(&self) -> usize {
+        self.len
+    }
+
+    /// Whether there are no rows.
+    pub fn is_empty(&self) -> bool {
+        self.len == 0
+    }
+
+    /// Row `i`.
+    ///
+    /// # Panics
+    /// If `i` is past the end.
+    pub fn row(&self, i: usize) -> &[f64] {
+        &self[i]
+    }
+
+    /// The rows in order.
+    pub fn iter(&self) -> RowsIter<'_> {
+        RowsIter {
+            rows: self,
+            next: 0..self.len,
+        }
+    }
+
+    /// Every value, row after row.
+    pub fn values(&self) -> &[f64] {
+        &self.values
+    }
+
+    /// The given rows, in that order.
+    ///
+    /// # Panics
+    /// If an index is past the end.
+    pub fn select(&self, rows: &[usize]) -> Rows {
+        let mut out = Rows::with_capacity(self.width, rows.len());
+        for &r in rows {
+            out.push(&self[r]);
+        }
+        out
+    }
+
+    /// The first `n` rows (all of them if there are fewer).
+    pub fn head(&self, n: usize) -> Rows {
+        let n = n.min(self.len);
+        Rows {
+            width: self.width,
+            len: n,
+            values: self.values[..n * self.width].to_vec(),
+        }
+    }
+
+    /// Gives back the room reserved beyond the rows held.
+    pub fn shrink_to_fit(&mut self) {
+        self.values.shrink_to_fit();
+    }
+}
+
+impl std::ops::Index<usize> for Rows {
+    type Output = [f64];
+
+    fn index(&self, i: usize) -> &[f64] {
+        assert!(i < self.len, "row {i} of {}", self.len);
+        &self.values[i * self.width..(i + 1) * self.width]
+    }
+}
+
+impl std::ops::IndexMut<usize> for Rows {
+    fn index_mut(&mut self, i: usize) -> &mut [f64] {
+        assert!(i < self.len, "row {i} of {}", self.len);
+        &mut self.values[i * self.width..(i + 1) * self.width]
+    }
+}
+
+impl<'a> IntoIterator for &'a Rows {
+    type Item = &'a [f64];
+    type IntoIter = RowsIter<'a>;
+
+    fn into_iter(self) -> RowsIter<'a> {
+        self.iter()
+    }
+}
+
+/// The rows of a [`Rows`] table in order, from [`Rows::iter`].
+#[derive(Clone, Debug)]
+pub struct RowsIter<'a> {
+    rows: &'a Rows,
+    next: std::ops::Range<usize>,
+}
+
+impl<'a> Iterator for RowsIter<'a> {
+    type Item = &'a [f64];
+
+    fn next(&mut self) -> Option<&'a [f64]> {
+        self.next.next().map(|i| &self.rows[i])
+    }
+
+    fn size_hint(&self) -> (usize, Option<usize>) {
+        self.next.size_hint()
+    }
+}
+
+impl DoubleEndedIterator for RowsIter<'_> {
+    fn next_back(&mut self) -> Option<Self::Item> {
+        self.next.next_back().map(|i| &self.rows[i])
+    }
+}
+
+impl ExactSizeIterator for RowsIter<'_> {}
+
 /// The targets of a dataset, one entry per row.
 #[derive(Clone, Debug, PartialEq)]
 pub enum Targets {
@@ -93,7 +265,7 @@ pub enum Targets {
         /// Target column names, in the order of `y`'s entries.
         names: Vec<String>,
         /// Per row, one value per target column.
-        y: Vec<Vec<f64>>,
+        y: Rows,
     },
     /// Class labels.
     Classes {
@@ -139,7 +311,7 @@ impl Targets {
         match self {
             Targets::Values { names, y } => Targets::Values {
                 names: names.clone(),
-                y: rows.iter().map(|&r| y[r].clone()).collect(),
+                y: y.select(rows),
             },
             Targets::Classes { names, labels } => Targets::Classes {
                 names: names.clone(),
@@ -157,7 +329,7 @@ pub struct Dataset {
     /// Feature column names, in the order of each row of `x`.
     pub features: Vec<String>,
     /// Per row, the feature values.
-    pub x: Vec<Vec<f64>>,
+    pub x: Rows,
     /// The targets.
     pub target: Targets,
 }
@@ -569,7 +741,7 @@ impl Dataset {
         Dataset {
             source: self.source.clone(),
             features: self.features.clone(),
-            x: rows.iter().map(|&r| self.x[r].clone()).collect(),
+            x: self.x.select(rows),
             target: self.target.select(rows),
         }
     }
@@ -849,9 +1021,11 @@ impl<'a> Loader<'a> {
         let cols = self.columns(header, header_line)?;
         let width = cols.header.len();
 
-        let mut x = Vec::new();
-        let mut values: Vec<Vec<f64>> = Vec::new();
-        let mut labels: Vec<(u64, String)> = Vec::new();
+        let mut x = Rows::new(cols.features.len());
+        let mut values = Rows::new(cols.targets.len());
+        let mut labels = Labels::new(self.classes);
+        // One row's values, reused from line to line.
+        let mut row: Vec<f64> = Vec::with_capacity(cols.features.len().max(cols.targets.len()));
         while reader.read_byte_record(&mut record).map_err(csv_err)? {
             let line = line_at(record.position());
             if blank(&record) {
@@ -867,18 +1041,18 @@ impl<'a> Loader<'a> {
                 });
             }
             let field = |i: usize| self.text(&record, i, line, &cols.header[i]);
-            let mut row = Vec::with_capacity(cols.features.len());
+            row.clear();
             for &i in &cols.features {
                 row.push(parse_number(self.path, line, &cols.header[i], field(i)?)?);
             }
-            x.push(row);
+            x.push(&row);
             match self.spec.task {
                 Task::Regression => {
-                    let mut y = Vec::with_capacity(cols.targets.len());
+                    row.clear();
                     for &i in &cols.targets {
-                        y.push(parse_number(self.path, line, &cols.header[i], field(i)?)?);
+                        row.push(parse_number(self.path, line, &cols.header[i], field(i)?)?);
                     }
-                    values.push(y);
+                    values.push(&row);
                 }
                 Task::Classification => {
                     let i = cols.targets[0];
@@ -890,10 +1064,12 @@ impl<'a> Loader<'a> {
                             column: cols.header[i].clone(),
                         });
                     }
-                    labels.push((line, text.to_string()));
+                    labels.push(line, text);
                 }
             }
         }
+        x.shrink_to_fit();
+        values.shrink_to_fit();
         if x.is_empty() {
             return Err(DataError::NoRows {
                 path: self.err_path(),
@@ -908,7 +1084,7 @@ impl<'a> Loader<'a> {
                     .collect(),
                 y: values,
             },
-            Task::Classification => self.classes_of(&cols.header[cols.targets[0]], &labels)?,
+            Task::Classification => self.classes_of(&cols.header[cols.targets[0]], labels)?,
         };
         Ok(Dataset {
             source: self.err_path(),
@@ -988,61 +1164,125 @@ impl<'a> Loader<'a> {
         Ok(header)
     }
 
-    fn classes_of(&self, column: &str, labels: &[(u64, String)]) -> Result<Targets, DataError> {
-        let names: Vec<String> = match self.classes {
-            Some(given) => given.to_vec(),
-            None => {
-                let mut found: Vec<String> = Vec::new();
-                let mut seen: HashMap<String, ()> = HashMap::new();
-                for (_, l) in labels {
-                    let c = canonical_label(l);
-                    if seen.insert(c.clone(), ()).is_none() {
-                        found.push(c);
-                        if found.len() > MAX_CLASSES {
-                            return Err(DataError::TooManyClasses {
-                                path: self.err_path(),
-                                column: column.to_string(),
-                            });
-                        }
-                    }
-                }
-                let ints: Option<Vec<i64>> = found.iter().map(|s| s.parse().ok()).collect();
-                if let Some(mut ints) = ints {
-                    ints.sort_unstable();
-                    found = ints.iter().map(i64::to_string).collect();
-                }
-                if found.len() == 1 {
-                    return Err(DataError::SingleClass {
-                        path: self.err_path(),
-                        column: column.to_string(),
-                        class: found.swap_remove(0),
-                    });
-                }
-                found
-            }
-        };
-        let index: HashMap<String, u16> = names
+    fn classes_of(&self, column: &str, labels: Labels) -> Result<Targets, DataError> {
+        let Labels {
+            mut ids,
+            known,
+            found,
+            too_many,
+            unknown,
+            ..
+        } = labels;
+        if let Some((line, value)) = unknown {
+            return Err(DataError::UnknownClass {
+                path: self.err_path(),
+                line,
+                column: column.to_string(),
+                value,
+                known: known.unwrap_or_default(),
+            });
+        }
+        if let Some(names) = known {
+            // The ids are already indices into the given list.
+            return Ok(Targets::Classes { names, labels: ids });
+        }
+        if too_many {
+            return Err(DataError::TooManyClasses {
+                path: self.err_path(),
+                column: column.to_string(),
+            });
+        }
+        // `found` holds the canonical labels in order of first appearance, and `ids` index it.
+        let mut names = found.clone();
+        let ints: Option<Vec<i64>> = names.iter().map(|s| s.parse().ok()).collect();
+        if let Some(mut ints) = ints {
+            ints.sort_unstable();
+            names = ints.iter().map(i64::to_string).collect();
+        }
+        if names.len() == 1 {
+            return Err(DataError::SingleClass {
+                path: self.err_path(),
+                column: column.to_string(),
+                class: names.swap_remove(0),
+            });
+        }
+        let index: HashMap<&str, u16> = names
             .iter()
             .enumerate()
             // At most MAX_CLASSES names, checked above, so every index fits a u16.
+            .map(|(i, n)| (n.as_str(), i as u16))
+            .collect();
+        // Both lists hold the same canonical labels, so every one is found.
+        let to_final: Vec<u16> = found.iter().map(|n| index[n.as_str()]).collect();
+        for id in &mut ids {
+            *id = to_final[usize::from(*id)];
+        }
+        Ok(Targets::Classes { names, labels: ids })
+    }
+}
+
+/// The class labels of a classification file while it is read: per row a `u16` id, not the
+/// label's text. With the model's class list the id is the label's index in it; without, it
+/// is the index in `found`, the canonical labels in order of first appearance, and
+/// [`Loader::classes_of`] maps it to the final class order once the file is read. Errors that
+/// only the whole file decides (an unknown class, too many classes) are kept for the end, so
+/// that a malformed number on a later line is reported first, as for any file.
+struct Labels {
+    ids: Vec<u16>,
+    /// The model's classes, when given.
+    known: Option<Vec<String>>,
+    /// Canonical label to id.
+    index: HashMap<String, u16>,
+    /// Without a class list: canonical labels in order of first appearance.
+    found: Vec<String>,
+    /// More than [`MAX_CLASSES`] distinct labels were seen.
+    too_many: bool,
+    /// The first label not in the model's classes: line and label, cut to a readable length.
+    unknown: Option<(u64, String)>,
+}
+
+impl Labels {
+    fn new(classes: Option<&[String]>) -> Labels {
+        let index = classes
+            .unwrap_or_default()
+            .iter()
+            .enumerate()
+            // The loader checked that a given list has at most MAX_CLASSES entries.
             .map(|(i, n)| (canonical_label(n), i as u16))
             .collect();
-        let mut out = Vec::with_capacity(labels.len());
-        for (line, l) in labels {
-            match index.get(&canonical_label(l)) {
-                Some(&i) => out.push(i),
-                None => {
-                    return Err(DataError::UnknownClass {
-                        path: self.err_path(),
-                        line: *line,
-                        column: column.to_string(),
-                        value: crate::fsutil::echo(l, ECHO_CHARS),
-                        known: names.clone(),
-                    })
-                }
-            }
+        Labels {
+            ids: Vec::new(),
+            known: classes.map(<[String]>::to_vec),
+            index,
+            found: Vec::new(),
+            too_many: false,
+            unknown: None,
         }
-        Ok(Targets::Classes { names, labels: out })
+    }
+
+    fn push(&mut self, line: u64, text: &str) {
+        let c = canonical_label(text);
+        let id = match self.index.get(&c) {
+            Some(&id) => id,
+            None if self.known.is_some() => {
+                if self.unknown.is_none() {
+                    self.unknown = Some((line, crate::fsutil::echo(text, ECHO_CHARS)));
+                }
+                0
+            }
+            None if self.found.len() == MAX_CLASSES => {
+                self.too_many = true;
+                0
+            }
+            None => {
+                // Fewer than MAX_CLASSES so far, so the new id fits a u16.
+                let id = self.found.len() as u16;
+                self.found.push(c.clone());
+                self.index.insert(c, id);
+                id
+            }
+        };
+        self.ids.push(id);
     }
 }
 
@@ -1139,7 +1379,7 @@ fn check_channels(data: &Dataset, channels: usize) -> Result<(), DataError> {
 /// two that brings the largest magnitude below 1, which is exact, so the result equals the
 /// direct computation (same order of summation) whenever that one does not overflow. `None`
 /// for no values.
-fn mean_std(rows: &[Vec<f64>], cols: &std::ops::Range<usize>) -> Option<(f64, f64)> {
+fn mean_std(rows: &Rows, cols: &std::ops::Range<usize>) -> Option<(f64, f64)> {
     let count = rows.len() * cols.len();
     if count == 0 {
         return None;
@@ -1247,7 +1487,8 @@ pub fn apply(scales: &[ChannelScale], data: &mut Dataset) -> Result<(), DataErro
     }
     check_channels(data, scales.len())?;
     let len = data.features.len() / scales.len();
-    for row in &mut data.x {
+    for r in 0..data.x.len() {
+        let row = &mut data.x[r];
         for (c, s) in scales.iter().enumerate() {
             let (offset, gain) = (f64::from(s.offset), f64::from(s.gain));
             for v in &mut row[c * len..(c + 1) * len] {
@@ -1341,14 +1582,82 @@ mod tests {
         )
         .unwrap();
         assert_eq!(d.features, ["raw", "temp"]);
-        assert_eq!(d.x, vec![vec![1647.0, 7.16], vec![2316.0, 32.64]]);
+        assert_eq!(d.x, Rows::from_rows(2, [[1647.0, 7.16], [2316.0, 32.64]]));
+        assert_eq!(d.x.values(), [1647.0, 7.16, 2316.0, 32.64]);
         assert_eq!(
             d.target,
             Targets::Values {
                 names: vec!["vwc".into()],
-                y: vec![vec![0.3841], vec![0.14]]
+                y: Rows::from_rows(1, [[0.3841], [0.14]])
             }
         );
+    }
+
+    #[test]
+    fn rows_hold_their_values_row_after_row() {
+        let mut r = Rows::with_capacity(3, 2);
+        assert!(r.is_empty());
+        r.push(&[1.0, 2.0, 3.0]);
+        r.push(&[4.0, 5.0, 6.0]);
+        r.push(&[7.0, 8.0, 9.0]);
+        assert_eq!((r.width(), r.len()), (3, 3));
+        assert_eq!(r.row(1), [4.0, 5.0, 6.0]);
+        r[2][0] = -7.0;
+        assert_eq!(r.values(), [1.0, 2.0, 3.0, 4.0, 5.0, 6.0, -7.0, 8.0, 9.0]);
+        let picked = r.select(&[2, 0, 2]);
+        assert_eq!(
+            picked,
+            Rows::from_rows(3, [[-7.0, 8.0, 9.0], [1.0, 2.0, 3.0], [-7.0, 8.0, 9.0]])
+        );
+        assert_eq!(
+            r.head(2),
+            Rows::from_rows(3, [[1.0, 2.0, 3.0], [4.0, 5.0, 6.0]])
+        );
+        assert_eq!(r.head(9), r);
+        assert_eq!(r.iter().next_back(), Some(&[-7.0, 8.0, 9.0][..]));
+        // Rows of no values still count.
+        let empty = Rows::from_rows(0, [[0.0; 0]; 4]);
+        assert_eq!((empty.len(), empty.iter().count()), (4, 4));
+        assert!(empty.iter().all(<[f64]>::is_empty));
+    }
+
+    #[test]
+    fn class_errors_come_after_a_bad_number_on_a_later_line() {
+        // Labels are turned into ids while the file is read, but a class error, which only
+        // the whole file decides, is still reported after any malformed number, as when the
+        // labels were kept as text to the end.
+        let classes: Vec<String> = ["0", "1"].iter().map(|s| s.to_string()).collect();
+        let s = spec("zone", &[], Task::Classification);
+        let text = b"a,zone\n1,7\n2,8\nx,1\n";
+        let e = Dataset::from_bytes(Path::new("c.csv"), text, &s, Some(&classes)).unwrap_err();
+        assert!(matches!(e, DataError::NotNumber { line: 4, .. }), "{e}");
+        let e =
+            Dataset::from_bytes(Path::new("c.csv"), &text[..15], &s, Some(&classes)).unwrap_err();
+        assert!(
+            matches!(&e, DataError::UnknownClass { line: 2, value, .. } if value == "7"),
+            "{e}"
+        );
+    }
+
+    #[test]
+    fn more_classes_than_a_u16_numbers_are_refused() {
+        let s = spec("k", &[], Task::Classification);
+        let mut text = String::from("a,k\n");
+        for i in 0..MAX_CLASSES {
+            text.push_str(&format!("1,c{i}\n"));
+        }
+        let d = load(&text, &s).unwrap();
+        let Targets::Classes { names, labels } = &d.target else {
+            panic!("classification targets expected")
+        };
+        assert_eq!(
+            (names.len(), labels[MAX_CLASSES - 1]),
+            (MAX_CLASSES, u16::MAX)
+        );
+        assert_eq!(names[MAX_CLASSES - 1], format!("c{}", MAX_CLASSES - 1));
+        text.push_str("1,one-more\n");
+        let e = load(&text, &s).unwrap_err();
+        assert!(matches!(e, DataError::TooManyClasses { .. }), "{e}");
     }
 
     #[test]
@@ -1373,7 +1682,7 @@ mod tests {
         };
         let d = load("a,b,c,y,z\n1,2,x,3,4\n", &s).unwrap();
         assert_eq!(d.features, ["b", "a"]);
-        assert_eq!(d.x, vec![vec![2.0, 1.0]]);
+        assert_eq!(d.x, Rows::from_rows(2, [[2.0, 1.0]]));
         assert_eq!(d.target.outputs(), 2);
     }
 
@@ -1471,10 +1780,10 @@ mod tests {
         Dataset {
             source: PathBuf::from("m.csv"),
             features: features.iter().map(|s| s.to_string()).collect(),
-            x,
+            x: Rows::from_rows(features.len(), x),
             target: Targets::Values {
                 names: vec!["y".into()],
-                y: vec![vec![0.0]; n],
+                y: Rows::from_rows(1, vec![[0.0]; n]),
             },
         }
     }
@@ -1516,14 +1825,14 @@ mod tests {
     fn statistics_of_huge_values_do_not_overflow() {
         // The direct sums of squares would reach 1e600: beyond f64, so the spread was taken
         // as infinite and the channel as constant. Scaled by a power of two they stay exact.
-        let rows = vec![vec![1e300], vec![-1e300], vec![3e300], vec![-3e300]];
+        let rows = Rows::from_rows(1, [[1e300], [-1e300], [3e300], [-3e300]]);
         let (mean, std) = mean_std(&rows, &(0..1)).unwrap();
         assert_eq!(mean, 0.0);
         // Population variance (1 + 1 + 9 + 9) / 4 = 5, times 1e600.
         let want = 5f64.sqrt() * 1e300;
         assert!((std - want).abs() <= 1e-15 * want, "{std} vs {want}");
         // For ordinary values the result is that of the direct computation, bit for bit.
-        let rows = vec![vec![1647.0], vec![2316.0], vec![1980.5], vec![2104.25]];
+        let rows = Rows::from_rows(1, [[1647.0], [2316.0], [1980.5], [2104.25]]);
         let direct_mean = (1647.0 + 2316.0 + 1980.5 + 2104.25) / 4.0;
         let direct_var = rows
             .iter()
@@ -1534,7 +1843,7 @@ mod tests {
             mean_std(&rows, &(0..1)),
             Some((direct_mean, direct_var.sqrt()))
         );
-        assert_eq!(mean_std(&[], &(0..1)), None);
+        assert_eq!(mean_std(&Rows::new(1), &(0..1)), None);
     }
 
     #[test]
@@ -1613,7 +1922,7 @@ mod tests {
         Dataset {
             source: PathBuf::from("k.csv"),
             features: vec!["a".into()],
-            x: (0..labels.len()).map(|i| vec![i as f64]).collect(),
+            x: Rows::from_rows(1, (0..labels.len()).map(|i| [i as f64])),
             target: Targets::Classes {
                 names: (0..names).map(|i| i.to_string()).collect(),
                 labels: labels.to_vec(),
@@ -1634,7 +1943,7 @@ mod tests {
         assert_eq!((count(&train, 0), count(&train, 1)), (60, 15));
         // Every row lands in exactly one part, in file order.
         let mut all: Vec<f64> = train.x.iter().chain(&hold.x).map(|r| r[0]).collect();
-        assert!(train.x.windows(2).all(|w| w[0][0] < w[1][0]));
+        assert!(train.x.values().windows(2).all(|w| w[0] < w[1]));
         all.sort_by(f64::total_cmp);
         assert_eq!(all, (0..100).map(f64::from).collect::<Vec<_>>());
         assert_eq!(split(&d, 0.25, 9).unwrap(), (train.clone(), hold.clone()));

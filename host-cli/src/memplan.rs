@@ -1820,7 +1820,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_code_bytes: 100352,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 128,
-        insn_per_sample: 14443,
+        insn_per_sample: 14432,
     },
     MeasuredOverhead {
         board: "microbit",
@@ -1831,7 +1831,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_code_bytes: 104448,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 168,
-        insn_per_sample: 22304,
+        insn_per_sample: 22317,
     },
     MeasuredOverhead {
         board: "mps2-an386",
@@ -1842,7 +1842,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_code_bytes: 100352,
         firmware_static_bytes: 28,
         firmware_stack_bytes: 128,
-        insn_per_sample: 14435,
+        insn_per_sample: 14424,
     },
     MeasuredOverhead {
         board: "sifive-e",
@@ -1853,7 +1853,7 @@ pub const MEASURED_OVERHEADS: [MeasuredOverhead; 4] = [
         engine_code_bytes: 106496,
         firmware_static_bytes: 24,
         firmware_stack_bytes: 112,
-        insn_per_sample: 12897,
+        insn_per_sample: 12898,
     },
 ];
 

@@ -192,7 +192,7 @@ fn activation_ranges(
     let shapes = hone_core::model::shapes(desc.input, &desc.layers, desc.loss)?;
     let mut max = vec![0f64; desc.layers.len()];
     for row in &data.x {
-        let mut x = row.clone();
+        let mut x = row.to_vec();
         for (k, l) in desc.layers.iter().enumerate() {
             let g = shapes.layers[k];
             let mut y = vec![0f64; g.output.size() as usize];

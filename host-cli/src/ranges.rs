@@ -67,7 +67,7 @@ pub fn float_ranges(
     let mut out = vec![LayerRanges::default(); n];
     let max_abs = |v: &[f64], m: f64| v.iter().fold(m, |m, x| m.max(x.abs()));
     for i in 0..data.len() {
-        let mut acts: Vec<Vec<f64>> = vec![data.x[i].clone()];
+        let mut acts: Vec<Vec<f64>> = vec![data.x[i].to_vec()];
         for (k, l) in desc.layers.iter().enumerate() {
             let g = shapes.layers[k];
             let mut y = vec![0f64; g.output.size() as usize];

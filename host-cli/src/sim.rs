@@ -20,7 +20,7 @@ use hone_core::plan::Plan;
 use hone_core::train::{LayerParams, LayerStats, Trainer};
 use serde::Serialize;
 
-use crate::data::{Dataset, Targets};
+use crate::data::{Dataset, Rows, Targets};
 
 /// Float parameters of a whole model: per layer, weights and bias.
 pub type FloatLayers = Vec<(Vec<f64>, Vec<f64>)>;
@@ -243,7 +243,7 @@ impl QuantParams {
 #[derive(Clone, Debug)]
 pub struct Prepared {
     /// Scaled inputs.
-    pub x: Vec<Vec<f64>>,
+    pub x: Rows,
     /// Quantized inputs, in the model's input format.
     pub xq: Vec<OwnedRaw>,
     /// Targets.
@@ -261,7 +261,7 @@ pub enum PreparedTargets {
     /// Regression targets, real and quantized into `format` (the last layer's output format).
     Values {
         /// Real targets.
-        y: Vec<Vec<f64>>,
+        y: Rows,
         /// Quantized targets.
         yq: Vec<OwnedRaw>,
         /// Their format.

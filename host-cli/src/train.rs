@@ -13,7 +13,7 @@ use hone_core::num::Rng;
 use hone_core::plan::Plan;
 
 use crate::config::Config;
-use crate::data::{ConstantChannel, Dataset, Scaling, Targets};
+use crate::data::{ConstantChannel, Dataset, Rows, Scaling, Targets};
 use crate::model::{EpochRecord, FloatLayer, FloatModel, FORMAT_NAME, FORMAT_VERSION};
 use crate::sim::epoch_order;
 
@@ -225,7 +225,7 @@ pub fn train_float(
         (
             data.clone(),
             Dataset {
-                x: Vec::new(),
+                x: Rows::new(data.x.width()),
                 target: data.target.select(&[]),
                 ..data.clone()
             },

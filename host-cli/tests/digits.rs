@@ -74,8 +74,8 @@ fn sixteen_bit_image_classifier_tracks_its_float_twin() {
     let mut data = config.load_data(&fixture(), None).expect("fixture");
     assert_eq!(data.x.len(), 537, "digits 0 to 2: 178 + 182 + 177 images");
     // Pixels count on-bits of a 4×4 block, 0 to 16: scaled to [0, 1].
-    for row in &mut data.x {
-        for v in row.iter_mut() {
+    for r in 0..data.x.len() {
+        for v in data.x[r].iter_mut() {
             *v /= 16.0;
         }
     }

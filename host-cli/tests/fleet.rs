@@ -12,7 +12,7 @@ use std::process::{Command, Output, Stdio};
 use hone_core::blob::ChannelScale;
 use hone_core::model::{LayerKind, Loss, Shape, TrainMode};
 use hone_host::config::Config;
-use hone_host::data::{Dataset, Targets};
+use hone_host::data::{Dataset, Rows, Targets};
 use hone_host::fleet::{self, FleetOptions, FleetReport};
 use hone_host::model::{FloatLayer, FloatModel, FORMAT_NAME, FORMAT_VERSION};
 use hone_host::pipeline::Base;
@@ -83,10 +83,10 @@ fn pool() -> Dataset {
     Dataset {
         source: PathBuf::from("pool.csv"),
         features: vec!["x".into()],
-        x: x.iter().map(|&v| vec![v]).collect(),
+        x: Rows::from_rows(1, x.iter().map(|&v| [v])),
         target: Targets::Values {
             names: vec!["y".into()],
-            y: x.iter().map(|&v| vec![v]).collect(),
+            y: Rows::from_rows(1, x.iter().map(|&v| [v])),
         },
     }
 }

@@ -22,6 +22,9 @@ const CORE_TARGETS: [&str; 3] = [
 ];
 /// Debian packages with the QEMU system emulators the firmware tests run on.
 const QEMU_PACKAGES: [&str; 2] = ["qemu-system-arm", "qemu-system-misc"];
+/// The minimum Rust the core declares (`rust-version` in `core/Cargo.toml`); the test command
+/// checks the core with it. Its dependencies set the floor (`fixed` 1.31 needs 1.93).
+const CORE_MSRV: &str = "1.93";
 /// Debian packages with the Arm cross compiler and C library the C example firmware builds
 /// with (`boards/ffi/example`).
 const GCC_PACKAGES: [&str; 2] = ["gcc-arm-none-eabi", "libnewlib-arm-none-eabi"];
@@ -202,6 +205,30 @@ fn test(steps: &mut Vec<Step>) -> Result<(), String> {
         "cargo",
         &["doc", "-p", "hone-core", "--no-deps", "--locked"],
         &[("RUSTDOCFLAGS", "-D warnings")],
+    )?;
+    // The core's declared minimum Rust (`rust-version` in core/Cargo.toml, the crate firmware
+    // depends on) is checked with that toolchain, every feature on.
+    let msrv = format!("+{CORE_MSRV}");
+    run(
+        steps,
+        &format!("rustup toolchain {CORE_MSRV}"),
+        &root,
+        "rustup",
+        &["toolchain", "install", CORE_MSRV, "--profile", "minimal"],
+    )?;
+    run(
+        steps,
+        &format!("hone-core on Rust {CORE_MSRV}"),
+        &root,
+        "cargo",
+        &[
+            &msrv,
+            "check",
+            "-p",
+            "hone-core",
+            "--all-features",
+            "--locked",
+        ],
     )?;
     for t in CORE_TARGETS {
         run(

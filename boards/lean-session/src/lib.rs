@@ -95,7 +95,8 @@ pub mod engine {
     /// The checked description.
     #[inline(never)]
     pub fn desc() -> Result<ModelDesc, Error> {
-        ModelDesc::new(INPUT, ACT, &LAYERS, Loss::SquaredError, TRAIN)
+        // `PLAN` was made at compile time from these parts, which checked them.
+        ModelDesc::new_planned(INPUT, ACT, &LAYERS, Loss::SquaredError, TRAIN, &PLAN)
     }
 
     /// A trainer over `arena`.
@@ -105,7 +106,7 @@ pub mod engine {
         arena: &'a mut [u32],
         init: &'a [LayerParams<'a>],
     ) -> Result<Trainer<'a>, Error> {
-        Trainer::new(desc, &PLAN, arena, init)
+        Trainer::new_planned(desc, &PLAN, arena, init)
     }
 
     /// One training step; returns the sample's raw loss.

@@ -413,6 +413,44 @@ impl ModelDesc {
         Ok(d)
     }
 
+    /// A description whose `const` plan was made at compile time from the same parts
+    /// ([`Plan::new`](crate::plan::Plan::new) in a `const` item, which runs every check of
+    /// [`ModelDesc::check`] on the layers, the loss and the training setup, and fails the
+    /// build when one fails). Only the input format and the plan's fingerprint of the parts are
+    /// checked here, so a firmware with a compile-time model does not link the run-time
+    /// checks of the layers. Pair it with
+    /// [`Trainer::new_planned`](crate::train::Trainer::new_planned).
+    ///
+    /// # Errors
+    /// [`Error::TooManyLayers`] past [`MAX_LAYERS`]; [`Error::InvalidFormat`] for an input
+    /// format that is invalid or not built; [`Error::PlanMismatch`] when `plan` is a float
+    /// twin's plan or was not made from these parts.
+    pub fn new_planned(
+        input: Shape,
+        input_format: QFormat,
+        layers: &[LayerDesc],
+        loss: Loss,
+        train: TrainDesc,
+        plan: &crate::plan::Plan,
+    ) -> Result<ModelDesc, Error> {
+        let layers = Vec::from_slice(layers).map_err(|_| Error::TooManyLayers)?;
+        if !input_format.is_valid() || !input_format.word.is_built_for_values() {
+            return Err(Error::InvalidFormat);
+        }
+        if plan.float_bytes != 0
+            || plan.fingerprint != crate::plan::fingerprint(input, &layers, loss, &train)
+        {
+            return Err(Error::PlanMismatch);
+        }
+        Ok(ModelDesc {
+            input,
+            input_format,
+            layers,
+            loss,
+            train,
+        })
+    }
+
     /// Checks every layer's sizes and formats, the loss against the output, and the
     /// training hyperparameters.
     ///

@@ -213,6 +213,24 @@ impl<'a> Trainer<'a> {
         init: &'a [LayerParams<'a>],
     ) -> Result<Trainer<'a>, Error> {
         desc.check()?;
+        Trainer::new_planned(desc, plan, arena, init)
+    }
+
+    /// [`Trainer::new`] for a description and plan checked at compile time: `plan` made by
+    /// [`Plan::new`] in a `const` item (which runs [`ModelDesc::check`]'s checks and fails the
+    /// build when one fails), `desc` made from the same parts, for example by
+    /// [`ModelDesc::new_planned`]. The description is not checked again, so a firmware with a
+    /// compile-time model does not link the run-time checks; everything else is checked as in
+    /// [`Trainer::new`], the plan's fingerprint of the description included.
+    ///
+    /// # Errors
+    /// As [`Trainer::new`], except the description's own errors.
+    pub fn new_planned(
+        desc: &'a ModelDesc,
+        plan: &'a Plan,
+        arena: &'a mut [u32],
+        init: &'a [LayerParams<'a>],
+    ) -> Result<Trainer<'a>, Error> {
         // The fingerprint stands for the whole description: no second plan is built (it would
         // take several kilobytes of stack on a small device).
         if plan.float_bytes != 0
@@ -1242,6 +1260,53 @@ mod tests {
             after * 20 < before,
             "loss only fell from {before} to {after}"
         );
+
+        // The compile-time path (a checked plan, the description's run-time checks skipped)
+        // trains to the same bits.
+        let planned =
+            ModelDesc::new_planned(Shape::vector(2), act, &layers, Loss::SquaredError, t, &plan)
+                .unwrap();
+        assert_eq!(planned, desc);
+        let mut arena2 = std::vec![0u32; plan.ram_words()];
+        let mut tr2 = Trainer::new_planned(&planned, &plan, &mut arena2, &init).unwrap();
+        for _ in 0..200 {
+            epoch_loss(&mut tr2, true);
+        }
+        assert_eq!(epoch_loss(&mut tr2, false), after);
+        for k in [0, 2] {
+            let (a, b) = (tr.params(k).unwrap(), tr2.params(k).unwrap());
+            assert_eq!(a.weight, b.weight);
+            assert_eq!(a.bias, b.bias);
+        }
+        // A description that is not the plan's is refused.
+        let mut other = t;
+        other.lr = QScalar { raw: 14, frac: 8 };
+        let r = ModelDesc::new_planned(
+            Shape::vector(2),
+            act,
+            &layers,
+            Loss::SquaredError,
+            other,
+            &plan,
+        );
+        assert_eq!(r.err(), Some(Error::PlanMismatch));
+        let wrong =
+            ModelDesc::new(Shape::vector(2), act, &layers, Loss::SquaredError, other).unwrap();
+        let mut arena3 = std::vec![0u32; plan.ram_words()];
+        assert_eq!(
+            Trainer::new_planned(&wrong, &plan, &mut arena3, &init).err(),
+            Some(Error::PlanMismatch)
+        );
+        let bad_input = QFormat::new_unchecked(Word::I16, 40);
+        let r = ModelDesc::new_planned(
+            Shape::vector(2),
+            bad_input,
+            &layers,
+            Loss::SquaredError,
+            t,
+            &plan,
+        );
+        assert_eq!(r.err(), Some(Error::InvalidFormat));
     }
 
     /// Dynamic fixed point settles instead of swinging: an output that fills more than half

@@ -418,7 +418,8 @@ fn mislabel(p: &Prepared) -> Prepared {
     let mut f = p.clone();
     match &mut f.target {
         PreparedTargets::Values { y, yq, .. } => {
-            y.reverse();
+            let reversed: Vec<usize> = (0..y.len()).rev().collect();
+            *y = y.select(&reversed);
             yq.reverse();
         }
         PreparedTargets::Classes(l) => l.reverse(),

@@ -37,7 +37,7 @@ use hone_core::train::Trainer;
 use rayon::prelude::*;
 use serde::Serialize;
 
-use crate::data::{Dataset, Task};
+use crate::data::{Dataset, Rows, Task};
 use crate::pipeline::Base;
 use crate::scenario::prng::Sampler;
 use crate::sim::{epoch_order, run_side_by_side, Prepared, RunOptions};
@@ -480,9 +480,11 @@ fn draw(
     let rows: Vec<usize> = (0..count)
         .map(|_| rng.below(s.pool.len() as u64) as usize)
         .collect();
-    let x = rows
-        .iter()
-        .map(|&r| {
+    let mut x = Rows::with_capacity(s.pool.x.width(), rows.len());
+    let mut row = Vec::with_capacity(s.pool.x.width());
+    for &r in &rows {
+        row.clear();
+        row.extend(
             s.pool.x[r]
                 .iter()
                 .zip(distortion)
@@ -493,10 +495,10 @@ fn draw(
                         0.0
                     };
                     gain * v + offset + n
-                })
-                .collect()
-        })
-        .collect();
+                }),
+        );
+        x.push(&row);
+    }
     Dataset {
         source: s.pool.source.clone(),
         features: s.pool.features.clone(),
@@ -517,7 +519,7 @@ fn first(all: &Dataset, n: usize) -> Dataset {
     Dataset {
         source: all.source.clone(),
         features: all.features.clone(),
-        x: all.x[..n].to_vec(),
+        x: all.x.head(n),
         target: all.target.select(&rows),
     }
 }
