@@ -255,11 +255,12 @@ fn test(steps: &mut Vec<Step>) -> Result<(), String> {
             "defmt",
         ],
     )?;
-    // The smallest core: every optional layer kind off. Clippy and the tests that check what
-    // a build without them accepts and trains (the lean firmware runs it on a board).
+    // The smallest core: every optional part off (layer kinds, value words, training parts).
+    // Clippy and the tests that check what a build without them accepts and trains (the lean
+    // firmware runs it on a board).
     run(
         steps,
-        "clippy hone-core without optional layers",
+        "clippy hone-core without optional parts",
         &root,
         "cargo",
         &[
@@ -277,7 +278,7 @@ fn test(steps: &mut Vec<Step>) -> Result<(), String> {
     )?;
     run(
         steps,
-        "hone-core tests without optional layers",
+        "hone-core tests without optional parts",
         &root,
         "cargo",
         &[

@@ -269,7 +269,7 @@ unsafe fn raw_from<'a>(data: *const c_void, word: Word, len: usize) -> Result<Ra
     if data.is_null() {
         return Err(HONE_ERR_NULL);
     }
-    if (data as usize) % word.bytes() != 0 {
+    if !(data as usize).is_multiple_of(word.bytes()) {
         return Err(HONE_ERR_ALIGN);
     }
     // SAFETY: the caller guarantees `len` readable values of this word at `data`, which is
@@ -330,7 +330,7 @@ unsafe fn session<'s>(
     if s.is_null() {
         return Err(HONE_ERR_NULL);
     }
-    if (s as usize) % align_of::<HoneSession>() != 0 {
+    if !(s as usize).is_multiple_of(align_of::<HoneSession>()) {
         return Err(HONE_ERR_ALIGN);
     }
     // SAFETY: `s` is non-null and aligned, and points to a block at least as large as a
@@ -405,7 +405,7 @@ pub unsafe extern "C" fn hone_init(
     if mem.is_null() || out.is_null() {
         return HONE_ERR_NULL;
     }
-    if (mem as usize) % HONE_MEMORY_ALIGN != 0 {
+    if !(mem as usize).is_multiple_of(HONE_MEMORY_ALIGN) {
         return HONE_ERR_ALIGN;
     }
     // SAFETY: the blob outlives the session by the caller's contract.
@@ -677,7 +677,7 @@ unsafe fn samples<'a>(
     if samples.is_null() {
         return Err(HONE_ERR_NULL);
     }
-    if (samples as usize) % align_of::<HoneSample>() != 0 {
+    if !(samples as usize).is_multiple_of(align_of::<HoneSample>()) {
         return Err(HONE_ERR_ALIGN);
     }
     // SAFETY: non-null, aligned, readable for `n` samples by the caller's contract.
