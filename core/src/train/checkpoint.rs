@@ -40,10 +40,11 @@ impl Trainer<'_> {
             *f = [l.out, l.grad, l.accum_weight, l.accum_bias];
         }
         let mut window = [[0u32; 12]; MAX_LAYERS];
-        for (w, (now, mark)) in window
-            .iter_mut()
-            .zip(self.stats.iter().zip(self.marks.iter()))
-        {
+        // Without dynamic fixed point there are no interval marks: the interval is the whole
+        // run, as if its marks were zero.
+        let no_marks = [crate::kernel::Tally::default(); 4];
+        for (k, (w, now)) in window.iter_mut().zip(self.stats.iter()).enumerate() {
+            let mark = self.marks.get(k).unwrap_or(&no_marks);
             for (i, (n, m)) in now.moving().iter().zip(mark.iter()).enumerate() {
                 w[i] = n.values.saturating_sub(m.values);
                 w[4 + i] = n.saturations.saturating_sub(m.saturations);
@@ -209,12 +210,7 @@ impl Trainer<'_> {
                 accum_bias: f[3],
             };
         }
-        for ((st, mark), w) in self
-            .stats
-            .iter_mut()
-            .zip(self.marks.iter_mut())
-            .zip(state.window.iter())
-        {
+        for (k, (st, w)) in self.stats.iter_mut().zip(state.window.iter()).enumerate() {
             let mut s = super::LayerStats::default();
             for (i, t) in [
                 &mut s.out,
@@ -230,7 +226,10 @@ impl Trainer<'_> {
                 t.high = w[8 + i];
             }
             *st = s;
-            *mark = [crate::kernel::Tally::default(); 4];
+            // Interval marks exist only with dynamic fixed point.
+            if let Some(mark) = self.marks.get_mut(k) {
+                *mark = [crate::kernel::Tally::default(); 4];
+            }
         }
         Ok(())
     }
@@ -388,6 +387,62 @@ mod tests {
                 );
             }
         }
+    }
+
+    /// Without dynamic fixed point the plan has no interval marks: the state's window is the
+    /// whole run's counts, and restoring it gives a trainer the same statistics back.
+    #[test]
+    fn window_without_dynamic_fixed_point_is_the_whole_run() {
+        let mut d = desc();
+        d.train.dynamic = None;
+        let plan = Plan::of(&d).unwrap();
+        let w: [i8; 18] = core::array::from_fn(|i| (i as i8 * 7) - 60);
+        let w2: [i8; 12] = core::array::from_fn(|i| 40 - (i as i8 * 5));
+        let (b0, b2) = ([3i8; 6], [-2i8; 2]);
+        let init = [
+            LayerParams {
+                weight: Raw::I8(&w),
+                bias: Raw::I8(&b0),
+            },
+            LayerParams::NONE,
+            LayerParams {
+                weight: Raw::I8(&w2),
+                bias: Raw::I8(&b2),
+            },
+        ];
+        let mut a1 = vec![0u32; plan.ram_words()];
+        let mut a = Trainer::new(&d, &plan, &mut a1, &init).unwrap();
+        for i in 0..6 {
+            let (x, y) = sample(i);
+            a.step(
+                Tensor {
+                    raw: Raw::I16(&x),
+                    fmt: d.input_format,
+                },
+                Target::Values(Tensor {
+                    raw: Raw::I16(&y),
+                    fmt: d.layers[2].out,
+                }),
+            )
+            .unwrap();
+        }
+        let state = a.train_state();
+        for k in 0..3 {
+            let now = a.stats(k).unwrap().moving();
+            for (i, t) in now.iter().enumerate() {
+                assert_eq!(state.window[k][i], t.values, "layer {k} tensor {i}");
+                assert_eq!(state.window[k][4 + i], t.saturations);
+                assert_eq!(state.window[k][8 + i], t.high);
+            }
+        }
+        assert!(state.window[0][0] > 0, "the run wrote outputs");
+        let mut a2 = vec![0u32; plan.ram_words()];
+        let mut b = Trainer::new(&d, &plan, &mut a2, &init).unwrap();
+        b.set_train_state(&state).unwrap();
+        for k in 0..3 {
+            assert_eq!(b.stats(k).unwrap().moving(), a.stats(k).unwrap().moving());
+        }
+        assert_eq!(b.train_state(), state);
     }
 
     #[test]
