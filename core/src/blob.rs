@@ -376,7 +376,10 @@ impl<'de> Deserialize<'de> for SkipWindow {
             fn expecting(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
                 f.write_str("interval counts")
             }
-            fn visit_seq<A: serde::de::SeqAccess<'de>>(self, mut a: A) -> Result<SkipWindow, A::Error> {
+            fn visit_seq<A: serde::de::SeqAccess<'de>>(
+                self,
+                mut a: A,
+            ) -> Result<SkipWindow, A::Error> {
                 for _ in 0..MAX_LAYERS {
                     a.next_element::<[u32; 12]>()?
                         .ok_or_else(|| serde::de::Error::invalid_length(0, &self))?;
@@ -518,10 +521,7 @@ fn expected(
     let checkpoint = kind == BlobKind::Checkpoint;
     let (tw, tb) = (l.mode.trains_weight(), l.mode.trains_bias());
     let momentum = !desc.train.momentum.is_zero();
-    let fracs = fracs
-        .and_then(|f| f.get(layer))
-        .copied()
-        .unwrap_or([0; 4]);
+    let fracs = fracs.and_then(|f| f.get(layer)).copied().unwrap_or([0; 4]);
     Some(match role {
         TensorRole::Weight => (l.weight.value, !checkpoint || tw),
         TensorRole::Bias => (l.bias.value, !checkpoint || tb),
@@ -617,9 +617,7 @@ pub fn decode(bytes: &[u8]) -> Result<CheckedBlob<'_>, Error> {
     let (scaling, rest) = rest.split_at(n as usize * SCALE_BYTES);
     // The state is checked through its head and kept as bytes.
     let (head, after): (Option<StateHead>, _) = take(rest)?;
-    let state = head
-        .as_ref()
-        .map(|_| &rest[1..rest.len() - after.len()]);
+    let state = head.as_ref().map(|_| &rest[1..rest.len() - after.len()]);
     let (count, tensor_bytes): (u64, _) = take(after)?;
     if count > MAX_TENSORS as u64 {
         return Err(BlobError::TooManyTensors.into());
@@ -677,8 +675,7 @@ fn check(b: &CheckedBlob<'_>, head: Option<&StateHead>) -> Result<(), Error> {
     if !b.scaling.is_empty() && b.scaling.len() != desc.input.channels as usize {
         return Err(BlobError::Scaling.into());
     }
-    if b
-        .scaling
+    if b.scaling
         .iter()
         .any(|s| !s.offset.is_finite() || !s.gain.is_finite())
     {
@@ -687,8 +684,7 @@ fn check(b: &CheckedBlob<'_>, head: Option<&StateHead>) -> Result<(), Error> {
     match (b.kind, head) {
         (BlobKind::Model, None) => {}
         (BlobKind::Checkpoint, Some(st)) => {
-            if crate::num::Rng::from_state(st.rng).is_none() || !state_fracs_fit(desc, &st.fracs)
-            {
+            if crate::num::Rng::from_state(st.rng).is_none() || !state_fracs_fit(desc, &st.fracs) {
                 return Err(BlobError::StateMismatch.into());
             }
         }

@@ -242,7 +242,13 @@ fn for_each_layer_params<'v, T>(
     mut put: impl FnMut(usize, &'v [T], &'v [T]),
 ) {
     let mut rest = init;
-    for (k, (l, g)) in t.desc.layers.iter().zip(t.plan.shapes.layers.iter()).enumerate() {
+    for (k, (l, g)) in t
+        .desc
+        .layers
+        .iter()
+        .zip(t.plan.shapes.layers.iter())
+        .enumerate()
+    {
         let (w, r) = rest
             .split_at_checked(g.weights as usize)
             .unwrap_or((&[], &[]));
@@ -345,5 +351,11 @@ fn train_f32<P: Platform, const FLOAT_ARENA: usize, const VALUES: usize>(
     let stack = memory::stack_usage_since_repaint();
     record::span("tput_f32_train", &span);
     record::stack("tput_f32", entry, stack.peak);
-    send_twin(ctx, "tput_f32_weights", t.float_plan, t.desc.layers.len(), &twin)
+    send_twin(
+        ctx,
+        "tput_f32_weights",
+        t.float_plan,
+        t.desc.layers.len(),
+        &twin,
+    )
 }

@@ -11,8 +11,7 @@ use heapless::Vec;
 
 use super::{LiveFracs, Trainer};
 use crate::blob::{
-    self, BlobBody, BlobError, BlobKind, CheckedBlob, Scaling, TensorBlob, TensorRole,
-    TrainState,
+    self, BlobBody, BlobError, BlobKind, CheckedBlob, Scaling, TensorBlob, TensorRole, TrainState,
 };
 use crate::error::Error;
 use crate::model::MAX_LAYERS;
