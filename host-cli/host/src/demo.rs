@@ -22,8 +22,8 @@ use crate::config::Config;
 use crate::drift::{DriftReport, Thresholds};
 use crate::memplan::{self, AdviceOptions, Budget, Reserve};
 use crate::pipeline::Base;
-use hone_report::report::{Block, Report, Section};
 use crate::sim::{run_side_by_side, Prepared, RunOptions};
+use hone_report::report::{Block, Report, Section};
 
 /// The demo's config (the soil-moisture example).
 pub const CONFIG: &str = include_str!("../../../configs/soil-moisture.toml");

@@ -397,7 +397,12 @@ pub fn quantize(
 
 /// The two tables of a quantization report: the formats chosen from data (`None` when the
 /// config chose every format), and the error per parameter tensor.
-pub fn tables(r: &QuantReport) -> (Option<hone_report::report::Table>, hone_report::report::Table) {
+pub fn tables(
+    r: &QuantReport,
+) -> (
+    Option<hone_report::report::Table>,
+    hone_report::report::Table,
+) {
     use hone_report::report::{Align, Table};
     let strings = |v: &[&str]| v.iter().map(|h| h.to_string()).collect::<Vec<_>>();
     let chosen = (!r.chosen.is_empty()).then(|| Table {
