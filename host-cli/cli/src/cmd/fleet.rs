@@ -10,7 +10,7 @@ use hone_host::fleet::{self, FleetOptions};
 #[derive(Args)]
 pub struct FleetArgs {
     #[command(flatten)]
-    model: super::ModelArgs,
+    model: crate::ModelArgs,
     /// Reference rows the units' samples are drawn from (CSV with the config's columns); each
     /// unit distorts them as the config's `[fleet]` section says.
     #[arg(long)]
@@ -55,7 +55,7 @@ pub struct FleetArgs {
 /// Runs the study; returns what to print.
 pub fn run(a: FleetArgs) -> Result<String> {
     let calib = a.calib.clone().unwrap_or_else(|| a.data.clone());
-    let base = super::load_base(&a.model, &calib)?;
+    let base = crate::load_base(&a.model, &calib)?;
     let opts = FleetOptions {
         samples: a.samples.clone(),
         units: a.units,
@@ -79,7 +79,7 @@ pub fn run(a: FleetArgs) -> Result<String> {
         .into());
     }
     let pool = fleet::load_pool(&base, &a.data)?;
-    let b = super::bar(opts.units as u64, "units");
+    let b = crate::bar(opts.units as u64, "units");
     let started = std::time::Instant::now();
     let report = fleet::run(&base, &pool, &opts, &|done, _| b.set_position(done as u64))?;
     b.finish_and_clear();
