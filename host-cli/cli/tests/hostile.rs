@@ -146,20 +146,20 @@ fn sparse(path: &Path, len: u64) {
 fn files_larger_than_their_format_allows_are_refused_before_reading() {
     let tmp = tempfile::tempdir().unwrap();
     let dir = tmp.path();
-    let flash = hone_report::fsutil::limits::FLASH_BYTES;
+    let flash = hone_host::limits::FLASH_BYTES;
     sparse(&dir.join("big.honb"), flash + 1);
     sparse(&dir.join("big.img"), 2 * flash);
     sparse(
         &dir.join("big.toml"),
-        hone_report::fsutil::limits::CONFIG_BYTES + 1,
+        hone_host::limits::CONFIG_BYTES + 1,
     );
     sparse(
         &dir.join("big.json"),
-        hone_report::fsutil::limits::MODEL_BYTES + 1,
+        hone_host::limits::MODEL_BYTES + 1,
     );
     sparse(
         &dir.join("big.csv"),
-        hone_report::fsutil::limits::CSV_BYTES + 1,
+        hone_host::limits::CSV_BYTES + 1,
     );
     let said = refused(dir, &["inspect", "big.honb"], &["big.honb", "larger than"]);
     assert!(said.contains(&flash.to_string()), "{said}");

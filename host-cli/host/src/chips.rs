@@ -436,7 +436,7 @@ mod tests {
     #[test]
     fn the_flash_limit_is_the_largest_flash_of_the_chip_table() {
         let largest = all().iter().map(|c| c.flash_bytes).max().unwrap();
-        assert_eq!(hone_report::fsutil::limits::FLASH_BYTES, u64::from(largest));
+        assert_eq!(crate::limits::FLASH_BYTES, u64::from(largest));
     }
 
     #[test]

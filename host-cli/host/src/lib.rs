@@ -13,6 +13,7 @@ pub mod drift;
 pub mod export;
 pub mod fleet;
 pub mod inspect;
+pub mod limits;
 pub mod memplan;
 pub mod model;
 pub mod onnx;

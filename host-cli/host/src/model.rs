@@ -286,7 +286,7 @@ impl FloatModel {
         let shown = path.display().to_string();
         let text = hone_report::fsutil::read_text_limited(
             path,
-            hone_report::fsutil::limits::MODEL_BYTES,
+            crate::limits::MODEL_BYTES,
             "float model",
         )
         .map_err(|source| ModelError::Io {

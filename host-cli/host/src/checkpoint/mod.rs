@@ -256,7 +256,7 @@ pub enum ImageError {
          give --start-over to write over it"
     )]
     BothSlotsInvalid,
-    /// A fresh region larger than [`hone_report::fsutil::limits::FLASH_BYTES`].
+    /// A fresh region larger than [`crate::limits::FLASH_BYTES`].
     #[error(
         "{len} B is larger than the largest flash of any built-in chip ({limit} B); give the \
          size of the device's checkpoint area"
@@ -655,7 +655,7 @@ fn commit(
 /// checkpoint (sequence 1, slot A).
 ///
 /// # Errors
-/// [`ImageError::RegionTooLarge`] past [`hone_report::fsutil::limits::FLASH_BYTES`];
+/// [`ImageError::RegionTooLarge`] past [`crate::limits::FLASH_BYTES`];
 /// [`ImageError::ImageSize`] if `region_len` is not a whole number of erase sectors; as
 /// [`append`] otherwise. The image is built in one buffer of `region_len` bytes.
 pub fn write_image(
@@ -665,7 +665,7 @@ pub fn write_image(
 ) -> Result<Vec<u8>, ImageError> {
     checked_kind(blob_bytes)?;
     unit_class(geometry)?;
-    let limit = hone_report::fsutil::limits::FLASH_BYTES;
+    let limit = crate::limits::FLASH_BYTES;
     if u64::from(region_len) > limit {
         return Err(ImageError::RegionTooLarge {
             len: region_len.into(),
@@ -695,11 +695,11 @@ fn io_error(path: &Path) -> impl Fn(std::io::Error) -> CheckpointError + '_ {
     }
 }
 
-/// Reads an image or a blob: at most [`hone_report::fsutil::limits::FLASH_BYTES`].
+/// Reads an image or a blob: at most [`crate::limits::FLASH_BYTES`].
 fn read(path: &Path) -> Result<Vec<u8>, CheckpointError> {
     hone_report::fsutil::read_limited(
         path,
-        hone_report::fsutil::limits::FLASH_BYTES,
+        crate::limits::FLASH_BYTES,
         "checkpoint image or blob",
     )
     .map_err(io_error(path))
@@ -737,7 +737,7 @@ pub fn commit_file(
     let mut lock = hone_report::fsutil::lock_file(image).map_err(io_error(image))?;
     let img = hone_report::fsutil::read_limited_from(
         lock.file(),
-        hone_report::fsutil::limits::FLASH_BYTES,
+        crate::limits::FLASH_BYTES,
         "checkpoint image",
     )
     .map_err(io_error(image))?;

@@ -122,7 +122,7 @@ impl Config {
     pub fn load(path: &Path) -> Result<Config, ConfigError> {
         let text = hone_report::fsutil::read_text_limited(
             path,
-            hone_report::fsutil::limits::CONFIG_BYTES,
+            crate::limits::CONFIG_BYTES,
             "config",
         )
         .map_err(|source| ConfigError::Io {

@@ -141,7 +141,7 @@ impl Dataset {
 }
 
 pub(super) fn read(path: &Path) -> Result<Vec<u8>, DataError> {
-    hone_report::fsutil::read_limited(path, hone_report::fsutil::limits::CSV_BYTES, "data file")
+    hone_report::fsutil::read_limited(path, crate::limits::CSV_BYTES, "data file")
         .map_err(|source| DataError::Io {
             path: path.to_path_buf(),
             source,

@@ -307,7 +307,7 @@ pub fn inspect_file(path: &Path) -> Result<InspectReport, InspectError> {
     let file = path.display().to_string();
     let bytes = hone_report::fsutil::read_limited(
         path,
-        hone_report::fsutil::limits::FLASH_BYTES,
+        crate::limits::FLASH_BYTES,
         "model blob or checkpoint",
     )
     .map_err(|source| InspectError::Read {

@@ -29,7 +29,8 @@
 //! # Reading
 //! [`read_limited`] reads a whole file but never more than a limit, checked against the file's
 //! size before anything is read and again while reading (a pipe or a growing file has no size
-//! up front). The limits of each kind of file are in [`limits`].
+//! up front). The caller chooses the limit of each kind of file (hone's are in
+//! `hone_host::limits`).
 //!
 //! # Locking
 //! [`lock_file`] takes an exclusive lock on an existing file for a read-modify-write, such as
@@ -41,22 +42,6 @@ use std::io::{self, BufWriter, Read, Write};
 use std::path::{Path, PathBuf};
 
 use tempfile::NamedTempFile;
-
-/// The largest size of each kind of file hone reads. A file larger than its limit is refused
-/// before it is read, so no input can make hone allocate more than its limit.
-pub mod limits {
-    /// A model blob, checkpoint or flash image: the largest flash of any chip in the built-in
-    /// table (16 MiB), which no blob or checkpoint area can exceed. Also the largest
-    /// `checkpoint write --region`.
-    pub const FLASH_BYTES: u64 = 16 * 1024 * 1024;
-    /// A float model (JSON): 64 MiB. A model whose parameters fit [`FLASH_BYTES`] as 8-bit
-    /// words needs fewer than four bytes of JSON text per parameter on average to stay below.
-    pub const MODEL_BYTES: u64 = 64 * 1024 * 1024;
-    /// A config (TOML): 1 MiB, far above any real description.
-    pub const CONFIG_BYTES: u64 = 1024 * 1024;
-    /// A data file (CSV): 1 GiB.
-    pub const CSV_BYTES: u64 = 1024 * 1024 * 1024;
-}
 
 /// Reads the whole file at `path`, refusing it when it is larger than `limit` bytes. `what`
 /// names the kind of file in the error ("model blob", "config").
