@@ -50,7 +50,7 @@ impl SessionCheck {
         let board = self.board.name();
         let err = |detail: String| DeviceError::Prediction { board, detail };
         let o = self.overhead.ok_or_else(|| {
-            err("the measured-overhead table (host-cli/src/memplan.rs) has no row for it".into())
+            err("the measured-overhead table (host-cli/host/src/memplan/measured.rs) has no row for it".into())
         })?;
         let r = &self.measures.ram;
         let predicted = r.predicted.unwrap_or(0);
@@ -115,7 +115,7 @@ impl SessionCheck {
                 problems.push(format!(
                     "throughput model {} in {part}: measured {measured} B, predicted {predicted} B, \
                      board RAM {} B with a margin of {MARGIN_BYTES} B (the prediction is made in \
-                     host-cli/src/device/throughput.rs)",
+                     host-cli/host/src/device/throughput.rs)",
                     t.model, t.board_ram
                 ));
             }
