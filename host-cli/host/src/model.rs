@@ -284,15 +284,12 @@ impl FloatModel {
     /// [`ModelError`] naming the file, and the line and column of a syntax error.
     pub fn load(path: &Path) -> Result<FloatModel, ModelError> {
         let shown = path.display().to_string();
-        let text = hone_report::fsutil::read_text_limited(
-            path,
-            crate::limits::MODEL_BYTES,
-            "float model",
-        )
-        .map_err(|source| ModelError::Io {
-            path: shown.clone(),
-            source,
-        })?;
+        let text =
+            hone_report::fsutil::read_text_limited(path, crate::limits::MODEL_BYTES, "float model")
+                .map_err(|source| ModelError::Io {
+                    path: shown.clone(),
+                    source,
+                })?;
         FloatModel::parse(&shown, &text)
     }
 

@@ -407,8 +407,8 @@ pub fn crc32(bytes: &[u8]) -> u32 {
 
 #[cfg(test)]
 mod tests {
-    use crate::record::Value;
     use super::*;
+    use crate::record::Value;
 
     fn line(kind: &str, fields: Vec<(&str, Value)>) -> LogLine {
         LogLine {

@@ -697,12 +697,8 @@ fn io_error(path: &Path) -> impl Fn(std::io::Error) -> CheckpointError + '_ {
 
 /// Reads an image or a blob: at most [`crate::limits::FLASH_BYTES`].
 fn read(path: &Path) -> Result<Vec<u8>, CheckpointError> {
-    hone_report::fsutil::read_limited(
-        path,
-        crate::limits::FLASH_BYTES,
-        "checkpoint image or blob",
-    )
-    .map_err(io_error(path))
+    hone_report::fsutil::read_limited(path, crate::limits::FLASH_BYTES, "checkpoint image or blob")
+        .map_err(io_error(path))
 }
 
 /// [`read_latest`] on an image file.

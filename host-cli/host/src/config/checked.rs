@@ -120,15 +120,12 @@ impl Config {
     /// [`ConfigError::Io`] if the file cannot be read, [`ConfigError::Syntax`] for invalid
     /// TOML, [`ConfigError::Invalid`] for everything the checks find.
     pub fn load(path: &Path) -> Result<Config, ConfigError> {
-        let text = hone_report::fsutil::read_text_limited(
-            path,
-            crate::limits::CONFIG_BYTES,
-            "config",
-        )
-        .map_err(|source| ConfigError::Io {
-            path: path.to_path_buf(),
-            source,
-        })?;
+        let text =
+            hone_report::fsutil::read_text_limited(path, crate::limits::CONFIG_BYTES, "config")
+                .map_err(|source| ConfigError::Io {
+                    path: path.to_path_buf(),
+                    source,
+                })?;
         Config::parse(path, &text)
     }
 

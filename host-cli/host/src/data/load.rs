@@ -141,11 +141,12 @@ impl Dataset {
 }
 
 pub(super) fn read(path: &Path) -> Result<Vec<u8>, DataError> {
-    hone_report::fsutil::read_limited(path, crate::limits::CSV_BYTES, "data file")
-        .map_err(|source| DataError::Io {
+    hone_report::fsutil::read_limited(path, crate::limits::CSV_BYTES, "data file").map_err(
+        |source| DataError::Io {
             path: path.to_path_buf(),
             source,
-        })
+        },
+    )
 }
 
 pub(super) fn quoted_list(names: &[&str]) -> String {

@@ -11,7 +11,6 @@ use crate::sim::{DriftRun, EpochDrift, StepDrift, TensorTotals};
 
 mod render;
 
-
 /// `|fixed − float|` in % of `|float|`: 0 when both are 0, infinite when only the float is 0,
 /// NaN when either is not a finite number (a diverged run), so that a check against a limit
 /// fails rather than passes.
