@@ -31,19 +31,6 @@ const GCC_PACKAGES: [&str; 2] = ["gcc-arm-none-eabi", "libnewlib-arm-none-eabi"]
 /// Targets the C static library (`boards/ffi`) is built for: the M3 for the C example under
 /// QEMU, the M0 for its code size.
 const FFI_TARGETS: [&str; 2] = ["thumbv7m-none-eabi", "thumbv6m-none-eabi"];
-/// Board crates and the cargo profile each is built in (the QEMU ones also run in the tests,
-/// which build them in the same profile, so each firmware is built once): `release` for speed,
-/// `lean` (opt-level `z`) for the lean build; the host's `device::lean::LEAN_PROFILE` names
-/// the same.
-const BOARDS: [(&str, &str); 7] = [
-    ("lm3s6965evb", "release"),
-    ("minimal", "release"),
-    ("microbit", "release"),
-    ("mps2-an386", "release"),
-    ("sifive-e", "release"),
-    ("pico", "release"),
-    ("lean", "lean"),
-];
 
 fn root() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR"))
@@ -291,7 +278,11 @@ fn test(steps: &mut Vec<Step>) -> Result<(), String> {
             "built_",
         ],
     )?;
-    for (b, profile) in BOARDS {
+    // Every board crate, in the cargo profile of the firmware table (`hone_qemu::board`).
+    for hone_qemu::board::Firmware {
+        folder: b, profile, ..
+    } in hone_qemu::board::FIRMWARE
+    {
         run(
             steps,
             &format!("firmware {b}"),

@@ -106,6 +106,62 @@ impl QemuBoard {
     }
 }
 
+/// The cargo profile of the lean build (`[profile.lean]` in `boards/Cargo.toml`): the release
+/// profile at opt-level `z`, since the lean build exists to be small.
+pub const LEAN_PROFILE: &str = "lean";
+
+/// A firmware crate under `boards/` that the test command builds and lints.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Firmware {
+    /// Its folder under `boards/`.
+    pub folder: &'static str,
+    /// The cargo profile it is built in: the tests build the QEMU boards in the same profile,
+    /// so each firmware is built once.
+    pub profile: &'static str,
+    /// The QEMU board it runs on, if it is one the host runs itself.
+    pub qemu: Option<QemuBoard>,
+}
+
+/// The one table of board firmware: `cargo xtask test` builds and lints every row, and the
+/// QEMU rows are the boards of [`QemuBoard::ALL`] (a test checks both ways).
+pub const FIRMWARE: [Firmware; 7] = [
+    Firmware {
+        folder: "lm3s6965evb",
+        profile: "release",
+        qemu: Some(QemuBoard::Lm3s6965evb),
+    },
+    Firmware {
+        folder: "minimal",
+        profile: "release",
+        qemu: None,
+    },
+    Firmware {
+        folder: "microbit",
+        profile: "release",
+        qemu: Some(QemuBoard::Microbit),
+    },
+    Firmware {
+        folder: "mps2-an386",
+        profile: "release",
+        qemu: Some(QemuBoard::Mps2An386),
+    },
+    Firmware {
+        folder: "sifive-e",
+        profile: "release",
+        qemu: Some(QemuBoard::SifiveE),
+    },
+    Firmware {
+        folder: "pico",
+        profile: "release",
+        qemu: None,
+    },
+    Firmware {
+        folder: "lean",
+        profile: LEAN_PROFILE,
+        qemu: None,
+    },
+];
+
 impl fmt::Display for QemuBoard {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         f.write_str(self.name())
@@ -152,6 +208,28 @@ mod tests {
         }
         let err = "pdp11".parse::<QemuBoard>().unwrap_err().to_string();
         assert!(err.contains("pdp11") && err.contains("microbit"), "{err}");
+    }
+
+    #[test]
+    fn the_firmware_table_holds_every_qemu_board_under_its_name() {
+        let boards = Path::new(env!("CARGO_MANIFEST_DIR")).join("../../boards");
+        for f in FIRMWARE {
+            assert!(
+                boards.join(f.folder).join("Cargo.toml").is_file(),
+                "boards/{} has no Cargo.toml",
+                f.folder
+            );
+            if let Some(b) = f.qemu {
+                assert_eq!(b.name(), f.folder);
+            }
+        }
+        for b in QemuBoard::ALL {
+            assert_eq!(
+                FIRMWARE.iter().filter(|f| f.qemu == Some(b)).count(),
+                1,
+                "{b} is not in FIRMWARE once"
+            );
+        }
     }
 
     /// The host runs QEMU exactly as `cargo run` in the board folder does: the runner there is

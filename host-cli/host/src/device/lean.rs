@@ -17,10 +17,9 @@ use hone_lean_session as lean_session;
 /// The name the command line gives the lean build.
 pub const LEAN_BOARD: &str = "microbit-lean";
 
-/// The cargo profile of the lean build (`[profile.lean]` in `boards/Cargo.toml`): the release
-/// profile at opt-level `z`, since the lean build exists to be small (the README's "On the
-/// devices" gives the measured trade of each opt-level).
-pub const LEAN_PROFILE: &str = "lean";
+/// The cargo profile of the lean build, from the firmware table (the README's "On the devices"
+/// gives the measured trade of each opt-level).
+pub use hone_qemu::board::LEAN_PROFILE;
 
 /// The QEMU board the lean build runs on.
 pub const LEAN_QEMU: QemuBoard = QemuBoard::Microbit;
