@@ -72,41 +72,23 @@ pub(crate) enum Align {
     Right,
 }
 
-/// An aligned table, two spaces between columns, indented by two.
+/// An aligned table, two spaces between columns, indented by two; cells past the header's
+/// columns are left out. The layout is [`hone_report::report::render_indented_table`].
 pub(crate) fn table(head: &[&str], align: &[Align], rows: &[Vec<String>]) -> String {
     let cols = head.len();
-    let mut width: Vec<usize> = head.iter().map(|h| h.chars().count()).collect();
+    let mut t = hone_report::report::Table::new(
+        head.iter().copied(),
+        (0..cols)
+            .map(|i| match align.get(i) {
+                Some(Align::Right) => hone_report::report::Align::Right,
+                _ => hone_report::report::Align::Left,
+            })
+            .collect(),
+    );
     for r in rows {
-        for (w, c) in width.iter_mut().zip(r) {
-            *w = (*w).max(c.chars().count());
-        }
+        t.push_row(r.iter().take(cols).cloned());
     }
-    let mut out = String::new();
-    let line = |cells: &mut dyn Iterator<Item = &str>, out: &mut String| {
-        let mut s = String::from(" ");
-        for (i, c) in cells.enumerate().take(cols) {
-            let pad = width[i].saturating_sub(c.chars().count());
-            s.push(' ');
-            match align.get(i).copied().unwrap_or(Align::Left) {
-                Align::Left => {
-                    s.push_str(c);
-                    s.push_str(&" ".repeat(pad));
-                }
-                Align::Right => {
-                    s.push_str(&" ".repeat(pad));
-                    s.push_str(c);
-                }
-            }
-            s.push(' ');
-        }
-        out.push_str(s.trim_end());
-        out.push('\n');
-    };
-    line(&mut head.iter().copied(), &mut out);
-    for r in rows {
-        line(&mut r.iter().map(String::as_str), &mut out);
-    }
-    out
+    hone_report::report::render_indented_table(&t, 2)
 }
 
 /// Wraps `text` at `width` characters. The first line continues a line already `start`

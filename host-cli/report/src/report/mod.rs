@@ -138,11 +138,23 @@ fn padded(cells: &[String], columns: usize) -> Vec<&str> {
 }
 
 /// Lays out `table` for a terminal: columns two spaces apart, a rule of `-` under the
-/// header, numbers right-aligned where the table says so. Widths count characters, not
-/// bytes, so labels such as `Δ loss` or `≤ 5 µs` line up (wide East Asian characters are
-/// counted as one). Newlines and tabs in cells become spaces; lines carry no trailing blanks.
-/// A table without columns gives an empty string.
+/// header, numbers right-aligned where the table says so. The layout is `comfy-table`'s, with
+/// no borders; widths are display widths, so labels such as `Δ loss` or `≤ 5 µs` line up.
+/// Newlines and tabs in cells become spaces; lines carry no trailing blanks. A table without
+/// columns gives an empty string.
 pub fn render_text_table(table: &Table) -> String {
+    layout(table, true, 0)
+}
+
+/// Lays out `table` like [`render_text_table`], but with the header as a plain first line (no
+/// rule under it) and every line indented by `indent` spaces.
+pub fn render_indented_table(table: &Table, indent: usize) -> String {
+    layout(table, false, indent)
+}
+
+/// The layout of both text tables. The rule under the header is a row of its own, as wide as
+/// each column's widest cell, so that it leaves the two spaces between columns blank.
+fn layout(table: &Table, rule: bool, indent: usize) -> String {
     let columns = table.columns();
     if columns == 0 {
         return String::new();
@@ -156,43 +168,37 @@ pub fn render_text_table(table: &Table) -> String {
         .iter()
         .map(|r| padded(r, columns).into_iter().map(flat).collect())
         .collect();
-    let mut widths = vec![0; columns];
-    for row in header.iter().chain(&rows) {
-        for (w, cell) in widths.iter_mut().zip(row) {
-            *w = (*w).max(cell.chars().count());
-        }
-    }
-    let line = |cells: &[String]| {
-        let mut out = String::new();
-        for (i, (cell, &w)) in cells.iter().zip(&widths).enumerate() {
-            if i > 0 {
-                out.push_str("  ");
-            }
-            let pad = " ".repeat(w - cell.chars().count());
-            match table.align_of(i) {
-                Align::Left => {
-                    out.push_str(cell);
-                    out.push_str(&pad);
-                }
-                Align::Right => {
-                    out.push_str(&pad);
-                    out.push_str(cell);
-                }
-            }
-        }
-        let mut out = out.trim_end().to_string();
-        out.push('\n');
-        out
-    };
-    let mut out = String::new();
+    let mut grid = comfy_table::Table::new();
+    grid.load_preset(comfy_table::presets::NOTHING);
     if let Some(h) = &header {
-        out.push_str(&line(h));
-        let rule: Vec<String> = widths.iter().map(|&w| "-".repeat(w.max(1))).collect();
-        out.push_str(&rule.join("  "));
-        out.push('\n');
+        grid.set_header(h.clone());
     }
-    for row in &rows {
-        out.push_str(&line(row));
+    grid.add_rows(rows.iter().cloned());
+    if rule && header.is_some() {
+        let dashes: Vec<String> = grid
+            .column_max_content_widths()
+            .iter()
+            .map(|&w| "-".repeat(usize::from(w).max(1)))
+            .collect();
+        let mut ruled = comfy_table::Table::new();
+        ruled.load_preset(comfy_table::presets::NOTHING);
+        ruled.set_header(header.clone().unwrap_or_default());
+        ruled.add_row(dashes);
+        ruled.add_rows(rows);
+        grid = ruled;
+    }
+    for (i, column) in grid.column_iter_mut().enumerate() {
+        let left = if i == 0 { indent } else { 2 };
+        column.set_padding((u16::try_from(left).unwrap_or(u16::MAX), 0));
+        column.set_cell_alignment(match table.align_of(i) {
+            Align::Left => comfy_table::CellAlignment::Left,
+            Align::Right => comfy_table::CellAlignment::Right,
+        });
+    }
+    let mut out = String::new();
+    for line in grid.lines() {
+        out.push_str(line.trim_end());
+        out.push('\n');
     }
     out
 }
