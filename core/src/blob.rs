@@ -238,18 +238,157 @@ pub struct BlobBody<'a> {
 
 /// A blob that passed every check of [`decode`].
 ///
-/// It keeps the description, scaling and state, and borrows the tensor list from the blob's
-/// bytes: tensors are read one at a time when asked for ([`CheckedBlob::tensors`]), so a
-/// device decoding a blob holds one tensor header at a time, not the whole list.
+/// It keeps the description and borrows the rest from the blob's bytes: the scaling, the
+/// training state and the tensors are read when asked for ([`CheckedBlob::scaling`],
+/// [`CheckedBlob::state`], [`CheckedBlob::tensors`]), so a device decoding a blob holds the
+/// description and one tensor header at a time, not the scaling table, the state or the list.
 #[derive(Clone, Debug, PartialEq)]
 pub struct CheckedBlob<'a> {
     kind: BlobKind,
     desc: ModelDesc,
-    scaling: Vec<ChannelScale, MAX_SCALED_CHANNELS>,
-    state: Option<TrainState>,
+    scaling: Scaling<'a>,
+    /// Postcard bytes of the training state (after the `Option` tag); validated by [`decode`].
+    state: Option<&'a [u8]>,
     /// Postcard bytes of the tensors, after the count; validated by [`decode`].
     tensor_bytes: &'a [u8],
     count: usize,
+}
+
+/// A list of [`ChannelScale`]: borrowed from memory, or read entry by entry from a checked
+/// blob's bytes (postcard writes an `f32` as its 4 little-endian bytes, so an entry is 8 bytes
+/// and needs no parsing state).
+#[derive(Clone, Copy, Debug)]
+pub struct Scaling<'a>(ScalingRepr<'a>);
+
+#[derive(Clone, Copy, Debug)]
+enum ScalingRepr<'a> {
+    Items(&'a [ChannelScale]),
+    /// `8 × n` bytes of `n` entries.
+    Encoded(&'a [u8]),
+}
+
+/// Bytes of one [`ChannelScale`] in postcard.
+const SCALE_BYTES: usize = 8;
+
+impl<'a> Scaling<'a> {
+    /// No scaling: inputs are already scaled.
+    pub const NONE: Scaling<'static> = Scaling(ScalingRepr::Items(&[]));
+
+    /// Number of entries.
+    pub fn len(&self) -> usize {
+        match self.0 {
+            ScalingRepr::Items(s) => s.len(),
+            ScalingRepr::Encoded(b) => b.len() / SCALE_BYTES,
+        }
+    }
+
+    /// Whether there are none.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+
+    /// Entry `i`.
+    pub fn get(&self, i: usize) -> Option<ChannelScale> {
+        match self.0 {
+            ScalingRepr::Items(s) => s.get(i).copied(),
+            ScalingRepr::Encoded(b) => {
+                let e = b.get(i * SCALE_BYTES..(i + 1) * SCALE_BYTES)?;
+                let f = |k: usize| f32::from_le_bytes([e[k], e[k + 1], e[k + 2], e[k + 3]]);
+                Some(ChannelScale {
+                    offset: f(0),
+                    gain: f(4),
+                })
+            }
+        }
+    }
+
+    /// The entries in order.
+    pub fn iter(&self) -> impl Iterator<Item = ChannelScale> + 'a {
+        let s = *self;
+        (0..s.len()).filter_map(move |i| s.get(i))
+    }
+}
+
+impl<'a> From<&'a [ChannelScale]> for Scaling<'a> {
+    fn from(s: &'a [ChannelScale]) -> Scaling<'a> {
+        Scaling(ScalingRepr::Items(s))
+    }
+}
+
+impl<'a, const N: usize> From<&'a Vec<ChannelScale, N>> for Scaling<'a> {
+    fn from(s: &'a Vec<ChannelScale, N>) -> Scaling<'a> {
+        Scaling(ScalingRepr::Items(s))
+    }
+}
+
+impl<'a, const N: usize> From<&'a [ChannelScale; N]> for Scaling<'a> {
+    fn from(s: &'a [ChannelScale; N]) -> Scaling<'a> {
+        Scaling(ScalingRepr::Items(s))
+    }
+}
+
+impl PartialEq for Scaling<'_> {
+    fn eq(&self, other: &Self) -> bool {
+        // Bitwise, as the encoded bytes compare.
+        self.len() == other.len()
+            && self.iter().zip(other.iter()).all(|(a, b)| {
+                a.offset.to_bits() == b.offset.to_bits() && a.gain.to_bits() == b.gain.to_bits()
+            })
+    }
+}
+
+/// Written as postcard writes a list of entries, so a blob re-encoded from a checked one
+/// carries the same bytes.
+impl Serialize for Scaling<'_> {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> Result<S::Ok, S::Error> {
+        use serde::ser::SerializeSeq;
+        let mut seq = s.serialize_seq(Some(self.len()))?;
+        for e in self.iter() {
+            seq.serialize_element(&e)?;
+        }
+        seq.end()
+    }
+}
+
+/// What [`decode`] checks of a checkpoint's state before trusting it: the generator and the
+/// fraction bits. The interval counts are read past, not kept, so the check holds 72 bytes,
+/// not the whole state.
+#[derive(Deserialize)]
+struct StateHead {
+    #[allow(dead_code)]
+    steps: u32,
+    #[allow(dead_code)]
+    updates: u32,
+    rng: [u32; 4],
+    fracs: [[u8; 4]; MAX_LAYERS],
+    #[allow(dead_code)]
+    window: SkipWindow,
+}
+
+/// Reads a [`TrainState::window`] and keeps nothing of it.
+struct SkipWindow;
+
+impl<'de> Deserialize<'de> for SkipWindow {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<SkipWindow, D::Error> {
+        struct Rows;
+        impl<'de> serde::de::Visitor<'de> for Rows {
+            type Value = SkipWindow;
+            fn expecting(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+                f.write_str("interval counts")
+            }
+            fn visit_seq<A: serde::de::SeqAccess<'de>>(
+                self,
+                mut a: A,
+            ) -> Result<SkipWindow, A::Error> {
+                for _ in 0..MAX_LAYERS {
+                    a.next_element::<[u32; 12]>()?
+                        .ok_or_else(|| serde::de::Error::invalid_length(0, &self))?;
+                }
+                Ok(SkipWindow)
+            }
+        }
+        d.deserialize_tuple(MAX_LAYERS, Rows)
+    }
 }
 
 /// The tensors of a [`CheckedBlob`], read one at a time from the validated bytes.
@@ -290,14 +429,18 @@ impl<'a> CheckedBlob<'a> {
         &self.desc
     }
 
-    /// Input scaling.
-    pub fn scaling(&self) -> &[ChannelScale] {
-        &self.scaling
+    /// Input scaling, read from the blob's bytes.
+    pub fn scaling(&self) -> Scaling<'a> {
+        self.scaling
     }
 
-    /// Training state of a checkpoint.
-    pub fn state(&self) -> Option<&TrainState> {
-        self.state.as_ref()
+    /// Training state of a checkpoint, read from the blob's bytes (648 bytes: hold it only
+    /// where it is needed).
+    pub fn state(&self) -> Option<TrainState> {
+        // The bytes were validated by `decode`, so this parse succeeds.
+        postcard::take_from_bytes::<TrainState>(self.state?)
+            .ok()
+            .map(|(st, _)| st)
     }
 
     /// The tensors, in blob order.
@@ -329,11 +472,15 @@ impl<'a> CheckedBlob<'a> {
         for t in self.tensors() {
             tensors.push(t).map_err(|_| BlobError::TooManyTensors)?;
         }
+        let mut scaling = Vec::new();
+        for e in self.scaling.iter() {
+            scaling.push(e).map_err(|_| BlobError::Scaling)?;
+        }
         Ok(BlobBody {
             kind: self.kind,
             desc: self.desc.clone(),
-            scaling: self.scaling.clone(),
-            state: self.state,
+            scaling,
+            state: self.state(),
             tensors,
         })
     }
@@ -363,7 +510,7 @@ pub fn copy_tensor(t: &TensorBlob<'_>, out: &mut RawMut<'_>) -> Result<(), Error
 fn expected(
     desc: &ModelDesc,
     kind: BlobKind,
-    state: Option<&TrainState>,
+    fracs: Option<&[[u8; 4]; MAX_LAYERS]>,
     layer: usize,
     role: TensorRole,
 ) -> Option<(QFormat, bool)> {
@@ -374,10 +521,7 @@ fn expected(
     let checkpoint = kind == BlobKind::Checkpoint;
     let (tw, tb) = (l.mode.trains_weight(), l.mode.trains_bias());
     let momentum = !desc.train.momentum.is_zero();
-    let fracs = state
-        .and_then(|s| s.fracs.get(layer))
-        .copied()
-        .unwrap_or([0; 4]);
+    let fracs = fracs.and_then(|f| f.get(layer)).copied().unwrap_or([0; 4]);
     Some(match role {
         TensorRole::Weight => (l.weight.value, !checkpoint || tw),
         TensorRole::Bias => (l.bias.value, !checkpoint || tb),
@@ -465,21 +609,28 @@ pub fn decode(bytes: &[u8]) -> Result<CheckedBlob<'_>, Error> {
     }
     let (kind, rest): (BlobKind, _) = take(body_bytes)?;
     let (desc, rest): (ModelDesc, _) = take(rest)?;
-    let (scaling, rest): (Vec<ChannelScale, MAX_SCALED_CHANNELS>, _) = take(rest)?;
-    let (state, rest): (Option<TrainState>, _) = take(rest)?;
-    let (count, tensor_bytes): (u64, _) = take(rest)?;
+    // The scaling entries are 8 bytes each: kept as bytes, read when asked for.
+    let (n, rest): (u64, _) = take(rest)?;
+    if n > MAX_SCALED_CHANNELS as u64 || (n as usize) * SCALE_BYTES > rest.len() {
+        return Err(BlobError::Malformed.into());
+    }
+    let (scaling, rest) = rest.split_at(n as usize * SCALE_BYTES);
+    // The state is checked through its head and kept as bytes.
+    let (head, after): (Option<StateHead>, _) = take(rest)?;
+    let state = head.as_ref().map(|_| &rest[1..rest.len() - after.len()]);
+    let (count, tensor_bytes): (u64, _) = take(after)?;
     if count > MAX_TENSORS as u64 {
         return Err(BlobError::TooManyTensors.into());
     }
     let blob = CheckedBlob {
         kind,
         desc,
-        scaling,
+        scaling: Scaling(ScalingRepr::Encoded(scaling)),
         state,
         tensor_bytes,
         count: count as usize,
     };
-    check(&blob)?;
+    check(&blob, head.as_ref())?;
     Ok(blob)
 }
 
@@ -488,8 +639,8 @@ pub fn decode(bytes: &[u8]) -> Result<CheckedBlob<'_>, Error> {
 /// accumulator formats of a layer that keeps no such accumulator (no parameters, or the
 /// weights or the bias not training); and the unused layer slots always (a trainer writes
 /// zeros there). With dynamic fixed point a moving tensor may sit anywhere up to [`MAX_FRAC`].
-pub(crate) fn state_fracs_fit(desc: &ModelDesc, st: &TrainState) -> bool {
-    st.fracs.iter().enumerate().all(|(k, f)| {
+pub(crate) fn state_fracs_fit(desc: &ModelDesc, fracs: &[[u8; 4]; MAX_LAYERS]) -> bool {
+    fracs.iter().enumerate().all(|(k, f)| {
         let Some(l) = desc.layers.get(k) else {
             return *f == [0; 4];
         };
@@ -517,7 +668,7 @@ pub(crate) fn state_fracs_fit(desc: &ModelDesc, st: &TrainState) -> bool {
 
 /// Checks a parsed blob: description, scaling, state, every tensor, required tensors, and
 /// that the tensor list ends exactly at the end of the body.
-fn check(b: &CheckedBlob<'_>) -> Result<(), Error> {
+fn check(b: &CheckedBlob<'_>, head: Option<&StateHead>) -> Result<(), Error> {
     let desc = &b.desc;
     desc.check()?;
     let shapes = crate::model::shapes(desc.input, &desc.layers, desc.loss)?;
@@ -530,10 +681,10 @@ fn check(b: &CheckedBlob<'_>) -> Result<(), Error> {
     {
         return Err(BlobError::Scaling.into());
     }
-    match (b.kind, b.state.as_ref()) {
+    match (b.kind, head) {
         (BlobKind::Model, None) => {}
         (BlobKind::Checkpoint, Some(st)) => {
-            if crate::num::Rng::from_state(st.rng).is_none() || !state_fracs_fit(desc, st) {
+            if crate::num::Rng::from_state(st.rng).is_none() || !state_fracs_fit(desc, &st.fracs) {
                 return Err(BlobError::StateMismatch.into());
             }
         }
@@ -547,7 +698,7 @@ fn check(b: &CheckedBlob<'_>) -> Result<(), Error> {
             postcard::take_from_bytes(rest).map_err(|_| BlobError::Malformed)?;
         rest = r;
         let layer = t.layer as usize;
-        let Some((format, allowed)) = expected(desc, b.kind, b.state.as_ref(), layer, t.role)
+        let Some((format, allowed)) = expected(desc, b.kind, head.map(|h| &h.fracs), layer, t.role)
         else {
             return Err(BlobError::NoSuchLayer { layer: t.layer }.into());
         };
@@ -662,10 +813,10 @@ pub fn encode(body: &BlobBody<'_>, out: &mut [u8]) -> Result<usize, Error> {
 /// [`BlobError::BufferTooSmall`] if `out` is too short; [`BlobError::TooManyTensors`] past
 /// [`MAX_TENSORS`] or when `tensors` does not yield `count` items; [`BlobError::Scaling`] past
 /// [`MAX_SCALED_CHANNELS`].
-pub fn encode_parts<'t, I>(
+pub fn encode_parts<'t, 's, I>(
     kind: BlobKind,
     desc: &ModelDesc,
-    scaling: &[ChannelScale],
+    scaling: impl Into<Scaling<'s>>,
     state: Option<&TrainState>,
     count: usize,
     tensors: I,
@@ -674,6 +825,7 @@ pub fn encode_parts<'t, I>(
 where
     I: Iterator<Item = TensorBlob<'t>>,
 {
+    let scaling = scaling.into();
     if count > MAX_TENSORS {
         return Err(BlobError::TooManyTensors.into());
     }
@@ -707,7 +859,7 @@ where
     }
     put(&kind, out, &mut pos, room)?;
     put(desc, out, &mut pos, room)?;
-    put(scaling, out, &mut pos, room)?;
+    put(&scaling, out, &mut pos, room)?;
     put(&state, out, &mut pos, room)?;
     put(&(count as u64), out, &mut pos, room)?;
     let mut written = 0usize;

@@ -17,7 +17,7 @@
 //!
 //! Everything is integer: losses are [`LossValue`]s, rates are parts per million.
 
-use crate::blob::{self, BlobKind, CheckedBlob, TrainState};
+use crate::blob::{self, BlobKind, CheckedBlob};
 use crate::layer::loss::{LossValue, Target};
 use crate::layer::Tensor;
 use crate::train::{LayerParams, Trainer};
@@ -324,8 +324,9 @@ where
     O: Observer + ?Sized,
 {
     // Everything a rejection must give back: the weights come from `last_good`, the rest
-    // (generator, counters, fraction bits, the dynamic interval) from this snapshot.
-    let saved = trainer.train_state();
+    // (generator, counters, fraction bits, the dynamic interval) from the state saved here,
+    // in the trainer's arena.
+    trainer.save_state();
     obs.enter(Phase::EvalBefore);
     let before = evaluate(trainer, holdout.clone());
     obs.leave(Phase::EvalBefore, before.map_or(0, |e| e.samples));
@@ -336,7 +337,7 @@ where
     obs.leave(Phase::Train, trained);
     // A sample that does not fit ends the session: the weights go back before the error does.
     if let Some(e) = failed {
-        rollback(trainer, last_good, &saved)?;
+        rollback(trainer, last_good)?;
         return Err(e);
     }
 
@@ -346,13 +347,13 @@ where
     let after = match after {
         Ok(a) => a,
         Err(e) => {
-            rollback(trainer, last_good, &saved)?;
+            rollback(trainer, last_good)?;
             return Err(e);
         }
     };
     let verdict = judge(&before, &after, cfg);
     if verdict != Verdict::Accept {
-        rollback(trainer, last_good, &saved)?;
+        rollback(trainer, last_good)?;
     }
     Ok(SessionReport {
         before,
@@ -390,17 +391,14 @@ fn step(trainer: &mut Trainer<'_>, x: Tensor<'_>, t: Target<'_>) -> Result<(), E
 
 /// Puts back the last good weights and, after a factory model, the training state of before
 /// the session.
-fn rollback(
-    trainer: &mut Trainer<'_>,
-    last_good: LastGood<'_>,
-    saved: &TrainState,
-) -> Result<(), Error> {
+fn rollback(trainer: &mut Trainer<'_>, last_good: LastGood<'_>) -> Result<(), Error> {
     match last_good {
-        LastGood::Checked(b) => restore(trainer, b, saved),
-        LastGood::Encoded(bytes) => rollback_encoded(trainer, bytes, saved),
+        LastGood::Checked(b) => restore(trainer, b),
+        LastGood::Encoded(bytes) => rollback_encoded(trainer, bytes),
         LastGood::Params(params) => {
             trainer.load(params)?;
-            trainer.set_train_state(saved)
+            trainer.revert_state();
+            Ok(())
         }
     }
 }
@@ -408,23 +406,15 @@ fn rollback(
 /// Decodes the last good blob and restores it. Kept out of line so the decoded blob takes
 /// stack only here, during such a rollback.
 #[inline(never)]
-fn rollback_encoded(
-    trainer: &mut Trainer<'_>,
-    bytes: &[u8],
-    saved: &TrainState,
-) -> Result<(), Error> {
-    restore(trainer, &blob::decode(bytes)?, saved)
+fn rollback_encoded(trainer: &mut Trainer<'_>, bytes: &[u8]) -> Result<(), Error> {
+    restore(trainer, &blob::decode(bytes)?)
 }
 
-fn restore(
-    trainer: &mut Trainer<'_>,
-    b: &CheckedBlob<'_>,
-    saved: &TrainState,
-) -> Result<(), Error> {
+fn restore(trainer: &mut Trainer<'_>, b: &CheckedBlob<'_>) -> Result<(), Error> {
     trainer.restore(b)?;
-    // A factory blob carries weights only: the rest comes back from the snapshot.
+    // A factory blob carries weights only: the rest comes back from the saved state.
     if b.kind() == BlobKind::Model {
-        trainer.set_train_state(saved)?;
+        trainer.revert_state();
     }
     Ok(())
 }

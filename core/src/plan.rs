@@ -150,8 +150,10 @@ pub struct Plan {
     /// Index of the first layer that trains anything; equal to the layer count if none does.
     pub first_trainable: usize,
     /// The trainer's own state, last in the arena: per layer its live fraction bits and its
-    /// statistics ([`STATE_WORDS_PER_LAYER`] words each), and with dynamic fixed point the
-    /// marks of the interval ([`MARK_WORDS_PER_LAYER`] more). Empty in a float-twin plan.
+    /// statistics ([`STATE_WORDS_PER_LAYER`] words each), with dynamic fixed point the marks
+    /// of the interval ([`MARK_WORDS_PER_LAYER`] more), and the saved training state a
+    /// rejected session goes back to ([`SAVED_HEAD_WORDS`] and [`SAVED_WORDS_PER_LAYER`] per
+    /// layer). Empty in a float-twin plan.
     pub state: Slot,
     /// Total RAM of the arena in bytes (a multiple of 4).
     pub ram_bytes: u32,
@@ -172,6 +174,14 @@ pub const STATE_WORDS_PER_LAYER: u32 = 1 + 6 * 4;
 /// Words per layer of the dynamic-fixed-point interval marks (four tallies), planned only
 /// for a description with dynamic fixed point.
 pub const MARK_WORDS_PER_LAYER: u32 = 4 * 4;
+
+/// Words of the saved training state ([`crate::train::Trainer::save_state`]) before its
+/// layers: steps, updates and the generator's four words.
+pub const SAVED_HEAD_WORDS: u32 = 6;
+
+/// Words per layer of the saved training state: the live fraction bits (one word) and the
+/// interval's values, saturations and outer-half counts of the four moving tensors (12).
+pub const SAVED_WORDS_PER_LAYER: u32 = 1 + 12;
 
 const fn pad4(bytes: u64) -> u64 {
     (bytes + 3) & !3
@@ -411,7 +421,11 @@ impl Plan {
                 } else {
                     0
                 };
-            plan.state = bump.take(n as u32 * per_layer, Word::I32, 0);
+            plan.state = bump.take(
+                n as u32 * (per_layer + SAVED_WORDS_PER_LAYER) + SAVED_HEAD_WORDS,
+                Word::I32,
+                0,
+            );
         }
 
         if bump.overflow || flash > u32::MAX as u64 {
@@ -737,10 +751,11 @@ mod tests {
             interval: 4,
         });
         let dynamic = Plan::new(Shape::vector(3), &layers, Loss::SquaredError, &t).unwrap();
-        assert_eq!(fixed.state.bytes, 2 * STATE_WORDS_PER_LAYER * 4);
+        let saved = (SAVED_HEAD_WORDS + 2 * SAVED_WORDS_PER_LAYER) * 4;
+        assert_eq!(fixed.state.bytes, 2 * STATE_WORDS_PER_LAYER * 4 + saved);
         assert_eq!(
             dynamic.state.bytes,
-            2 * (STATE_WORDS_PER_LAYER + MARK_WORDS_PER_LAYER) * 4
+            2 * (STATE_WORDS_PER_LAYER + MARK_WORDS_PER_LAYER) * 4 + saved
         );
         assert_eq!(
             dynamic.ram_bytes - fixed.ram_bytes,
@@ -790,8 +805,8 @@ mod tests {
         slots.extend(p.forward);
         slots.extend(p.backward);
         // The trainer's state comes last: 25 words for each of the 3 layers (no interval
-        // marks without dynamic fixed point).
-        assert_eq!(p.state.bytes, 3 * 25 * 4);
+        // marks without dynamic fixed point), then the saved state: 6 words and 13 per layer.
+        assert_eq!(p.state.bytes, (3 * 25 + 6 + 3 * 13) * 4);
         slots.push(p.state);
         slots.retain(|s| s.is_some());
         slots.sort_by_key(|s| s.offset);

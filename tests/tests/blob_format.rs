@@ -412,8 +412,8 @@ proptest! {
         prop_assert_eq!(checked.to_body().unwrap(), body.clone());
         prop_assert_eq!(checked.kind(), owned.kind);
         prop_assert_eq!(checked.desc(), &owned.desc);
-        prop_assert_eq!(checked.scaling(), &owned.scaling[..]);
-        prop_assert_eq!(checked.state(), owned.state.as_ref());
+        prop_assert_eq!(checked.scaling(), hone_core::blob::Scaling::from(&owned.scaling[..]));
+        prop_assert_eq!(checked.state(), owned.state);
         for (layer, role, _, _, data) in &owned.tensors {
             let t = checked.tensor(*layer as usize, *role);
             prop_assert_eq!(t.map(|t| t.data), Some(&data[..]));
@@ -790,6 +790,55 @@ fn scaling_must_match_the_input() {
 }
 
 #[test]
+fn a_scaling_list_past_its_limit_or_its_bytes_is_malformed() {
+    // The scaling count is the first body byte that differs between no entries and three.
+    let mut b = reference(BlobKind::Model);
+    let none = b.encode();
+    b.scaling = vec![
+        ChannelScale {
+            offset: 1.0,
+            gain: 0.5
+        };
+        3
+    ];
+    let three = b.encode();
+    assert!(blob::decode(&three).is_ok());
+    let at = (6..none.len())
+        .find(|&i| none[i] != three[i])
+        .expect("the count differs");
+    assert_eq!((none[at], three[at]), (0, 3));
+    let body = &three[6..three.len() - 4];
+    let at = at - 6;
+    // 65 entries, all present: one past `MAX_SCALED_CHANNELS` (a one-byte varint).
+    let n = blob::MAX_SCALED_CHANNELS + 1;
+    let entry = &body[at + 1..at + 1 + 8];
+    let past = [
+        &body[..at],
+        &[n as u8][..],
+        &entry.repeat(n),
+        &body[at + 1 + 3 * 8..],
+    ]
+    .concat();
+    assert_eq!(
+        blob::decode(&frame(&past)).err(),
+        blob_err(BlobError::Malformed)
+    );
+    // 64 entries claimed, 3 present and the rest of the body too short for them.
+    let mut short = body[..at + 1 + 3 * 8].to_vec();
+    short[at] = blob::MAX_SCALED_CHANNELS as u8;
+    assert_eq!(
+        blob::decode(&frame(&short)).err(),
+        blob_err(BlobError::Malformed)
+    );
+    // The entries read back as written, one at a time.
+    let checked = blob::decode(&three).unwrap();
+    assert_eq!(checked.scaling().len(), 3);
+    assert_eq!(checked.scaling().get(2), Some(b.scaling[2]));
+    assert_eq!(checked.scaling().get(3), None);
+    assert_eq!(checked.scaling().iter().collect::<Vec<_>>(), b.scaling);
+}
+
+#[test]
 fn invalid_description_gives_its_own_error() {
     // Built field by field, past `ModelDesc::new`'s check.
     let mut b = reference(BlobKind::Model);
@@ -830,7 +879,8 @@ fn garbage_behind_a_correct_crc_is_malformed() {
     // A valid body cut short, re-framed with a correct CRC.
     let bytes = reference(BlobKind::Checkpoint).encode();
     let body = &bytes[6..bytes.len() - 4];
-    for n in [1, body.len() / 2, body.len() - 1] {
+    // Every cut: each field of the state (read past, not kept, by the decoder) ends early.
+    for n in 1..body.len() {
         assert_eq!(
             blob::decode(&frame(&body[..n])).err(),
             blob_err(BlobError::Malformed),
@@ -908,7 +958,7 @@ fn checkpoint_continues_bit_exact(desc: &ModelDesc, before: usize, after: usize)
     let n = a.write_checkpoint(&[], &mut buf).unwrap();
     let cp = blob::decode(&buf[..n]).unwrap();
     assert_eq!(cp.kind(), BlobKind::Checkpoint);
-    assert_eq!(cp.state(), Some(&a.train_state()));
+    assert_eq!(cp.state(), Some(a.train_state()));
     let mut a2 = vec![0u32; plan.ram_words()];
     let mut b = Trainer::new(desc, &plan, &mut a2, &init).unwrap();
     assert_ne!(

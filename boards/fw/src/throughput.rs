@@ -26,7 +26,7 @@
 
 use hone_core::float::FloatParams;
 use hone_core::layer::Tensor;
-use hone_core::model::{LayerDesc, Loss, ModelDesc, Shape, TrainDesc, MAX_LAYERS};
+use hone_core::model::{Loss, ModelDesc, MAX_LAYERS};
 use hone_core::num::{QFormat, Raw, Rng, Word};
 use hone_core::plan::Plan;
 use hone_core::train::LayerParams;
@@ -54,16 +54,9 @@ pub struct Ranges {
 /// The throughput phase of one board, as the host generated it.
 #[derive(Clone, Copy)]
 pub struct Throughput<'a> {
-    /// Input shape of the model.
-    pub input: Shape,
-    /// Input format.
-    pub input_format: QFormat,
-    /// The layers.
-    pub layers: &'a [LayerDesc],
-    /// The loss (regression: one target value per output).
-    pub loss: Loss,
-    /// The training setup.
-    pub train: TrainDesc,
+    /// The model (regression: one target value per output), checked against
+    /// [`Throughput::plan`] at compile time; a `static` in flash.
+    pub desc: &'a ModelDesc,
     /// Format of the targets.
     pub target_format: QFormat,
     /// The fixed-point memory plan.
@@ -128,7 +121,7 @@ fn draw(rng: &mut Rng, fmt: QFormat, e: i8) -> i32 {
 pub fn generate(t: &Throughput<'_>, mut put: impl FnMut(usize, i32, QFormat)) {
     let mut rng = Rng::new(t.seed);
     let mut at = 0usize;
-    for (k, l) in t.layers.iter().enumerate() {
+    for (k, l) in t.desc.layers.iter().enumerate() {
         let Some(g) = t.plan.shapes.layers.get(k) else {
             break;
         };
@@ -147,7 +140,7 @@ pub fn generate(t: &Throughput<'_>, mut put: impl FnMut(usize, i32, QFormat)) {
     let targets = at + pool * inputs;
     for i in 0..pool {
         for j in 0..inputs {
-            let fmt = t.input_format;
+            let fmt = t.desc.input_format;
             put(
                 at + i * inputs + j,
                 draw(&mut rng, fmt, t.ranges.input),
@@ -166,17 +159,6 @@ pub fn generate(t: &Throughput<'_>, mut put: impl FnMut(usize, i32, QFormat)) {
 }
 
 impl Throughput<'_> {
-    fn desc(&self) -> Result<ModelDesc, SessionError> {
-        ModelDesc::new(
-            self.input,
-            self.input_format,
-            self.layers,
-            self.loss,
-            self.train,
-        )
-        .map_err(SessionError::Engine)
-    }
-
     /// Samples trained on: the pool, `passes` times.
     fn samples(&self) -> u32 {
         u32::from(self.pool) * u32::from(self.passes)
@@ -188,18 +170,18 @@ impl Throughput<'_> {
         let fits = |fmt: QFormat, e: i8| {
             fmt.word == Word::I16 && (0..=15).contains(&(i32::from(fmt.frac) + i32::from(e)))
         };
-        let params_ok = self.layers.iter().all(|l| {
+        let params_ok = self.desc.layers.iter().all(|l| {
             !l.kind.has_params()
                 || (fits(l.weight.value, self.ranges.weight)
                     && fits(l.bias.value, self.ranges.bias))
         });
         if !params_ok
-            || !fits(self.input_format, self.ranges.input)
+            || !fits(self.desc.input_format, self.ranges.input)
             || !fits(self.target_format, self.ranges.target)
         {
             return Err(SessionError::Check("throughput-formats"));
         }
-        if self.loss != Loss::SquaredError {
+        if self.desc.loss != Loss::SquaredError {
             return Err(SessionError::Check("throughput-loss"));
         }
         if drawn_values(self.plan, self.pool) != values {
@@ -260,7 +242,13 @@ fn for_each_layer_params<'v, T>(
     mut put: impl FnMut(usize, &'v [T], &'v [T]),
 ) {
     let mut rest = init;
-    for (k, (l, g)) in t.layers.iter().zip(t.plan.shapes.layers.iter()).enumerate() {
+    for (k, (l, g)) in t
+        .desc
+        .layers
+        .iter()
+        .zip(t.plan.shapes.layers.iter())
+        .enumerate()
+    {
         let (w, r) = rest
             .split_at_checked(g.weights as usize)
             .unwrap_or((&[], &[]));
@@ -281,7 +269,6 @@ fn train_fixed<P: Platform, const ARENA: usize, const VALUES: usize>(
     t: &Throughput<'_>,
     entry: u32,
 ) -> Result<(), SessionError> {
-    let desc = t.desc()?;
     let mut values = [0i16; VALUES];
     generate(t, |i, raw, _| {
         if let Some(v) = values.get_mut(i) {
@@ -310,9 +297,9 @@ fn train_fixed<P: Platform, const ARENA: usize, const VALUES: usize>(
         }),
     };
     let mut arena = [0u32; ARENA];
-    let params = params.get(..t.layers.len()).unwrap_or(&[]);
+    let params = params.get(..t.desc.layers.len()).unwrap_or(&[]);
     // Used where the core's result put it, never moved out, so this frame holds it once.
-    let mut made = engine::new_trainer(&desc, t.plan, &mut arena, params);
+    let mut made = engine::new_trainer(t.desc, t.plan, &mut arena, params);
     let trainer = match &mut made {
         Ok(tr) => tr,
         Err(e) => return Err(SessionError::Engine(*e)),
@@ -332,7 +319,6 @@ fn train_f32<P: Platform, const FLOAT_ARENA: usize, const VALUES: usize>(
     t: &Throughput<'_>,
     entry: u32,
 ) -> Result<(), SessionError> {
-    let desc = t.desc()?;
     let mut values = [0f32; VALUES];
     generate(t, |i, raw, fmt| {
         if let Some(v) = values.get_mut(i) {
@@ -355,9 +341,9 @@ fn train_f32<P: Platform, const FLOAT_ARENA: usize, const VALUES: usize>(
         y: FloatTargets::Values(y),
     };
     let mut arena = [0f32; FLOAT_ARENA];
-    let params = params.get(..t.layers.len()).unwrap_or(&[]);
+    let params = params.get(..t.desc.layers.len()).unwrap_or(&[]);
     let mut twin =
-        engine::new_twin(&desc, t.float_plan, &mut arena, params).map_err(SessionError::Engine)?;
+        engine::new_twin(t.desc, t.float_plan, &mut arena, params).map_err(SessionError::Engine)?;
     let (trained, span) = ctx.time(work(t, t.float_plan), || {
         engine::train_twin(&mut twin, t.float_plan, &set, t.passes)
     });
@@ -365,5 +351,11 @@ fn train_f32<P: Platform, const FLOAT_ARENA: usize, const VALUES: usize>(
     let stack = memory::stack_usage_since_repaint();
     record::span("tput_f32_train", &span);
     record::stack("tput_f32", entry, stack.peak);
-    send_twin(ctx, "tput_f32_weights", t.float_plan, t.layers.len(), &twin)
+    send_twin(
+        ctx,
+        "tput_f32_weights",
+        t.float_plan,
+        t.desc.layers.len(),
+        &twin,
+    )
 }

@@ -36,8 +36,8 @@ use core::mem::size_of;
 use hone_core::blob::{ChannelScale, CheckedBlob};
 use hone_core::float::{FloatParams, Twin};
 use hone_core::guard::{Evaluation, GuardConfig, Rejection, Verdict};
-use hone_core::model::{LayerDesc, Loss, ModelDesc, Shape, TrainDesc};
-use hone_core::num::{QFormat, Raw};
+use hone_core::model::ModelDesc;
+use hone_core::num::Raw;
 use hone_core::plan::Plan;
 use hone_core::session::{self, LastGood, Observer, Phase};
 use hone_core::train::{LayerParams, Trainer};
@@ -53,16 +53,9 @@ pub use hone_core::session::{FloatSet, FloatTargets, SampleSet, Targets};
 /// Everything one calibration session needs, as the host generated it for the board.
 #[derive(Clone, Copy)]
 pub struct Session<'a> {
-    /// Input shape of the model.
-    pub input: Shape,
-    /// Input format.
-    pub input_format: QFormat,
-    /// The layers.
-    pub layers: &'a [LayerDesc],
-    /// The loss.
-    pub loss: Loss,
-    /// The training setup.
-    pub train: TrainDesc,
+    /// The model description, checked against [`Session::plan`] at compile time (a `static`
+    /// in flash, so no frame holds a copy).
+    pub desc: &'a ModelDesc,
     /// The fixed-point memory plan.
     pub plan: &'a Plan,
     /// Factory parameters, one entry per layer.
@@ -173,19 +166,8 @@ fn sat_u32(v: u64) -> u32 {
 }
 
 impl Session<'_> {
-    fn desc(&self) -> Result<ModelDesc, SessionError> {
-        ModelDesc::new(
-            self.input,
-            self.input_format,
-            self.layers,
-            self.loss,
-            self.train,
-        )
-        .map_err(SessionError::Engine)
-    }
-
     fn inputs(&self) -> usize {
-        self.input.size() as usize
+        self.desc.input.size() as usize
     }
 
     fn outputs(&self) -> usize {
@@ -232,7 +214,8 @@ pub(crate) mod engine {
         arena: &'a mut [u32],
         params: &'a [LayerParams<'a>],
     ) -> Result<Trainer<'a>, Error> {
-        Trainer::new(desc, plan, arena, params)
+        // The description was checked against the plan at compile time (`ModelDesc::new_const`).
+        Trainer::new_planned(desc, plan, arena, params)
     }
 
     /// Training without a guard: [`session::train`].
@@ -351,7 +334,7 @@ pub fn run<P: Platform, const ARENA: usize, const FLOAT_ARENA: usize, const CHEC
 /// stack only here.
 #[inline(never)]
 fn check_model_blob(s: &Session<'_>) -> Result<(), SessionError> {
-    if engine::blob_matches(s.model_blob, &s.desc()?).map_err(SessionError::Engine)? {
+    if engine::blob_matches(s.model_blob, s.desc).map_err(SessionError::Engine)? {
         Ok(())
     } else {
         Err(SessionError::Check("model-blob-describes-another-model"))
@@ -379,11 +362,10 @@ fn guarded<P: Platform, const ARENA: usize, const CHECKPOINT: usize>(
     names: &SetNames,
     entry: u32,
 ) -> Result<(), SessionError> {
-    let desc = s.desc()?;
     let mut arena = [0u32; ARENA];
     // The trainer is used where the core's result put it, never moved out of it, so this frame
     // holds it once.
-    let mut made = engine::new_trainer(&desc, s.plan, &mut arena, s.params);
+    let mut made = engine::new_trainer(s.desc, s.plan, &mut arena, s.params);
     let trainer = match &mut made {
         Ok(t) => t,
         Err(e) => return Err(SessionError::Engine(*e)),
@@ -510,9 +492,8 @@ fn float_twin<P: Platform, const FLOAT_ARENA: usize>(
     s: &Session<'_>,
     entry: u32,
 ) -> Result<(), SessionError> {
-    let desc = s.desc()?;
     let mut arena = [0f32; FLOAT_ARENA];
-    let mut twin = engine::new_twin(&desc, s.float_plan, &mut arena, s.float_params)
+    let mut twin = engine::new_twin(s.desc, s.float_plan, &mut arena, s.float_params)
         .map_err(SessionError::Engine)?;
     let (forward, backward) = training_macs(s.float_plan);
     let set = &s.float_calibration;
@@ -537,7 +518,7 @@ fn report_twin<P: Platform>(
 ) -> Result<(), SessionError> {
     record::span("f32_train", span);
     record::stack("f32", entry, peak);
-    send_twin(ctx, "f32_weights", s.float_plan, s.layers.len(), twin)
+    send_twin(ctx, "f32_weights", s.float_plan, s.desc.layers.len(), twin)
 }
 
 /// Sends the trained tensors of `twin` (planned by `plan`, `layers` layers) as the payload

@@ -44,6 +44,10 @@ pub const PLAN: hone_core::plan::Plan = match hone_core::plan::Plan::new(INPUT, 
     Ok(p) => p,
     Err(_) => panic!("the exported model does not plan"),
 };
+pub static DESC: hone_core::model::ModelDesc = match hone_core::model::ModelDesc::check_planned(INPUT, INPUT_FORMAT, &LAYERS, LOSS, &TRAIN, &PLAN) {
+    Ok(()) => hone_core::model::ModelDesc::from_array(INPUT, INPUT_FORMAT, LAYERS, LOSS, TRAIN),
+    Err(_) => panic!("the exported model does not match its plan"),
+};
 pub const ARENA_WORDS: usize = PLAN.ram_words();
 
 pub static W0: [i16; 16] = [

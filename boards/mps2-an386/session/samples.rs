@@ -68,11 +68,7 @@ pub const FLOAT_ARENA_WORDS: usize = FLOAT_PLAN.ram_words();
 pub const CHECKPOINT_BYTES: usize = 1149;
 
 pub static SESSION: hone_fw::train::Session<'static> = hone_fw::train::Session {
-    input: INPUT,
-    input_format: INPUT_FORMAT,
-    layers: &LAYERS,
-    loss: LOSS,
-    train: TRAIN,
+    desc: &DESC,
     plan: &PLAN,
     params: &PARAMS,
     model_blob: &MODEL_BLOB,
@@ -109,7 +105,7 @@ pub static SESSION: hone_fw::train::Session<'static> = hone_fw::train::Session {
 
 // The throughput phase (hone_fw::throughput): a larger model trained on values the board
 // draws from the core's generator, chosen with the memory plan for this board's RAM.
-// Model 64-32-8: predicted 24292 B in fixed point, 34204 B in f32, of 4194304 B.
+// Model 64-32-8: predicted 22944 B in fixed point, 34204 B in f32, of 4194304 B.
 pub const TPUT_INPUT: hone_core::model::Shape = hone_core::model::Shape { channels: 64, len: 1 };
 pub const TPUT_INPUT_FORMAT: hone_core::num::QFormat = hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 12);
 pub const TPUT_TRAIN: hone_core::model::TrainDesc = hone_core::model::TrainDesc {
@@ -158,6 +154,10 @@ pub const TPUT_FLOAT_PLAN: hone_core::plan::Plan =
         Ok(p) => p,
         Err(_) => panic!("the throughput model has no float plan"),
     };
+pub static TPUT_DESC: hone_core::model::ModelDesc = match hone_core::model::ModelDesc::check_planned(TPUT_INPUT, TPUT_INPUT_FORMAT, &TPUT_LAYERS, hone_core::model::Loss::SquaredError, &TPUT_TRAIN, &TPUT_PLAN) {
+        Ok(()) => hone_core::model::ModelDesc::from_array(TPUT_INPUT, TPUT_INPUT_FORMAT, TPUT_LAYERS, hone_core::model::Loss::SquaredError, TPUT_TRAIN),
+        Err(_) => panic!("the throughput model does not match its plan"),
+    };
 pub const TPUT_ARENA_WORDS: usize = TPUT_PLAN.ram_words();
 pub const TPUT_FLOAT_ARENA_WORDS: usize = TPUT_FLOAT_PLAN.ram_words();
 /// Distinct samples drawn, and passes over them.
@@ -166,11 +166,7 @@ pub const TPUT_PASSES: u16 = 4;
 pub const TPUT_VALUES: usize = hone_fw::throughput::drawn_values(&TPUT_PLAN, TPUT_POOL);
 
 pub static THROUGHPUT: Option<hone_fw::throughput::Throughput<'static>> = Some(hone_fw::throughput::Throughput {
-    input: TPUT_INPUT,
-    input_format: TPUT_INPUT_FORMAT,
-    layers: &TPUT_LAYERS,
-    loss: hone_core::model::Loss::SquaredError,
-    train: TPUT_TRAIN,
+    desc: &TPUT_DESC,
     target_format: hone_core::num::QFormat::new_unchecked(hone_core::num::Word::I16, 12),
     plan: &TPUT_PLAN,
     float_plan: &TPUT_FLOAT_PLAN,

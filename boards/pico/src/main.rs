@@ -102,13 +102,13 @@ fn calibrate<P: Platform>(
     channel: &mut impl AdcChannel,
 ) -> Result<(), SessionError> {
     let stored = &session::SESSION;
-    let inputs = stored.input.size() as usize;
+    let inputs = stored.desc.input.size() as usize;
     let scale = session::SCALING
         .first()
         .copied()
         .ok_or(SessionError::Check("no-input-scaling"))?;
     // The channel's scale in fixed point: integer arithmetic from here on (the M0+ has no FPU).
-    let scale = ReadingScale::new(scale, stored.input_format).map_err(SessionError::Engine)?;
+    let scale = ReadingScale::new(scale, stored.desc.input_format).map_err(SessionError::Engine)?;
     // The soil model's inputs are Q3.12 (`i16`); another model fails to compile here.
     let mut x: [i16; session::CALIB_X.len()] = session::CALIB_X;
     for row in x.chunks_mut(inputs) {

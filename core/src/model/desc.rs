@@ -433,15 +433,8 @@ impl ModelDesc {
         train: TrainDesc,
         plan: &crate::plan::Plan,
     ) -> Result<ModelDesc, Error> {
+        Self::check_planned(input, input_format, layers, loss, &train, plan)?;
         let layers = Vec::from_slice(layers).map_err(|_| Error::TooManyLayers)?;
-        if !input_format.is_valid() || !input_format.word.is_built_for_values() {
-            return Err(Error::InvalidFormat);
-        }
-        if plan.float_bytes != 0
-            || plan.fingerprint != crate::plan::fingerprint(input, &layers, loss, &train)
-        {
-            return Err(Error::PlanMismatch);
-        }
         Ok(ModelDesc {
             input,
             input_format,
@@ -449,6 +442,77 @@ impl ModelDesc {
             loss,
             train,
         })
+    }
+
+    /// The checks of [`ModelDesc::new_planned`], as a `const fn` for a `static` description
+    /// beside its `const` plan: a firmware then keeps the description in flash instead of
+    /// building one on its stack. Pair it with [`ModelDesc::from_array`]:
+    /// ```
+    /// # use hone_core::model::{LayerDesc, LayerKind, Loss, ModelDesc, ParamFormats, Shape};
+    /// # use hone_core::model::{TrainDesc, TrainMode};
+    /// # use hone_core::num::{QFormat, QScalar, Word};
+    /// # use hone_core::plan::Plan;
+    /// # const Q: QFormat = QFormat::new_unchecked(Word::I16, 12);
+    /// # const P: ParamFormats = ParamFormats::plain(Q, 20);
+    /// const INPUT: Shape = Shape::vector(1);
+    /// const LAYERS: [LayerDesc; 1] = [LayerDesc { kind: LayerKind::Dense { units: 1 },
+    ///     mode: TrainMode::Full, weight: P, bias: P, out: Q, grad: Q }];
+    /// const TRAIN: TrainDesc = TrainDesc::sgd(QScalar { raw: 1, frac: 4 });
+    /// const PLAN: Plan = match Plan::new(INPUT, &LAYERS, Loss::SquaredError, &TRAIN) {
+    ///     Ok(p) => p,
+    ///     Err(_) => panic!("does not plan"),
+    /// };
+    /// static DESC: ModelDesc =
+    ///     match ModelDesc::check_planned(INPUT, Q, &LAYERS, Loss::SquaredError, &TRAIN, &PLAN) {
+    ///         Ok(()) => ModelDesc::from_array(INPUT, Q, LAYERS, Loss::SquaredError, TRAIN),
+    ///         Err(_) => panic!("does not match its plan"),
+    ///     };
+    /// assert_eq!(DESC.layers.len(), 1);
+    /// ```
+    ///
+    /// # Errors
+    /// [`Error::TooManyLayers`] past [`MAX_LAYERS`]; [`Error::InvalidFormat`] for an input
+    /// format that is invalid or not built; [`Error::PlanMismatch`] when `plan` is a float
+    /// twin's plan or was not made from these parts.
+    pub const fn check_planned(
+        input: Shape,
+        input_format: QFormat,
+        layers: &[LayerDesc],
+        loss: Loss,
+        train: &TrainDesc,
+        plan: &crate::plan::Plan,
+    ) -> Result<(), Error> {
+        if layers.len() > MAX_LAYERS {
+            return Err(Error::TooManyLayers);
+        }
+        if !input_format.is_valid() || !input_format.word.is_built_for_values() {
+            return Err(Error::InvalidFormat);
+        }
+        if plan.float_bytes != 0
+            || plan.fingerprint != crate::plan::fingerprint(input, layers, loss, train)
+        {
+            return Err(Error::PlanMismatch);
+        }
+        Ok(())
+    }
+
+    /// A description from its parts, unchecked, as a `const fn`: for a `static` whose parts
+    /// passed [`ModelDesc::check_planned`] (see there). `N` is at most [`MAX_LAYERS`] (the
+    /// build fails otherwise).
+    pub const fn from_array<const N: usize>(
+        input: Shape,
+        input_format: QFormat,
+        layers: [LayerDesc; N],
+        loss: Loss,
+        train: TrainDesc,
+    ) -> ModelDesc {
+        ModelDesc {
+            input,
+            input_format,
+            layers: Vec::from_array(layers),
+            loss,
+            train,
+        }
     }
 
     /// Checks every layer's sizes and formats, the loss against the output, and the

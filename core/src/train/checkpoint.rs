@@ -11,8 +11,7 @@ use heapless::Vec;
 
 use super::{LiveFracs, Trainer};
 use crate::blob::{
-    self, BlobBody, BlobError, BlobKind, ChannelScale, CheckedBlob, TensorBlob, TensorRole,
-    TrainState,
+    self, BlobBody, BlobError, BlobKind, CheckedBlob, Scaling, TensorBlob, TensorRole, TrainState,
 };
 use crate::error::Error;
 use crate::model::MAX_LAYERS;
@@ -21,6 +20,13 @@ use crate::plan::Slot;
 
 #[cfg(target_endian = "big")]
 compile_error!("hone-core writes tensors as little-endian bytes straight from memory");
+
+/// `src` into `dst`, word for word (the lengths are the caller's to match).
+fn copy_words(dst: &mut [u32], src: &[u32]) {
+    for (d, s) in dst.iter_mut().zip(src) {
+        *d = *s;
+    }
+}
 
 fn slot_bytes(arena: &[u32], slot: Slot, fmt: QFormat) -> &[u8] {
     let words = arena
@@ -37,19 +43,11 @@ impl Trainer<'_> {
     pub fn train_state(&self) -> TrainState {
         let mut fracs = [[0u8; 4]; MAX_LAYERS];
         for (f, l) in fracs.iter_mut().zip(self.live.iter()) {
-            *f = [l.out, l.grad, l.accum_weight, l.accum_bias];
+            *f = l.bytes();
         }
         let mut window = [[0u32; 12]; MAX_LAYERS];
-        // Without dynamic fixed point there are no interval marks: the interval is the whole
-        // run, as if its marks were zero.
-        let no_marks = [crate::kernel::Tally::default(); 4];
-        for (k, (w, now)) in window.iter_mut().zip(self.stats.iter()).enumerate() {
-            let mark = self.marks.get(k).unwrap_or(&no_marks);
-            for (i, (n, m)) in now.moving().iter().zip(mark.iter()).enumerate() {
-                w[i] = n.values.saturating_sub(m.values);
-                w[4 + i] = n.saturations.saturating_sub(m.saturations);
-                w[8 + i] = n.high.saturating_sub(m.high);
-            }
+        for (k, w) in window.iter_mut().enumerate().take(self.stats.len()) {
+            *w = self.window(k);
         }
         TrainState {
             steps: self.steps,
@@ -60,13 +58,103 @@ impl Trainer<'_> {
         }
     }
 
+    /// The counts of layer `k`'s current interval: values, saturations and outer-half counts
+    /// of its four moving tensors since the last mark. Without dynamic fixed point there are
+    /// no interval marks: the interval is the whole run, as if its marks were zero.
+    fn window(&self, k: usize) -> [u32; 12] {
+        let no_marks = [crate::kernel::Tally::default(); 4];
+        let mark = self.marks.get(k).unwrap_or(&no_marks);
+        let mut w = [0u32; 12];
+        if let Some(now) = self.stats.get(k) {
+            for (i, (n, m)) in now.moving().iter().zip(mark.iter()).enumerate() {
+                w[i] = n.values.saturating_sub(m.values);
+                w[4 + i] = n.saturations.saturating_sub(m.saturations);
+                w[8 + i] = n.high.saturating_sub(m.high);
+            }
+        }
+        w
+    }
+
+    /// Keeps the training state ([`Trainer::train_state`]: steps, updates, the generator,
+    /// the live fraction bits and the interval counts) in the arena ([`Plan::state`](crate::plan::Plan::state)),
+    /// for [`Trainer::revert_state`]. The guarded session saves it before training, so a
+    /// rejected session goes back to it without a copy of the state on the stack.
+    pub fn save_state(&mut self) {
+        let head = crate::plan::SAVED_HEAD_WORDS as usize;
+        let per = crate::plan::SAVED_WORDS_PER_LAYER as usize;
+        let rng = self.rng.state();
+        let mut words = [self.steps, self.updates, rng[0], rng[1], rng[2], rng[3]];
+        copy_words(&mut self.saved[..head], &words);
+        for k in 0..self.live.len() {
+            let w = self.window(k);
+            let at = head + k * per;
+            words[0] = u32::from_le_bytes(self.live[k].bytes());
+            copy_words(&mut self.saved[at..at + 1], &words[..1]);
+            copy_words(&mut self.saved[at + 1..at + per], &w);
+        }
+    }
+
+    /// Puts back the training state [`Trainer::save_state`] kept, as
+    /// [`Trainer::set_train_state`] does with a checkpoint's: statistics restart from the saved
+    /// interval counts, and the interval marks from zero. Before any `save_state` it does
+    /// nothing. The weights, accumulators and a partial batch stay as they are.
+    pub fn revert_state(&mut self) {
+        let head = crate::plan::SAVED_HEAD_WORDS as usize;
+        let per = crate::plan::SAVED_WORDS_PER_LAYER as usize;
+        let s = &*self.saved;
+        // A saved generator state came from a generator, so it is not the all-zero state that
+        // a new trainer's empty save holds.
+        let Some(rng) = Rng::from_state([s[2], s[3], s[4], s[5]]) else {
+            return;
+        };
+        self.rng = rng;
+        self.steps = s[0];
+        self.updates = s[1];
+        for k in 0..self.live.len() {
+            let at = head + k * per;
+            let mut w = [0u32; 12];
+            w.copy_from_slice(&self.saved[at + 1..at + per]);
+            self.live[k] = LiveFracs::from_bytes(self.saved[at].to_le_bytes());
+            self.restart_stats(k, &w);
+        }
+    }
+
+    /// Layer `k`'s statistics restart from an interval's counts (`window`), and its interval
+    /// marks (with dynamic fixed point) from zero.
+    fn restart_stats(&mut self, k: usize, w: &[u32; 12]) {
+        let mut s = super::LayerStats::default();
+        for (i, t) in [
+            &mut s.out,
+            &mut s.grad,
+            &mut s.accum_weight,
+            &mut s.accum_bias,
+        ]
+        .into_iter()
+        .enumerate()
+        {
+            t.values = w[i];
+            t.saturations = w[4 + i];
+            t.high = w[8 + i];
+        }
+        if let Some(st) = self.stats.get_mut(k) {
+            *st = s;
+        }
+        // Interval marks exist only with dynamic fixed point.
+        if let Some(mark) = self.marks.get_mut(k) {
+            *mark = [crate::kernel::Tally::default(); 4];
+        }
+    }
+
     /// The checkpoint body: description, scaling, state and every trained tensor, borrowing
     /// the tensors from the arena.
     ///
     /// # Errors
     /// [`Error::InvalidTraining`] while samples of a batch are pending;
     /// [`BlobError::Scaling`] if `scaling` is too long.
-    pub fn checkpoint_body(&self, scaling: &[ChannelScale]) -> Result<BlobBody<'_>, Error> {
+    pub fn checkpoint_body<'s>(
+        &self,
+        scaling: impl Into<Scaling<'s>>,
+    ) -> Result<BlobBody<'_>, Error> {
         if self.in_batch != 0 {
             return Err(Error::InvalidTraining);
         }
@@ -74,10 +162,14 @@ impl Trainer<'_> {
         for t in self.checkpoint_tensors() {
             tensors.push(t).map_err(|_| BlobError::TooManyTensors)?;
         }
+        let mut entries = Vec::new();
+        for e in scaling.into().iter() {
+            entries.push(e).map_err(|_| BlobError::Scaling)?;
+        }
         Ok(BlobBody {
             kind: BlobKind::Checkpoint,
             desc: self.desc.clone(),
-            scaling: Vec::from_slice(scaling).map_err(|_| BlobError::Scaling)?,
+            scaling: entries,
             state: Some(self.train_state()),
             tensors,
         })
@@ -124,9 +216,9 @@ impl Trainer<'_> {
     /// [`Error::InvalidTraining`] while samples of a batch are pending ([`Trainer::flush`]
     /// first: a checkpoint carries no gradient accumulators); [`BlobError::BufferTooSmall`];
     /// [`BlobError::Scaling`] if `scaling` is too long.
-    pub fn write_checkpoint(
+    pub fn write_checkpoint<'s>(
         &self,
-        scaling: &[ChannelScale],
+        scaling: impl Into<Scaling<'s>>,
         out: &mut [u8],
     ) -> Result<usize, Error> {
         // A checkpoint carries no gradient accumulators: samples of a partial batch would be
@@ -180,7 +272,7 @@ impl Trainer<'_> {
             };
             self.copy_into(slot, &t)?;
         }
-        self.set_train_state(state)?;
+        self.set_train_state(&state)?;
         self.clear_accumulators();
         Ok(())
     }
@@ -196,40 +288,15 @@ impl Trainer<'_> {
     /// nothing is changed then.
     pub fn set_train_state(&mut self, state: &TrainState) -> Result<(), Error> {
         let rng = Rng::from_state(state.rng).ok_or(BlobError::StateMismatch)?;
-        if !crate::blob::state_fracs_fit(self.desc, state) {
+        if !crate::blob::state_fracs_fit(self.desc, &state.fracs) {
             return Err(BlobError::StateMismatch.into());
         }
         self.steps = state.steps;
         self.updates = state.updates;
         self.rng = rng;
-        for (l, f) in self.live.iter_mut().zip(state.fracs.iter()) {
-            *l = LiveFracs {
-                out: f[0],
-                grad: f[1],
-                accum_weight: f[2],
-                accum_bias: f[3],
-            };
-        }
-        for (k, (st, w)) in self.stats.iter_mut().zip(state.window.iter()).enumerate() {
-            let mut s = super::LayerStats::default();
-            for (i, t) in [
-                &mut s.out,
-                &mut s.grad,
-                &mut s.accum_weight,
-                &mut s.accum_bias,
-            ]
-            .into_iter()
-            .enumerate()
-            {
-                t.values = w[i];
-                t.saturations = w[4 + i];
-                t.high = w[8 + i];
-            }
-            *st = s;
-            // Interval marks exist only with dynamic fixed point.
-            if let Some(mark) = self.marks.get_mut(k) {
-                *mark = [crate::kernel::Tally::default(); 4];
-            }
+        for (k, f) in state.fracs.iter().enumerate().take(self.live.len()) {
+            self.live[k] = LiveFracs::from_bytes(*f);
+            self.restart_stats(k, &state.window[k]);
         }
         Ok(())
     }
@@ -443,6 +510,91 @@ mod tests {
             assert_eq!(b.stats(k).unwrap().moving(), a.stats(k).unwrap().moving());
         }
         assert_eq!(b.train_state(), state);
+    }
+
+    /// `revert_state` gives back what `save_state` kept, with dynamic fixed point and
+    /// stochastic rounding: the same state as `set_train_state` with the saved
+    /// `train_state`, and from there the same training, bit for bit.
+    #[test]
+    fn reverting_the_saved_state_equals_setting_it() {
+        let d = desc();
+        let plan = Plan::of(&d).unwrap();
+        let w: [i8; 18] = core::array::from_fn(|i| (i as i8 * 7) - 60);
+        let w2: [i8; 12] = core::array::from_fn(|i| 40 - (i as i8 * 5));
+        let (b0, b2) = ([3i8; 6], [-2i8; 2]);
+        let init = [
+            LayerParams {
+                weight: Raw::I8(&w),
+                bias: Raw::I8(&b0),
+            },
+            LayerParams::NONE,
+            LayerParams {
+                weight: Raw::I8(&w2),
+                bias: Raw::I8(&b2),
+            },
+        ];
+        let step = |t: &mut Trainer<'_>, i: i32| {
+            let (x, y) = sample(i);
+            t.step(
+                Tensor {
+                    raw: Raw::I16(&x),
+                    fmt: d.input_format,
+                },
+                Target::Values(Tensor {
+                    raw: Raw::I16(&y),
+                    fmt: d.layers[2].out,
+                }),
+            )
+            .unwrap();
+        };
+        // Before any save, reverting changes nothing (the arena's old contents are not read as
+        // a saved state).
+        let mut c1 = vec![u32::MAX; plan.ram_words()];
+        let mut c = Trainer::new(&d, &plan, &mut c1, &init).unwrap();
+        let start = c.train_state();
+        step(&mut c, 0);
+        let stepped = c.train_state();
+        assert_ne!(stepped, start);
+        c.revert_state();
+        assert_eq!(c.train_state(), stepped);
+        let mut a1 = vec![0u32; plan.ram_words()];
+        let mut a = Trainer::new(&d, &plan, &mut a1, &init).unwrap();
+        for i in 0..5 {
+            step(&mut a, i);
+        }
+        a.save_state();
+        let saved = a.train_state();
+        // Formats moved and an interval is under way: a state worth saving.
+        assert_eq!(saved.steps, 5);
+        assert_ne!(saved.fracs, start.fracs);
+        assert!(saved.window.iter().flatten().any(|&c| c > 0), "{saved:?}");
+        for i in 5..12 {
+            step(&mut a, i);
+        }
+        a.flush();
+        assert_ne!(a.train_state(), saved);
+        a.revert_state();
+        assert_eq!(a.train_state(), saved);
+        // The same as setting the state on a trainer with the same weights, for the rest of
+        // a run.
+        let mut b1 = vec![0u32; plan.ram_words()];
+        let mut b = Trainer::new(&d, &plan, &mut b1, &init).unwrap();
+        for i in 0..12 {
+            step(&mut b, i);
+            if i == 4 {
+                b.save_state();
+            }
+        }
+        b.flush();
+        b.set_train_state(&saved).unwrap();
+        for i in 12..20 {
+            step(&mut a, i);
+            step(&mut b, i);
+        }
+        assert_eq!(a.train_state(), b.train_state());
+        for k in 0..3 {
+            assert_eq!(a.stats(k), b.stats(k), "layer {k}");
+        }
     }
 
     #[test]

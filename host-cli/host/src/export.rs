@@ -11,6 +11,7 @@
 //! | `TRAIN` | `TrainDesc` | training setup |
 //! | `LAYERS` | `[LayerDesc; N]` | the layers with every format |
 //! | `PLAN` | `Plan` | the memory plan, computed at compile time by the core's `const fn` |
+//! | `DESC` | `static ModelDesc` | the description, checked against `PLAN` at compile time, in flash (for `Trainer::new_planned`) |
 //! | `ARENA_WORDS` | `usize` | size of the `[u32]` working memory the trainer needs |
 //! | `W0`, `B0`, … | `[i8 / i16 / i32; n]` | factory parameters of each layer with parameters, in flash |
 //! | `PARAMS` | `[LayerParams<'static>; N]` | the parameters as the trainer takes them |
@@ -281,6 +282,10 @@ pub fn rust_source(
     let _ = writeln!(
         s,
         "pub const PLAN: hone_core::plan::Plan = match hone_core::plan::Plan::new(INPUT, &LAYERS, LOSS, &TRAIN) {{\n    Ok(p) => p,\n    Err(_) => panic!(\"the exported model does not plan\"),\n}};"
+    );
+    let _ = writeln!(
+        s,
+        "pub static DESC: hone_core::model::ModelDesc = match hone_core::model::ModelDesc::check_planned(INPUT, INPUT_FORMAT, &LAYERS, LOSS, &TRAIN, &PLAN) {{\n    Ok(()) => hone_core::model::ModelDesc::from_array(INPUT, INPUT_FORMAT, LAYERS, LOSS, TRAIN),\n    Err(_) => panic!(\"the exported model does not match its plan\"),\n}};"
     );
     let _ = writeln!(s, "pub const ARENA_WORDS: usize = PLAN.ram_words();\n");
     let mut entries = Vec::new();

@@ -562,6 +562,10 @@ pub fn render(choice: &Choice) -> String {
          pub const TPUT_FLOAT_PLAN: hone_core::plan::Plan =\n    \
          match hone_core::plan::Plan::new_float(TPUT_INPUT, &TPUT_LAYERS, {loss}, &TPUT_TRAIN, 4) {{\n        \
          Ok(p) => p,\n        Err(_) => panic!(\"the throughput model has no float plan\"),\n    }};\n\
+         pub static TPUT_DESC: hone_core::model::ModelDesc = match hone_core::model::ModelDesc::check_planned(\
+         TPUT_INPUT, TPUT_INPUT_FORMAT, &TPUT_LAYERS, {loss}, &TPUT_TRAIN, &TPUT_PLAN) {{\n        \
+         Ok(()) => hone_core::model::ModelDesc::from_array(TPUT_INPUT, TPUT_INPUT_FORMAT, TPUT_LAYERS, {loss}, TPUT_TRAIN),\n        \
+         Err(_) => panic!(\"the throughput model does not match its plan\"),\n    }};\n\
          pub const TPUT_ARENA_WORDS: usize = TPUT_PLAN.ram_words();\n\
          pub const TPUT_FLOAT_ARENA_WORDS: usize = TPUT_FLOAT_PLAN.ram_words();\n\
          /// Distinct samples drawn, and passes over them.\n\
@@ -573,9 +577,7 @@ pub fn render(choice: &Choice) -> String {
     let _ = writeln!(
         out,
         "\npub static THROUGHPUT: Option<hone_fw::throughput::Throughput<'static>> = \
-         Some(hone_fw::throughput::Throughput {{\n    input: TPUT_INPUT,\n    \
-         input_format: TPUT_INPUT_FORMAT,\n    layers: &TPUT_LAYERS,\n    loss: {loss},\n    \
-         train: TPUT_TRAIN,\n    target_format: {},\n    plan: &TPUT_PLAN,\n    \
+         Some(hone_fw::throughput::Throughput {{\n    desc: &TPUT_DESC,\n    target_format: {},\n    plan: &TPUT_PLAN,\n    \
          float_plan: &TPUT_FLOAT_PLAN,\n    seed: {:#x},\n    \
          ranges: hone_fw::throughput::Ranges {{ weight: {}, bias: {}, input: {}, target: {} }},\n    \
          pool: TPUT_POOL,\n    passes: TPUT_PASSES,\n}});",

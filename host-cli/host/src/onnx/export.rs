@@ -437,7 +437,8 @@ pub fn from_blobs(
     let scaling = unit
         .as_ref()
         .map_or(base.scaling(), |u| u.scaling())
-        .to_vec();
+        .iter()
+        .collect::<std::vec::Vec<_>>();
     let m = FloatModel {
         format: FORMAT_NAME.into(),
         version: FORMAT_VERSION,

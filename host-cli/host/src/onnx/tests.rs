@@ -671,7 +671,9 @@ fn soil_blobs() -> (crate::pipeline::Base, Vec<u8>, Vec<u8>) {
     }
     t.flush();
     let mut ck = vec![0u8; 4096];
-    let n = t.write_checkpoint(&base.float.scaling, &mut ck).unwrap();
+    let n = t
+        .write_checkpoint(&base.float.scaling[..], &mut ck)
+        .unwrap();
     ck.truncate(n);
     (base, blob, ck)
 }

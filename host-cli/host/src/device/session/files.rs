@@ -152,8 +152,7 @@ pub(super) fn render_samples(s: &Session) -> String {
     let _ = writeln!(
         out,
         "\npub static SESSION: hone_fw::train::Session<'static> = hone_fw::train::Session {{\n    \
-         input: INPUT,\n    input_format: INPUT_FORMAT,\n    layers: &LAYERS,\n    loss: LOSS,\n    \
-         train: TRAIN,\n    plan: &PLAN,\n    params: &PARAMS,\n    model_blob: &MODEL_BLOB,\n    \
+         desc: &DESC,\n    plan: &PLAN,\n    params: &PARAMS,\n    model_blob: &MODEL_BLOB,\n    \
          scaling: &SCALING,\n    calibration: {calib},\n    faulty: {faulty},\n    holdout: {holdout},\n    \
          passes: PASSES,\n    guard: hone_core::guard::GuardConfig {{\n        max_loss_rise_permille: {},\n        \
          loss_floor: hone_core::layer::loss::LossValue({}),\n        max_saturation_ppm: {},\n    }},\n    \
