@@ -3,7 +3,7 @@
  * through the C interface only (hone.h, libhone_ffi.a).
  *
  * The model blob and samples come from session_data.h, which the host test writes from the
- * same session the Rust firmware runs (host-cli/tests/c_example_qemu.rs). The firmware:
+ * same session the Rust firmware runs (host-cli/host/tests/c_example_qemu.rs). The firmware:
  *
  *   1. starts a session in a static memory block sized by hone_memory_size;
  *   2. runs a guarded calibration on the calibration samples, prints the verdict and the

@@ -19,7 +19,7 @@
 //! the board draws itself, for the instruction figures per multiply-accumulate.
 //!
 //! All output goes through `defmt` in fixed record shapes documented in [`record`]; the host
-//! decoder in `host-cli` parses them by field name.
+//! decoder in `host-cli/qemu` parses them by field name.
 #![no_std]
 #![deny(missing_docs)]
 

@@ -1,5 +1,5 @@
 //! The whole use of the core, shared by the firmware (`main.rs`) and the host test that runs
-//! the same code (host-cli/tests/minimal_qemu.rs): only `hone_core`'s public API.
+//! the same code (host-cli/host/tests/minimal_qemu.rs): only `hone_core`'s public API.
 //!
 //! 1. the exported model (`crate::model`, hone's Rust export) and a training memory sized by
 //!    its plan at compile time (`ARENA_WORDS`);

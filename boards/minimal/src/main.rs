@@ -1,6 +1,6 @@
 //! The minimal on-device example: the hone core's public API and nothing else, on the
 //! LM3S6965 (Cortex-M3) under QEMU. The work is in `calibrate.rs`, which the host test
-//! (host-cli/tests/minimal_qemu.rs) runs on the workstation too; this file only prints each
+//! (host-cli/host/tests/minimal_qemu.rs) runs on the workstation too; this file only prints each
 //! result as a line `<name> <hex bytes>` on the semihosting console and exits with 0 (or 1 on
 //! an error of the core).
 #![no_std]
