@@ -2,7 +2,7 @@
 //! training step (forward, backward, update), fixed point beside the `f64` and `f32` float
 //! twins, for the demo's soil-moisture model and a 784-32-3 dense model.
 //!
-//! Run with `cargo bench -p hone --bench training`. Each figure is the median of several
+//! Run with `cargo bench -p hone-host --bench training`. Each figure is the median of several
 //! timed rounds after a warm-up; MACs per step come from the core's plan
 //! (`Plan::training_macs`). Inputs are seeded pseudo-random vectors: speed does not depend on
 //! their values, except through stochastic rounding, which these models do not use.

@@ -38,7 +38,7 @@ pub struct MeasuredOverhead {
 
 /// Where the figures of [`MEASURED_OVERHEADS`] come from.
 pub const MEASURED_SOURCE: &str = "measured under QEMU 7.2 by the board's calibration session \
-     (cargo test -p hone --test device_qemu -- --nocapture; firmware built with rustc 1.95.0 in \
+     (cargo test -p hone-host --test device_qemu -- --nocapture; firmware built with rustc 1.95.0 in \
      the release profile of boards/: opt-level 3, fat LTO; method in boards/README.md)";
 
 /// The measured overheads, one row per QEMU board. The engine stack is the measurement rounded
