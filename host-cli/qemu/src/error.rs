@@ -6,6 +6,18 @@ use std::time::Duration;
 /// Everything that can go wrong while building, running or decoding board firmware.
 #[derive(Debug, thiserror::Error)]
 pub enum DeviceError {
+    /// No hone source tree was found to build firmware from.
+    #[error(
+        "no hone source tree (a folder holding boards/Cargo.toml and core/Cargo.toml) at or \
+         above {}; run the command inside one, or set {var} to its folder",
+        start.display()
+    )]
+    NoRepo {
+        /// Where the search started (the current directory, or the folder `var` names).
+        start: PathBuf,
+        /// The environment variable that names the tree.
+        var: &'static str,
+    },
     /// The QEMU system emulator for the board is not installed.
     #[error(
         "`{program}` is not installed, and it is needed to run the {board} firmware; \

@@ -1,17 +1,47 @@
 //! Building a board's firmware with cargo.
 
-use std::io::Read;
+use std::io::{BufRead, IsTerminal, Read};
 use std::path::{Path, PathBuf};
 use std::process::{Command, Stdio};
 
 use crate::{DeviceError, QemuBoard};
 
-/// The `boards/` folder of this source tree.
+/// Environment variable naming the hone source tree to build firmware from.
+pub const REPO_VAR: &str = "HONE_REPO";
+
+/// The nearest folder at or above `start` that holds `boards/Cargo.toml` and `core/Cargo.toml`.
+#[must_use]
+pub fn find_repo_from(start: &Path) -> Option<PathBuf> {
+    start
+        .ancestors()
+        .find(|d| d.join("boards/Cargo.toml").is_file() && d.join("core/Cargo.toml").is_file())
+        .map(Path::to_path_buf)
+}
+
+/// The hone source tree the firmware is built from: the folder [`REPO_VAR`] names (or the tree
+/// above it), else the tree at or above the current directory. The installed binary does not
+/// depend on where it was compiled.
+///
+/// # Errors
+/// [`DeviceError::NoRepo`] when there is none.
+pub fn find_repo() -> Result<PathBuf, DeviceError> {
+    let start = match std::env::var_os(REPO_VAR) {
+        Some(dir) => PathBuf::from(dir),
+        None => std::env::current_dir().unwrap_or_else(|_| PathBuf::from(".")),
+    };
+    let start = std::fs::canonicalize(&start).unwrap_or(start);
+    find_repo_from(&start).ok_or(DeviceError::NoRepo {
+        start,
+        var: REPO_VAR,
+    })
+}
+
+/// The `boards/` folder of [`find_repo`]'s tree; `boards` under the current directory when
+/// there is no tree (the build then fails naming that folder). A command checks
+/// [`find_repo`] first, so its user sees [`DeviceError::NoRepo`] instead.
 #[must_use]
 pub fn default_boards_dir() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .join("../..")
-        .join("boards")
+    find_repo().map_or_else(|_| PathBuf::from("boards"), |r| r.join("boards"))
 }
 
 /// Environment variables that would redirect or alter the board build if inherited from an outer
@@ -135,11 +165,23 @@ fn build_in(
         program: cargo.to_string_lossy().into_owned(),
         source,
     })?;
-    let mut stderr_pipe = child.stderr.take();
+    // On a terminal the user sees cargo's progress (a firmware build takes minutes on a small
+    // machine); the lines are kept for the error either way.
+    let show = std::io::stderr().is_terminal();
+    if show {
+        eprintln!("building {what} ({} profile)", profile);
+    }
+    let stderr_pipe = child.stderr.take();
     let stderr = std::thread::spawn(move || {
         let mut s = String::new();
-        if let Some(p) = stderr_pipe.as_mut() {
-            let _ = p.read_to_string(&mut s);
+        if let Some(p) = stderr_pipe {
+            for line in std::io::BufReader::new(p).lines().map_while(Result::ok) {
+                if show {
+                    eprintln!("  {line}");
+                }
+                s.push_str(&line);
+                s.push('\n');
+            }
         }
         s
     });
@@ -178,6 +220,28 @@ fn executable_of(messages: &str, bin: &str) -> Option<PathBuf> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The tree is found from any folder inside it, and not from a folder outside one.
+    #[test]
+    fn the_source_tree_is_found_from_inside_it_only() {
+        let base = std::env::temp_dir().join(format!("hone-find-repo-{}", std::process::id()));
+        let tree = base.join("tree");
+        let deep = tree.join("host-cli/cli/src");
+        for d in [tree.join("boards"), tree.join("core"), deep.clone()] {
+            std::fs::create_dir_all(d).unwrap();
+        }
+        std::fs::write(tree.join("boards/Cargo.toml"), "").unwrap();
+        assert_eq!(
+            find_repo_from(&deep),
+            None,
+            "core/Cargo.toml is still missing"
+        );
+        std::fs::write(tree.join("core/Cargo.toml"), "").unwrap();
+        assert_eq!(find_repo_from(&deep), Some(tree.clone()));
+        assert_eq!(find_repo_from(&tree), Some(tree.clone()));
+        assert_eq!(find_repo_from(&base), None);
+        std::fs::remove_dir_all(&base).unwrap();
+    }
 
     #[test]
     fn finds_the_board_executable_among_cargo_messages() {

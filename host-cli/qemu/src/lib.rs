@@ -39,7 +39,7 @@ pub use elf::SectionSizes;
 pub use error::DeviceError;
 pub use firmware::{
     build_bin, build_bin_in_profile, build_firmware, build_firmware_with, default_boards_dir,
-    RELEASE_PROFILE,
+    find_repo, find_repo_from, RELEASE_PROFILE, REPO_VAR,
 };
 pub use qemu::{run_qemu, QemuOutput};
 pub use report::Report;

@@ -15,6 +15,10 @@ pub(crate) fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
                 )
             })
     };
+    // Firmware is built from a source tree found at run time, not the one this binary was
+    // compiled in.
+    let repo = device::find_repo()?;
+    let boards_dir = repo.join("boards");
     match d {
         DeviceCmd::Verify {
             board,
@@ -22,7 +26,6 @@ pub(crate) fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
             elf,
             json,
         } => {
-            let boards_dir = device::default_boards_dir();
             if board == device::lean::LEAN_BOARD {
                 let profile =
                     device::verify::profile_opt_level(&boards_dir, device::lean::LEAN_PROFILE)?;
@@ -53,6 +56,7 @@ pub(crate) fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
                 session_dir,
                 elf,
                 boards_dir,
+                repo_dir: repo,
                 ..Default::default()
             };
             let check = device::verify::verify_board(b, &opts)?;
@@ -82,7 +86,7 @@ pub(crate) fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
             let b = board_named(&board)?;
             let elf = match elf {
                 Some(e) => e,
-                None => device::build_firmware(b, &device::default_boards_dir())?,
+                None => device::build_firmware(b, &boards_dir)?,
             };
             let opts = device::profile::ProfileOptions {
                 phase,
@@ -99,7 +103,7 @@ pub(crate) fn device(d: DeviceCmd) -> Result<Option<CheckFailed>> {
         DeviceCmd::Session { board, out } => {
             let dir = match out {
                 Some(d) => d,
-                None => device::session::committed_dir(&device::default_boards_dir(), &board),
+                None => device::session::committed_dir(&boards_dir, &board),
             };
             let files = device::session::generate(&dir, &board)?;
             if files.is_empty() {

@@ -584,3 +584,42 @@ fn closed_stdout_is_not_a_panic() {
         out.status.code()
     );
 }
+
+/// Outside a source tree, `hone device` says where it looked and how to name the tree, with
+/// exit status 2, instead of building from the tree the binary was compiled in.
+#[test]
+fn device_outside_a_source_tree_names_the_tree_it_needs() {
+    let tmp = tempfile::tempdir().unwrap();
+    for args in [
+        &["device", "verify", "--board", "lm3s6965evb"][..],
+        &["device", "session", "--board", "microbit"][..],
+    ] {
+        let out = Command::new(HONE)
+            .args(args)
+            .current_dir(tmp.path())
+            .env_remove("HONE_REPO")
+            .stdin(Stdio::null())
+            .output()
+            .expect("the hone binary starts");
+        let err = text(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{}", describe(args, &out));
+        assert!(
+            err.contains("no hone source tree") && err.contains("HONE_REPO"),
+            "{err}"
+        );
+    }
+    // Named by the variable, the tree is found from anywhere.
+    let out = Command::new(HONE)
+        .args(["device", "session", "--board", "pdp11", "--out"])
+        .arg(tmp.path().join("s"))
+        .current_dir(tmp.path())
+        .env("HONE_REPO", repo())
+        .stdin(Stdio::null())
+        .output()
+        .expect("the hone binary starts");
+    let err = text(&out.stderr);
+    assert!(
+        !err.contains("no hone source tree") && err.contains("pdp11"),
+        "{err}"
+    );
+}

@@ -104,10 +104,11 @@ pub fn board_session(board: &str) -> Option<&'static BoardSession> {
     BOARD_SESSIONS.iter().find(|b| b.board == board)
 }
 
-/// The repository this library was built from (the parent of `host-cli`).
+/// The hone source tree ([`crate::device::find_repo`]); the current directory when there is
+/// none (reading its files then fails naming them).
 #[must_use]
 pub fn default_repo_dir() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).join("../..")
+    crate::device::find_repo().unwrap_or_else(|_| PathBuf::from("."))
 }
 
 /// Where the committed session files of `board` live: `boards/<board>/session`.
